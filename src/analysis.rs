@@ -1,0 +1,346 @@
+//! One pass from a checked design to every figure a report shows.
+//!
+//! Data flows one way: [`crate::design::Design`] → [`TubeModel`] (calibration) → [`Network`]
+//! (solve) → [`Analysis`] (gap table, linearity, safety, warnings) → [`crate::report`]. This module
+//! does no IO and knows nothing of output formats; warnings are returned beside the results.
+
+use crate::design::{CapStyle, Design, Element};
+use crate::linearity::{self, Linearity};
+use crate::network::{Network, OperatingPoint, SolveError, Workspace};
+use crate::safety::{self, Safety};
+use crate::tube::{TubeError, TubeModel};
+use crate::units::format_eng;
+use uom::si::electric_current::ampere;
+use uom::si::electric_potential::volt;
+use uom::si::electrical_resistance::ohm;
+use uom::si::power::watt;
+
+/// Why an analysis could not be made.
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+pub enum AnalysisError {
+    /// The tube could not be calibrated from what the design gives (bad input).
+    #[error("{file}: {source}")]
+    Tube {
+        /// Design file.
+        file: String,
+        /// Cause.
+        source: TubeError,
+    },
+    /// A solve failed.
+    #[error("{file}: {source}")]
+    Solve {
+        /// Design file.
+        file: String,
+        /// Cause.
+        source: SolveError,
+    },
+}
+
+/// One row of the gap table.
+#[derive(Debug, Clone, PartialEq)]
+pub struct GapRow {
+    /// 1-based gap number.
+    pub number: usize,
+    /// "K–D1" etc.
+    pub label: String,
+    /// Element description, e.g. "R 1.00 MΩ".
+    pub element: String,
+    /// Voltage across the divider element at the operating point, volts.
+    pub volts: f64,
+    /// Share of the supply, fraction.
+    pub share: f64,
+    /// Current through the element, amperes.
+    pub amps: f64,
+    /// Dissipation, watts.
+    pub watts: f64,
+    /// Power rating (resistors), watts.
+    pub power_rating: Option<f64>,
+    /// Rated voltage (resistors): min(sqrt(P R), working voltage) (IEC 60115-1, from memory).
+    pub rated_volts: Option<f64>,
+    /// Voltage at zero tube current, volts.
+    pub quiescent_volts: f64,
+    /// Secondary-emission ratio of the dynode this gap feeds (multiplying gaps only).
+    pub delta: Option<f64>,
+    /// Power over rating.
+    pub over_power: bool,
+    /// Voltage over rated voltage.
+    pub over_voltage: bool,
+    /// Voltage over the tube's gap limit.
+    pub over_gap_limit: bool,
+}
+
+/// Everything the reports show.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Analysis {
+    /// The design.
+    pub design: Design,
+    /// The solver network (holds the calibrated tube).
+    pub network: Network,
+    /// Divider current with no tube current, amperes.
+    pub quiescent_amps: f64,
+    /// Small-signal gain.
+    pub small_signal_gain: f64,
+    /// d ln G / d ln Vs.
+    pub sensitivity: f64,
+    /// Operating point at the design's average anode current.
+    pub op: OperatingPoint,
+    /// Gap table.
+    pub gaps: Vec<GapRow>,
+    /// Linearity curve.
+    pub linearity: Linearity,
+    /// Safety figures.
+    pub safety: Safety,
+    /// Plausibility warnings (never block).
+    pub warnings: Vec<String>,
+    /// Values assumed because the design did not give them.
+    pub assumptions: Vec<String>,
+}
+
+impl Analysis {
+    /// Gain at the operating point.
+    pub fn gain(&self) -> f64 {
+        self.op.gain()
+    }
+    /// Total base dissipation, watts.
+    pub fn dissipation(&self) -> f64 {
+        self.gaps.iter().map(|g| g.watts).sum::<f64>()
+            + self.op.anode_amps().powi(2) * self.network.anode_resistance
+    }
+}
+
+/// Rated voltage of a resistor: `min(sqrt(P R), U_max)` (IEC 60115-1, from memory).
+pub fn rated_voltage(power: f64, resistance: f64, working: f64) -> f64 {
+    (power * resistance).sqrt().min(working)
+}
+
+/// Run the whole analysis.
+pub fn analyse(design: &Design) -> Result<Analysis, AnalysisError> {
+    let file = design.source.clone();
+    let tube = TubeModel::from_spec(&design.tube).map_err(|source| AnalysisError::Tube {
+        file: file.clone(),
+        source,
+    })?;
+    let network = Network::from_design(design, tube);
+    let mut ws = Workspace::default();
+    let solve_err = |source| AnalysisError::Solve {
+        file: file.clone(),
+        source,
+    };
+    let (quiescent_amps, quiescent_volts) = network.quiescent();
+    let small_signal_gain = network.small_signal_gain();
+    let sensitivity = network.gain_sensitivity();
+    let op = network
+        .solve_anode(design.anode_current, &mut ws)
+        .map_err(solve_err)?;
+    let linearity = linearity::trace(&network, &mut ws).map_err(solve_err)?;
+    let safety = safety::assess(design, &op);
+
+    let vs = design.supply_magnitude();
+    let n = design.tube.stages;
+    let p_rating = design.resistor_power.get::<watt>();
+    let wv = design.resistor_working_voltage.get::<volt>();
+    let max_gap = design.tube.max_gap.map(|v| v.get::<volt>());
+    let tube_gaps = op.tube_gap_volts();
+    let gaps: Vec<GapRow> = (0..=n)
+        .map(|j| {
+            let volts = op.element_volts[j];
+            let amps = op.element_amps[j];
+            let watts = volts * amps;
+            let (element, power_rating, rated_volts) = match design.elements[j] {
+                Element::Resistor(r) => {
+                    let r = r.get::<ohm>();
+                    (
+                        format!("R {}", format_eng(r, "Ω")),
+                        Some(p_rating),
+                        Some(rated_voltage(p_rating, r, wv)),
+                    )
+                }
+                Element::Zener(v, rz) => (
+                    format!(
+                        "Z {} ({} dyn.)",
+                        format_eng(v.get::<volt>(), "V"),
+                        format_eng(rz.get::<ohm>(), "Ω")
+                    ),
+                    None,
+                    None,
+                ),
+            };
+            GapRow {
+                number: j + 1,
+                label: design.gap_label(j),
+                element,
+                volts,
+                share: volts / vs,
+                amps,
+                watts,
+                power_rating,
+                rated_volts,
+                quiescent_volts: quiescent_volts[j],
+                delta: (j < n).then(|| network.tube.delta(tube_gaps[j]).0),
+                over_power: power_rating.is_some_and(|p| watts > p),
+                over_voltage: rated_volts.is_some_and(|u| volts > u),
+                over_gap_limit: max_gap.is_some_and(|m| volts > m),
+            }
+        })
+        .collect();
+
+    let mut warnings = Vec::new();
+    for g in &gaps {
+        if g.over_gap_limit {
+            warnings.push(format!(
+                "Gap {} ({}) holds {} at the operating point, above the tube's gap limit of {}.",
+                g.number,
+                g.label,
+                format_eng(g.volts, "V"),
+                format_eng(max_gap.unwrap_or(0.0), "V")
+            ));
+        }
+        if g.over_power {
+            warnings.push(format!(
+                "Gap {} ({}) dissipates {}, above the resistor's {} rating: use a larger part or split it.",
+                g.number,
+                g.label,
+                format_eng(g.watts, "W"),
+                format_eng(p_rating, "W")
+            ));
+        } else if g.power_rating.is_some_and(|p| g.watts > 0.5 * p) {
+            warnings.push(format!(
+                "Gap {} ({}) dissipates {}, above half the resistor's {} rating (50 % derating is common practice).",
+                g.number,
+                g.label,
+                format_eng(g.watts, "W"),
+                format_eng(p_rating, "W")
+            ));
+        }
+        if g.over_voltage {
+            warnings.push(format!(
+                "Gap {} ({}) puts {} across its resistor, above its rated voltage of {} (min of √(P·R) and the working voltage, IEC 60115-1, from memory): split it into parts in series.",
+                g.number,
+                g.label,
+                format_eng(g.volts, "V"),
+                format_eng(g.rated_volts.unwrap_or(0.0), "V")
+            ));
+        }
+    }
+    let ia = op.anode_amps();
+    let max_ia = design.tube.max_anode_current.get::<ampere>();
+    if ia > max_ia {
+        warnings.push(format!(
+            "The average anode current {} is above the tube's rating of {}.",
+            format_eng(ia, "A"),
+            format_eng(max_ia, "A")
+        ));
+    }
+    if quiescent_amps < 10.0 * ia {
+        warnings.push(format!(
+            "The divider current {} is less than ten times the anode current {} (common practice asks 10× to 100×); see the linearity figures.",
+            format_eng(quiescent_amps, "A"),
+            format_eng(ia, "A")
+        ));
+    }
+    let dev = op.gain() / small_signal_gain - 1.0;
+    if dev.abs() > 0.01 {
+        warnings.push(format!(
+            "At the operating point the gain is {:+.1} % off its small-signal value: the divider is not linear here.",
+            dev * 100.0
+        ));
+    }
+    if let Some(limit) = design.current_limit {
+        let limit = limit.get::<ampere>();
+        if op.supply_amps() > limit {
+            warnings.push(format!(
+                "The base draws {} from the supply, above its current limit of {}: the supply will fold back. Do not raise or defeat the limit; raise the divider resistance instead.",
+                format_eng(op.supply_amps(), "A"),
+                format_eng(limit, "A")
+            ));
+        }
+    }
+    for c in &safety.capacitors {
+        if let Some(r) = c.rating_volts {
+            if r < c.volts {
+                warnings.push(format!(
+                    "The {} is rated {} but holds {}.",
+                    c.label,
+                    format_eng(r, "V"),
+                    format_eng(c.volts, "V")
+                ));
+            } else if r < 1.5 * c.volts && c.label.contains("across") {
+                warnings.push(format!(
+                    "The {} is rated {} for {}: common practice asks at least 1.5× the gap voltage.",
+                    c.label,
+                    format_eng(r, "V"),
+                    format_eng(c.volts, "V")
+                ));
+            }
+        }
+    }
+    for d in &design.decoupling {
+        if d.rating.is_none() {
+            let place = match d.style {
+                CapStyle::Across(g) => format!("across gap {g}"),
+                CapStyle::ToReturn(k) => format!("from D{k} to the return"),
+            };
+            warnings.push(format!(
+                "The decoupling capacitor {place} has no voltage rating in the design; give one so it can be checked."
+            ));
+        }
+    }
+    match safety.bleed_seconds {
+        Some(t) if t > safety::SAFE_SECONDS => warnings.push(format!(
+            "Bleed-down to {:.0} V takes {} ({}), over the {:.0} s of IEC 60204-1 §6.2.4 (from memory).",
+            safety::SAFE_VOLTS,
+            format_eng(t, "s"),
+            safety.bleed_case,
+            safety::SAFE_SECONDS
+        )),
+        None => warnings.push(format!(
+            "Some capacitor stays above {:.0} V for over an hour after switch-off ({}).",
+            safety::SAFE_VOLTS,
+            safety.bleed_case
+        )),
+        _ => {}
+    }
+
+    let mut assumptions = Vec::new();
+    let t = &network.tube;
+    if design.tube.collection_assumed {
+        assumptions.push(format!(
+            "cathode–D1 collection {:.0} % (typical, from memory; give tube.collection)",
+            t.collection * 100.0
+        ));
+    }
+    if t.exponent_assumed {
+        assumptions.push(format!(
+            "secondary-emission exponent k = {} (typical, Knoll ch. 9, from memory; give tube.gain.exponent)",
+            t.k
+        ));
+    }
+    if t.perveance_assumed {
+        let (i, d, v) = crate::tube::ASSUMED_PULSE_LINEARITY;
+        assumptions.push(format!(
+            "pulse linearity {} at {:.0} % with {:.0} V on the last gap (from memory; give tube.pulse_linearity)",
+            format_eng(i, "A"),
+            d * 100.0,
+            v
+        ));
+    }
+    if design.resistors_assumed {
+        assumptions.push(
+            "resistors rated 0.25 W, 250 V working, 1 % (small film parts, common practice; give resistors)".to_string(),
+        );
+    }
+
+    Ok(Analysis {
+        design: design.clone(),
+        network,
+        quiescent_amps,
+        small_signal_gain,
+        sensitivity,
+        op,
+        gaps,
+        linearity,
+        safety,
+        warnings,
+        assumptions,
+    })
+}

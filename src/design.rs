@@ -1,0 +1,1191 @@
+//! The design file: a RON document describing one tube, its divider, supply, load and parts.
+//!
+//! Two layers live here. The *raw* layer mirrors the file exactly (serde, `deny_unknown_fields`,
+//! quantities still as typed text). The *checked* layer ([`Design`]) holds uom quantities and is
+//! built only after every field has been read and every physical-sense rule has passed; errors
+//! name the file and either the `line:col` that ron reports or the field path
+//! (`divider.gaps[3]`) with what was expected. Nothing downstream sees raw text.
+//!
+//! The schema is documented field by field in DEVELOPERS.md and by the commented demo designs.
+
+use std::fmt;
+use std::path::Path;
+
+use serde::de::{self, Visitor};
+use serde::{Deserialize, Deserializer};
+
+use crate::units::{
+    self, Capacitance, ElectricCurrent, ElectricPotential, ElectricalResistance, Kind, Power,
+};
+use uom::si::capacitance::farad;
+use uom::si::electric_current::ampere;
+use uom::si::electric_potential::volt;
+use uom::si::electrical_resistance::ohm;
+use uom::si::power::watt;
+
+/// Largest design file read, in bytes: a design is a page of text, not a data dump.
+pub const MAX_FILE_BYTES: u64 = 1 << 20;
+
+/// Everything that can be wrong with a design file.
+#[derive(Debug, thiserror::Error)]
+pub enum DesignError {
+    /// The file could not be read.
+    #[error("{file}: cannot read the design: {reason}")]
+    Io {
+        /// The path as given.
+        file: String,
+        /// The operating system's reason, in words.
+        reason: String,
+    },
+    /// The file is not valid RON for this schema; ron gives the position.
+    #[error("{file}:{line}:{col}: {message}")]
+    Syntax {
+        /// The path as given.
+        file: String,
+        /// 1-based line.
+        line: usize,
+        /// 1-based column.
+        col: usize,
+        /// What ron found and what it expected.
+        message: String,
+    },
+    /// The file parsed, but a field breaks a rule of physical sense.
+    #[error("{file}: {field}: {message}")]
+    Field {
+        /// The path as given.
+        file: String,
+        /// Field path, e.g. `divider.gaps[3]`.
+        field: String,
+        /// What was expected and what was found.
+        message: String,
+    },
+}
+
+// ---------------------------------------------------------------------------------------------
+// Raw layer
+// ---------------------------------------------------------------------------------------------
+
+/// A quantity as written: a plain number (SI base units) or engineering-notation text.
+#[derive(Debug, Clone, PartialEq)]
+pub enum Value {
+    /// A bare number, in SI base units.
+    Number(f64),
+    /// Text such as `"4.7 nF"`.
+    Text(String),
+}
+
+impl<'de> Deserialize<'de> for Value {
+    fn deserialize<D: Deserializer<'de>>(d: D) -> Result<Self, D::Error> {
+        struct V;
+        impl<'de> Visitor<'de> for V {
+            type Value = Value;
+            fn expecting(&self, f: &mut fmt::Formatter) -> fmt::Result {
+                f.write_str("a quantity: a number in SI units or text such as \"4.7 nF\"")
+            }
+            fn visit_f64<E: de::Error>(self, v: f64) -> Result<Value, E> {
+                Ok(Value::Number(v))
+            }
+            fn visit_i64<E: de::Error>(self, v: i64) -> Result<Value, E> {
+                Ok(Value::Number(v as f64))
+            }
+            fn visit_u64<E: de::Error>(self, v: u64) -> Result<Value, E> {
+                Ok(Value::Number(v as f64))
+            }
+            fn visit_str<E: de::Error>(self, v: &str) -> Result<Value, E> {
+                Ok(Value::Text(v.to_string()))
+            }
+        }
+        d.deserialize_any(V)
+    }
+}
+
+impl fmt::Display for Value {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        match self {
+            Value::Number(x) => write!(f, "{x}"),
+            Value::Text(s) => write!(f, "\"{s}\""),
+        }
+    }
+}
+
+/// Top level of a design file.
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct RawDesign {
+    /// A short title for reports.
+    pub name: String,
+    /// Free text carried into reports.
+    #[serde(default)]
+    pub notes: Option<String>,
+    /// The tube.
+    pub tube: RawTube,
+    /// The high-voltage supply.
+    pub supply: RawSupply,
+    /// The divider.
+    pub divider: RawDivider,
+    /// The anode load.
+    pub load: RawLoad,
+    /// The resistor family the divider is built from.
+    #[serde(default)]
+    pub resistors: Option<RawResistors>,
+    /// Where to evaluate the operating point.
+    #[serde(default)]
+    pub operating: Option<RawOperating>,
+}
+
+/// The tube block.
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct RawTube {
+    /// Number of dynodes.
+    pub stages: i64,
+    /// The gain law.
+    pub gain: RawGainLaw,
+    /// Ratio of the gaps (K–D1 first, Dn–return last) at which the gain figures hold.
+    #[serde(default)]
+    pub reference_ratio: Option<Vec<f64>>,
+    /// Fraction of photoelectrons collected by D1.
+    #[serde(default)]
+    pub collection: Option<Value>,
+    /// Ratings.
+    pub limits: RawLimits,
+    /// The pulse-linearity figure that calibrates the space-charge limit.
+    #[serde(default)]
+    pub pulse_linearity: Option<RawPulseLinearity>,
+}
+
+/// The gain law as given.
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub enum RawGainLaw {
+    /// One point and the secondary-emission exponent k.
+    Reference {
+        /// Supply voltage magnitude at the reference point.
+        volts: Value,
+        /// Gain at that voltage.
+        gain: f64,
+        /// Exponent k in delta = a V^k.
+        #[serde(default)]
+        exponent: Option<f64>,
+    },
+    /// Points (supply voltage, gain) to fit a and k.
+    Table {
+        /// The points.
+        points: Vec<(Value, f64)>,
+    },
+}
+
+/// Tube ratings.
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct RawLimits {
+    /// Largest supply voltage magnitude.
+    pub max_supply: Value,
+    /// Largest voltage on any gap.
+    #[serde(default)]
+    pub max_gap: Option<Value>,
+    /// Largest average anode current.
+    pub max_anode_current: Value,
+}
+
+/// Pulse-linearity figure: the peak anode current at which the gain has moved by `deviation`,
+/// with `last_gap` across the last gap.
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct RawPulseLinearity {
+    /// Peak anode current.
+    pub peak_current: Value,
+    /// Gain deviation at that current (default 2 %).
+    #[serde(default)]
+    pub deviation: Option<Value>,
+    /// Voltage across the last gap when the figure holds.
+    pub last_gap: Value,
+}
+
+/// Polarity of the supply.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Deserialize, serde::Serialize)]
+pub enum Polarity {
+    /// Cathode at negative high voltage, anode DC-coupled near ground.
+    CathodeNegative,
+    /// Cathode grounded, positive high voltage on the last dynodes and the anode resistor.
+    AnodePositive,
+}
+
+/// The supply block.
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct RawSupply {
+    /// Output voltage, signed as the polarity requires.
+    pub volts: Value,
+    /// Polarity.
+    pub polarity: Polarity,
+    /// Output current limit.
+    #[serde(default)]
+    pub current_limit: Option<Value>,
+    /// Output (filter) capacitance of the supply.
+    #[serde(default)]
+    pub output_capacitance: Option<Value>,
+}
+
+/// One divider element.
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub enum RawElement {
+    /// A resistor.
+    R(Value),
+    /// A Zener diode (or stack) with its voltage and dynamic resistance.
+    Zener {
+        /// Breakdown voltage.
+        volts: Value,
+        /// Dynamic resistance above the knee.
+        dynamic: Value,
+    },
+}
+
+/// A decoupling capacitor.
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub enum RawCapacitor {
+    /// Across one gap (gap numbers start at 1 for K–D1).
+    Across {
+        /// Gap number.
+        gap: i64,
+        /// Capacitance.
+        value: Value,
+        /// Voltage rating.
+        #[serde(default)]
+        rating: Option<Value>,
+    },
+    /// From a dynode to the return rail (ground for cathode-negative, +HV for anode-positive).
+    ToReturn {
+        /// Dynode number.
+        dynode: i64,
+        /// Capacitance.
+        value: Value,
+        /// Voltage rating.
+        #[serde(default)]
+        rating: Option<Value>,
+    },
+}
+
+/// The divider block.
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct RawDivider {
+    /// One element per gap: K–D1, D1–D2, …, Dn–return.
+    pub gaps: Vec<RawElement>,
+    /// Decoupling capacitors.
+    #[serde(default)]
+    pub decoupling: Vec<RawCapacitor>,
+    /// Stray capacitance per gap.
+    #[serde(default)]
+    pub stray: Option<Value>,
+    /// Resistor from the cathode-potential shield to its return, if fitted.
+    #[serde(default)]
+    pub shield_resistor: Option<Value>,
+}
+
+/// The load block.
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct RawLoad {
+    /// Load resistance at the instrument.
+    pub resistance: Value,
+    /// Capacitance at the anode node.
+    #[serde(default)]
+    pub capacitance: Option<Value>,
+    /// Anode resistor to the return rail (needed with a coupling capacitor).
+    #[serde(default)]
+    pub anode_resistor: Option<Value>,
+    /// Coupling capacitor from the anode to the load.
+    #[serde(default)]
+    pub coupling: Option<Value>,
+    /// Voltage rating of the coupling capacitor.
+    #[serde(default)]
+    pub coupling_rating: Option<Value>,
+}
+
+/// The resistor family.
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct RawResistors {
+    /// Power rating per part.
+    pub power: Value,
+    /// Working (limiting element) voltage per part.
+    pub working_voltage: Value,
+    /// Tolerance.
+    #[serde(default)]
+    pub tolerance: Option<Value>,
+}
+
+/// Where the report evaluates the operating point.
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct RawOperating {
+    /// Average anode current.
+    pub anode_current: Value,
+}
+
+// ---------------------------------------------------------------------------------------------
+// Checked layer
+// ---------------------------------------------------------------------------------------------
+
+/// How the gain law was given.
+#[derive(Debug, Clone, PartialEq)]
+pub enum GainSpec {
+    /// One reference point.
+    Reference {
+        /// Supply voltage magnitude.
+        volts: ElectricPotential,
+        /// Gain there.
+        gain: f64,
+        /// Exponent k; `None` means the typical value was assumed.
+        exponent: Option<f64>,
+    },
+    /// Table of (supply voltage magnitude, gain).
+    Table(Vec<(ElectricPotential, f64)>),
+}
+
+/// The tube as specified.
+#[derive(Debug, Clone, PartialEq)]
+pub struct TubeSpec {
+    /// Number of dynodes, 1..=20.
+    pub stages: usize,
+    /// Gain law.
+    pub gain: GainSpec,
+    /// Reference ratio, `stages + 1` positive weights.
+    pub reference_ratio: Vec<f64>,
+    /// Cathode–D1 collection efficiency (0, 1].
+    pub collection: f64,
+    /// Whether collection was given or assumed.
+    pub collection_assumed: bool,
+    /// Largest supply voltage magnitude.
+    pub max_supply: ElectricPotential,
+    /// Largest gap voltage, if rated.
+    pub max_gap: Option<ElectricPotential>,
+    /// Largest average anode current.
+    pub max_anode_current: ElectricCurrent,
+    /// Pulse-linearity figure (peak current, deviation, last-gap voltage); `None` = assumed.
+    pub pulse_linearity: Option<(ElectricCurrent, f64, ElectricPotential)>,
+}
+
+/// One checked divider element.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub enum Element {
+    /// Resistor.
+    Resistor(ElectricalResistance),
+    /// Zener: breakdown voltage and dynamic resistance.
+    Zener(ElectricPotential, ElectricalResistance),
+}
+
+/// How a decoupling capacitor is connected.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize)]
+pub enum CapStyle {
+    /// Across gap `n` (1-based, gap 1 = K–D1).
+    Across(usize),
+    /// From dynode `n` (1-based) to the return rail.
+    ToReturn(usize),
+}
+
+/// A checked decoupling capacitor.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Decoupling {
+    /// Connection.
+    pub style: CapStyle,
+    /// Capacitance.
+    pub value: Capacitance,
+    /// Voltage rating, if given.
+    pub rating: Option<ElectricPotential>,
+}
+
+/// The checked design.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Design {
+    /// Where it was read from (for messages).
+    pub source: String,
+    /// Title.
+    pub name: String,
+    /// Notes.
+    pub notes: Option<String>,
+    /// Tube.
+    pub tube: TubeSpec,
+    /// Supply voltage, signed.
+    pub supply_volts: ElectricPotential,
+    /// Polarity.
+    pub polarity: Polarity,
+    /// Supply current limit.
+    pub current_limit: Option<ElectricCurrent>,
+    /// Supply output capacitance.
+    pub supply_capacitance: Option<Capacitance>,
+    /// Divider elements, `stages + 1`.
+    pub elements: Vec<Element>,
+    /// Decoupling capacitors.
+    pub decoupling: Vec<Decoupling>,
+    /// Stray capacitance per gap.
+    pub stray: Capacitance,
+    /// Shield resistor.
+    pub shield_resistor: Option<ElectricalResistance>,
+    /// Load resistance.
+    pub load_resistance: ElectricalResistance,
+    /// Anode-node capacitance.
+    pub load_capacitance: Capacitance,
+    /// Anode resistor to the return rail.
+    pub anode_resistor: Option<ElectricalResistance>,
+    /// Coupling capacitor and its rating.
+    pub coupling: Option<(Capacitance, Option<ElectricPotential>)>,
+    /// Resistor power rating.
+    pub resistor_power: Power,
+    /// Resistor working voltage.
+    pub resistor_working_voltage: ElectricPotential,
+    /// Resistor tolerance (fraction).
+    pub resistor_tolerance: f64,
+    /// Whether the resistor family was given or assumed.
+    pub resistors_assumed: bool,
+    /// Average anode current to report at.
+    pub anode_current: ElectricCurrent,
+}
+
+impl Design {
+    /// Supply voltage magnitude in volts.
+    pub fn supply_magnitude(&self) -> f64 {
+        self.supply_volts.get::<volt>().abs()
+    }
+
+    /// Resistance from the anode to the return rail at DC.
+    pub fn anode_dc_resistance(&self) -> ElectricalResistance {
+        match (self.anode_resistor, self.coupling) {
+            (Some(r), _) => r,
+            (None, _) => self.load_resistance,
+        }
+    }
+
+    /// The label of gap `i` (0-based): "K–D1", "D1–D2", …, and "Dn–GND" or "Dn–HV" for the last.
+    pub fn gap_label(&self, i: usize) -> String {
+        let n = self.tube.stages;
+        if i == 0 {
+            "K–D1".to_string()
+        } else if i < n {
+            format!("D{}–D{}", i, i + 1)
+        } else {
+            match self.polarity {
+                Polarity::CathodeNegative => format!("D{n}–GND"),
+                Polarity::AnodePositive => format!("D{n}–HV"),
+            }
+        }
+    }
+}
+
+/// Typical secondary-emission exponent assumed when none is given (Knoll ch. 9; from memory).
+pub const TYPICAL_EXPONENT: f64 = 0.75;
+/// Typical cathode–D1 collection assumed when none is given (from memory).
+pub const TYPICAL_COLLECTION: f64 = 0.9;
+/// Stray capacitance per gap assumed when none is given (common practice: a few pF).
+pub const TYPICAL_STRAY_FARADS: f64 = 3e-12;
+
+struct Checker<'a> {
+    file: &'a str,
+}
+
+impl Checker<'_> {
+    fn fail(&self, field: impl Into<String>, message: impl Into<String>) -> DesignError {
+        DesignError::Field {
+            file: self.file.to_string(),
+            field: field.into(),
+            message: message.into(),
+        }
+    }
+
+    fn quantity(&self, field: &str, v: &Value, kind: Kind) -> Result<f64, DesignError> {
+        match v {
+            Value::Number(x) if x.is_finite() => Ok(*x),
+            Value::Number(_) => Err(self.fail(
+                field,
+                format!("expected a finite {}, found {v}", kind.name()),
+            )),
+            Value::Text(t) => {
+                units::parse(t, kind).map_err(|e| self.fail(field, format!("{e} (found {v})")))
+            }
+        }
+    }
+
+    fn positive(&self, field: &str, v: &Value, kind: Kind) -> Result<f64, DesignError> {
+        let x = self.quantity(field, v, kind)?;
+        if x > 0.0 {
+            Ok(x)
+        } else {
+            Err(self.fail(
+                field,
+                format!("expected a positive {}, found {v}", kind.name()),
+            ))
+        }
+    }
+
+    /// A positive quantity inside a plausible range, to catch unit slips ("4.7 uF" for nF).
+    fn ranged(
+        &self,
+        field: &str,
+        v: &Value,
+        kind: Kind,
+        lo: f64,
+        hi: f64,
+    ) -> Result<f64, DesignError> {
+        let x = self.positive(field, v, kind)?;
+        if x < lo || x > hi {
+            return Err(self.fail(
+                field,
+                format!(
+                    "{v} is outside the plausible range {} to {} for this field; check the unit prefix",
+                    units::format_eng(lo, kind.symbol()),
+                    units::format_eng(hi, kind.symbol())
+                ),
+            ));
+        }
+        Ok(x)
+    }
+}
+
+/// Read, parse and check a design file.
+pub fn load(path: &Path) -> Result<Design, DesignError> {
+    let file = path.display().to_string();
+    let io = |reason: String| DesignError::Io {
+        file: file.clone(),
+        reason,
+    };
+    let meta = std::fs::metadata(path).map_err(|e| io(e.to_string()))?;
+    if meta.is_dir() {
+        return Err(io("it is a directory; give a .ron design file".into()));
+    }
+    if meta.len() > MAX_FILE_BYTES {
+        return Err(io(format!(
+            "it is {} bytes; a design file is at most {} bytes",
+            meta.len(),
+            MAX_FILE_BYTES
+        )));
+    }
+    let bytes = std::fs::read(path).map_err(|e| io(e.to_string()))?;
+    let text = String::from_utf8(bytes).map_err(|e| {
+        io(format!(
+            "it is not UTF-8 text (byte {} is invalid); is it a binary file?",
+            e.utf8_error().valid_up_to()
+        ))
+    })?;
+    parse_str(&text, &file)
+}
+
+/// Parse and check design text; `file` names it in messages.
+pub fn parse_str(text: &str, file: &str) -> Result<Design, DesignError> {
+    let raw: RawDesign = ron::from_str(text).map_err(|e| syntax_error(file, &e))?;
+    check(raw, file)
+}
+
+fn syntax_error(file: &str, e: &ron::error::SpannedError) -> DesignError {
+    let message = e.code.to_string();
+    DesignError::Syntax {
+        file: file.to_string(),
+        line: e.span.start.line,
+        col: e.span.start.col,
+        message: crate::design::suggest(&message),
+    }
+}
+
+/// Known field names, for "did you mean" suggestions on unknown fields.
+const FIELD_NAMES: &[&str] = &[
+    "name",
+    "notes",
+    "tube",
+    "supply",
+    "divider",
+    "load",
+    "resistors",
+    "operating",
+    "stages",
+    "gain",
+    "reference_ratio",
+    "collection",
+    "limits",
+    "pulse_linearity",
+    "volts",
+    "exponent",
+    "points",
+    "max_supply",
+    "max_gap",
+    "max_anode_current",
+    "peak_current",
+    "deviation",
+    "last_gap",
+    "polarity",
+    "current_limit",
+    "output_capacitance",
+    "gaps",
+    "decoupling",
+    "stray",
+    "shield_resistor",
+    "dynamic",
+    "gap",
+    "dynode",
+    "value",
+    "rating",
+    "resistance",
+    "capacitance",
+    "anode_resistor",
+    "coupling",
+    "coupling_rating",
+    "power",
+    "working_voltage",
+    "tolerance",
+    "anode_current",
+];
+
+/// Levenshtein distance, for suggestions.
+fn edit_distance(a: &str, b: &str) -> usize {
+    let b: Vec<char> = b.chars().collect();
+    let mut prev: Vec<usize> = (0..=b.len()).collect();
+    for (i, ca) in a.chars().enumerate() {
+        let mut cur = vec![i + 1; b.len() + 1];
+        for (j, cb) in b.iter().enumerate() {
+            let cost = usize::from(ca != *cb);
+            cur[j + 1] = (prev[j] + cost).min(prev[j + 1] + 1).min(cur[j] + 1);
+        }
+        prev = cur;
+    }
+    prev[b.len()]
+}
+
+/// Append "did you mean" to ron's unknown-field message when a known name is close.
+pub(crate) fn suggest(message: &str) -> String {
+    let Some(start) = message.find("field named `") else {
+        return message.to_string();
+    };
+    let rest = &message[start + "field named `".len()..];
+    let Some(end) = rest.find('`') else {
+        return message.to_string();
+    };
+    let unknown = &rest[..end];
+    let best = FIELD_NAMES
+        .iter()
+        .map(|n| (edit_distance(unknown, n), *n))
+        .min()
+        .filter(|(d, n)| *d <= 3 && *d < n.len());
+    match best {
+        Some((_, name)) => format!("{message}; did you mean `{name}`?"),
+        None => message.to_string(),
+    }
+}
+
+fn check(raw: RawDesign, file: &str) -> Result<Design, DesignError> {
+    let c = Checker { file };
+
+    // Tube
+    let t = &raw.tube;
+    if !(1..=20).contains(&t.stages) {
+        return Err(c.fail(
+            "tube.stages",
+            format!("expected 1 to 20 dynodes, found {}", t.stages),
+        ));
+    }
+    let n = t.stages as usize;
+    let gain = match &t.gain {
+        RawGainLaw::Reference {
+            volts,
+            gain,
+            exponent,
+        } => {
+            let v = c.ranged("tube.gain.volts", volts, Kind::Voltage, 1.0, 1e5)?;
+            if !(gain.is_finite() && *gain > 1.0) {
+                return Err(c.fail(
+                    "tube.gain.gain",
+                    format!("expected a gain above 1, found {gain}"),
+                ));
+            }
+            if let Some(k) = exponent {
+                if !(k.is_finite() && *k > 0.2 && *k < 1.5) {
+                    return Err(c.fail(
+                        "tube.gain.exponent",
+                        format!(
+                            "expected a secondary-emission exponent k between 0.2 and 1.5 (typically 0.7–0.8), found {k}"
+                        ),
+                    ));
+                }
+            }
+            GainSpec::Reference {
+                volts: ElectricPotential::new::<volt>(v),
+                gain: *gain,
+                exponent: *exponent,
+            }
+        }
+        RawGainLaw::Table { points } => {
+            if points.len() < 2 {
+                return Err(c.fail(
+                    "tube.gain.points",
+                    format!(
+                        "expected at least 2 (voltage, gain) points to fit, found {}",
+                        points.len()
+                    ),
+                ));
+            }
+            let mut out = Vec::with_capacity(points.len());
+            for (i, (v, g)) in points.iter().enumerate() {
+                let field = format!("tube.gain.points[{i}]");
+                let v = c.ranged(&field, v, Kind::Voltage, 1.0, 1e5)?;
+                if !(g.is_finite() && *g > 1.0) {
+                    return Err(c.fail(&field, format!("expected a gain above 1, found {g}")));
+                }
+                if let Some((pv, pg)) = out.last().map(|(pv, pg): &(ElectricPotential, f64)| {
+                    (pv.get::<volt>(), *pg)
+                }) {
+                    if v <= pv {
+                        return Err(c.fail(
+                            &field,
+                            format!(
+                                "expected voltages in increasing order, found {v} V after {pv} V"
+                            ),
+                        ));
+                    }
+                    if *g <= pg {
+                        return Err(c.fail(
+                            &field,
+                            format!(
+                                "expected the gain to rise with voltage, found {g} after {pg}"
+                            ),
+                        ));
+                    }
+                }
+                out.push((ElectricPotential::new::<volt>(v), *g));
+            }
+            GainSpec::Table(out)
+        }
+    };
+    let reference_ratio = match &t.reference_ratio {
+        None => vec![1.0; n + 1],
+        Some(r) => {
+            if r.len() != n + 1 {
+                return Err(c.fail(
+                    "tube.reference_ratio",
+                    format!(
+                        "expected {} weights (one per gap, K–D1 to D{n}–return) for {n} dynodes, found {}",
+                        n + 1,
+                        r.len()
+                    ),
+                ));
+            }
+            for (i, w) in r.iter().enumerate() {
+                if !(w.is_finite() && *w > 0.0) {
+                    return Err(c.fail(
+                        format!("tube.reference_ratio[{i}]"),
+                        format!("expected a positive weight, found {w}"),
+                    ));
+                }
+            }
+            r.clone()
+        }
+    };
+    let (collection, collection_assumed) = match &t.collection {
+        None => (TYPICAL_COLLECTION, true),
+        Some(v) => {
+            let x = c.quantity("tube.collection", v, Kind::Ratio)?;
+            if !(x > 0.0 && x <= 1.0) {
+                return Err(c.fail(
+                    "tube.collection",
+                    format!("expected a fraction in (0, 1], found {v}"),
+                ));
+            }
+            (x, false)
+        }
+    };
+    let max_supply = c.ranged(
+        "tube.limits.max_supply",
+        &t.limits.max_supply,
+        Kind::Voltage,
+        1.0,
+        1e5,
+    )?;
+    let max_gap = match &t.limits.max_gap {
+        None => None,
+        Some(v) => Some(c.ranged("tube.limits.max_gap", v, Kind::Voltage, 1.0, 1e5)?),
+    };
+    let max_anode = c.ranged(
+        "tube.limits.max_anode_current",
+        &t.limits.max_anode_current,
+        Kind::Current,
+        1e-12,
+        1.0,
+    )?;
+    let pulse_linearity = match &t.pulse_linearity {
+        None => None,
+        Some(p) => {
+            let i = c.ranged(
+                "tube.pulse_linearity.peak_current",
+                &p.peak_current,
+                Kind::Current,
+                1e-6,
+                100.0,
+            )?;
+            let dev = match &p.deviation {
+                None => 0.02,
+                Some(v) => c.quantity("tube.pulse_linearity.deviation", v, Kind::Ratio)?,
+            };
+            if !(dev > 0.0 && dev < 0.5) {
+                return Err(c.fail(
+                    "tube.pulse_linearity.deviation",
+                    format!("expected a gain deviation between 0 and 50 %, found {dev}"),
+                ));
+            }
+            let vg = c.ranged(
+                "tube.pulse_linearity.last_gap",
+                &p.last_gap,
+                Kind::Voltage,
+                1.0,
+                1e4,
+            )?;
+            Some((
+                ElectricCurrent::new::<ampere>(i),
+                dev,
+                ElectricPotential::new::<volt>(vg),
+            ))
+        }
+    };
+    let tube = TubeSpec {
+        stages: n,
+        gain,
+        reference_ratio,
+        collection,
+        collection_assumed,
+        max_supply: ElectricPotential::new::<volt>(max_supply),
+        max_gap: max_gap.map(ElectricPotential::new::<volt>),
+        max_anode_current: ElectricCurrent::new::<ampere>(max_anode),
+        pulse_linearity,
+    };
+
+    // Supply
+    let s = &raw.supply;
+    let sv = c.quantity("supply.volts", &s.volts, Kind::Voltage)?;
+    match s.polarity {
+        Polarity::CathodeNegative if sv >= 0.0 => {
+            return Err(c.fail(
+                "supply.volts",
+                format!(
+                    "polarity is CathodeNegative, so expected a negative voltage such as \"-{} V\", found {}",
+                    sv.abs(),
+                    s.volts
+                ),
+            ));
+        }
+        Polarity::AnodePositive if sv <= 0.0 => {
+            return Err(c.fail(
+                "supply.volts",
+                format!(
+                    "polarity is AnodePositive, so expected a positive voltage such as \"{} V\", found {}",
+                    sv.abs(),
+                    s.volts
+                ),
+            ));
+        }
+        _ => {}
+    }
+    if sv.abs() > max_supply {
+        return Err(c.fail(
+            "supply.volts",
+            format!(
+                "|{}| exceeds the tube's maximum supply tube.limits.max_supply = {}",
+                units::format_eng(sv, "V"),
+                units::format_eng(max_supply, "V")
+            ),
+        ));
+    }
+    if sv.abs() < 10.0 {
+        return Err(c.fail(
+            "supply.volts",
+            format!("expected a high voltage of at least 10 V in magnitude, found {}", s.volts),
+        ));
+    }
+    let current_limit = match &s.current_limit {
+        None => None,
+        Some(v) => Some(c.ranged("supply.current_limit", v, Kind::Current, 1e-9, 10.0)?),
+    };
+    let supply_capacitance = match &s.output_capacitance {
+        None => None,
+        Some(v) => Some(c.ranged(
+            "supply.output_capacitance",
+            v,
+            Kind::Capacitance,
+            1e-15,
+            1e-3,
+        )?),
+    };
+
+    // Divider
+    let d = &raw.divider;
+    if d.gaps.len() != n + 1 {
+        return Err(c.fail(
+            "divider.gaps",
+            format!(
+                "a {n}-dynode tube has {} gaps (K–D1, D1–D2, …, D{n}–return), so expected {} elements, found {}",
+                n + 1,
+                n + 1,
+                d.gaps.len()
+            ),
+        ));
+    }
+    let mut elements = Vec::with_capacity(n + 1);
+    for (i, e) in d.gaps.iter().enumerate() {
+        let field = format!("divider.gaps[{i}]");
+        elements.push(match e {
+            RawElement::R(v) => Element::Resistor(ElectricalResistance::new::<ohm>(c.ranged(
+                &field,
+                v,
+                Kind::Resistance,
+                1.0,
+                1e11,
+            )?)),
+            RawElement::Zener { volts, dynamic } => {
+                let vz = c.ranged(&format!("{field}.volts"), volts, Kind::Voltage, 1.0, 1e4)?;
+                let rz = c.ranged(
+                    &format!("{field}.dynamic"),
+                    dynamic,
+                    Kind::Resistance,
+                    1e-3,
+                    1e7,
+                )?;
+                Element::Zener(
+                    ElectricPotential::new::<volt>(vz),
+                    ElectricalResistance::new::<ohm>(rz),
+                )
+            }
+        });
+    }
+    let zener_sum: f64 = elements
+        .iter()
+        .map(|e| match e {
+            Element::Zener(v, _) => v.get::<volt>(),
+            Element::Resistor(_) => 0.0,
+        })
+        .sum();
+    if zener_sum >= sv.abs() {
+        return Err(c.fail(
+            "divider.gaps",
+            format!(
+                "the Zener voltages add up to {} V, at or above the supply's {} V: no divider current would flow",
+                zener_sum,
+                sv.abs()
+            ),
+        ));
+    }
+    let mut decoupling = Vec::new();
+    for (i, cap) in d.decoupling.iter().enumerate() {
+        let field = format!("divider.decoupling[{i}]");
+        let (style, value, rating) = match cap {
+            RawCapacitor::Across { gap, value, rating } => {
+                if *gap < 1 || *gap as usize > n + 1 {
+                    return Err(c.fail(
+                        format!("{field}.gap"),
+                        format!(
+                            "expected a gap number from 1 (K–D1) to {} (D{n}–return), found {gap}",
+                            n + 1
+                        ),
+                    ));
+                }
+                (CapStyle::Across(*gap as usize), value, rating)
+            }
+            RawCapacitor::ToReturn {
+                dynode,
+                value,
+                rating,
+            } => {
+                if *dynode < 1 || *dynode as usize > n {
+                    return Err(c.fail(
+                        format!("{field}.dynode"),
+                        format!("expected a dynode number from 1 to {n}, found {dynode}"),
+                    ));
+                }
+                (CapStyle::ToReturn(*dynode as usize), value, rating)
+            }
+        };
+        let value = c.ranged(
+            &format!("{field}.value"),
+            value,
+            Kind::Capacitance,
+            1e-13,
+            1e-4,
+        )?;
+        let rating = match rating {
+            None => None,
+            Some(r) => Some(ElectricPotential::new::<volt>(c.ranged(
+                &format!("{field}.rating"),
+                r,
+                Kind::Voltage,
+                1.0,
+                1e5,
+            )?)),
+        };
+        if decoupling.iter().any(|x: &Decoupling| x.style == style) {
+            return Err(c.fail(
+                &field,
+                "a capacitor is already fitted at this place; give one entry per place",
+            ));
+        }
+        decoupling.push(Decoupling {
+            style,
+            value: Capacitance::new::<farad>(value),
+            rating,
+        });
+    }
+    let stray = match &d.stray {
+        None => TYPICAL_STRAY_FARADS,
+        Some(v) => c.ranged("divider.stray", v, Kind::Capacitance, 1e-15, 1e-9)?,
+    };
+    let shield_resistor = match &d.shield_resistor {
+        None => None,
+        Some(v) => Some(c.ranged("divider.shield_resistor", v, Kind::Resistance, 1.0, 1e13)?),
+    };
+
+    // Load
+    let l = &raw.load;
+    let load_resistance = c.ranged("load.resistance", &l.resistance, Kind::Resistance, 1.0, 1e9)?;
+    let load_capacitance = match &l.capacitance {
+        None => 10e-12,
+        Some(v) => c.ranged("load.capacitance", v, Kind::Capacitance, 1e-15, 1e-6)?,
+    };
+    let anode_resistor = match &l.anode_resistor {
+        None => None,
+        Some(v) => Some(c.ranged("load.anode_resistor", v, Kind::Resistance, 1.0, 1e9)?),
+    };
+    let coupling = match &l.coupling {
+        None => None,
+        Some(v) => Some(c.ranged("load.coupling", v, Kind::Capacitance, 1e-13, 1e-4)?),
+    };
+    let coupling_rating = match &l.coupling_rating {
+        None => None,
+        Some(v) => Some(c.ranged("load.coupling_rating", v, Kind::Voltage, 1.0, 1e5)?),
+    };
+    if coupling_rating.is_some() && coupling.is_none() {
+        return Err(c.fail(
+            "load.coupling_rating",
+            "a rating is given but no load.coupling capacitor",
+        ));
+    }
+    match s.polarity {
+        Polarity::AnodePositive => {
+            if anode_resistor.is_none() {
+                return Err(c.fail(
+                    "load.anode_resistor",
+                    "polarity AnodePositive puts the anode at +HV: expected an anode resistor to +HV (e.g. \"100k\")",
+                ));
+            }
+            if coupling.is_none() {
+                return Err(c.fail(
+                    "load.coupling",
+                    "polarity AnodePositive needs a coupling capacitor between the anode and the load, or the load sits at +HV",
+                ));
+            }
+        }
+        Polarity::CathodeNegative => {
+            if coupling.is_some() && anode_resistor.is_none() {
+                return Err(c.fail(
+                    "load.anode_resistor",
+                    "a coupling capacitor blocks the anode's DC path: expected an anode resistor to ground beside it",
+                ));
+            }
+        }
+    }
+
+    // Resistor family
+    let (resistor_power, resistor_wv, resistor_tol, resistors_assumed) = match &raw.resistors {
+        None => (0.25, 250.0, 0.01, true),
+        Some(r) => {
+            let p = c.ranged("resistors.power", &r.power, Kind::Power, 1e-3, 100.0)?;
+            let wv = c.ranged(
+                "resistors.working_voltage",
+                &r.working_voltage,
+                Kind::Voltage,
+                1.0,
+                1e5,
+            )?;
+            let tol = match &r.tolerance {
+                None => 0.01,
+                Some(v) => c.quantity("resistors.tolerance", v, Kind::Ratio)?,
+            };
+            if !(tol > 0.0 && tol < 0.5) {
+                return Err(c.fail(
+                    "resistors.tolerance",
+                    format!("expected a tolerance between 0 and 50 %, found {tol}"),
+                ));
+            }
+            (p, wv, tol, false)
+        }
+    };
+
+    let anode_current = match &raw.operating {
+        None => max_anode * 0.1,
+        Some(o) => c.ranged(
+            "operating.anode_current",
+            &o.anode_current,
+            Kind::Current,
+            1e-15,
+            10.0,
+        )?,
+    };
+
+    // Zero-current gap voltages against the gap rating.
+    if let Some(max_gap) = max_gap {
+        if let Some((i, v)) = linear_gap_voltages(&elements, sv.abs())
+            .into_iter()
+            .enumerate()
+            .find(|(_, v)| *v > max_gap * 1.0000001)
+        {
+            return Err(c.fail(
+                format!("divider.gaps[{i}]"),
+                format!(
+                    "this gap would hold {} with no tube current, above tube.limits.max_gap = {}",
+                    units::format_eng(v, "V"),
+                    units::format_eng(max_gap, "V")
+                ),
+            ));
+        }
+    }
+
+    Ok(Design {
+        source: file.to_string(),
+        name: raw.name,
+        notes: raw.notes,
+        tube,
+        supply_volts: ElectricPotential::new::<volt>(sv),
+        polarity: s.polarity,
+        current_limit: current_limit.map(ElectricCurrent::new::<ampere>),
+        supply_capacitance: supply_capacitance.map(Capacitance::new::<farad>),
+        elements,
+        decoupling,
+        stray: Capacitance::new::<farad>(stray),
+        shield_resistor: shield_resistor.map(ElectricalResistance::new::<ohm>),
+        load_resistance: ElectricalResistance::new::<ohm>(load_resistance),
+        load_capacitance: Capacitance::new::<farad>(load_capacitance),
+        anode_resistor: anode_resistor.map(ElectricalResistance::new::<ohm>),
+        coupling: coupling.map(|cc| {
+            (
+                Capacitance::new::<farad>(cc),
+                coupling_rating.map(ElectricPotential::new::<volt>),
+            )
+        }),
+        resistor_power: Power::new::<watt>(resistor_power),
+        resistor_working_voltage: ElectricPotential::new::<volt>(resistor_wv),
+        resistor_tolerance: resistor_tol,
+        resistors_assumed,
+        anode_current: ElectricCurrent::new::<ampere>(anode_current),
+    })
+}
+
+/// Gap voltages with no tube current: resistors share what the Zeners leave, in proportion.
+/// (Ohm's and Kirchhoff's laws; Zeners at their breakdown voltage plus I·r.)
+pub fn linear_gap_voltages(elements: &[Element], supply: f64) -> Vec<f64> {
+    let (vz, r): (f64, f64) = elements.iter().fold((0.0, 0.0), |(vz, r), e| match e {
+        Element::Resistor(x) => (vz, r + x.get::<ohm>()),
+        Element::Zener(v, rz) => (vz + v.get::<volt>(), r + rz.get::<ohm>()),
+    });
+    let i = (supply - vz) / r;
+    elements
+        .iter()
+        .map(|e| match e {
+            Element::Resistor(x) => i * x.get::<ohm>(),
+            Element::Zener(v, rz) => v.get::<volt>() + i * rz.get::<ohm>(),
+        })
+        .collect()
+}

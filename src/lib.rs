@@ -1,0 +1,21 @@
+//! `dynode`: design and check photomultiplier-tube bases from one design file.
+//!
+//! The flow is one way: [`design`] reads and checks a RON design file into uom quantities;
+//! [`tube`] calibrates the gain law and the space-charge limit; [`network`] solves the divider
+//! with the tube's own currents; [`linearity`] traces the gain against anode current; [`safety`]
+//! computes stored charge and bleed-down; [`analysis`] gathers everything; [`report`] renders it;
+//! [`netlist`] writes the same network for a circuit simulator; [`output`] writes files safely.
+//! The model's public API speaks in uom quantities at its edges and plain f64 inside hot loops.
+#![forbid(unsafe_code)]
+#![warn(missing_docs)]
+
+pub mod analysis;
+pub mod design;
+pub mod linearity;
+pub mod netlist;
+pub mod network;
+pub mod output;
+pub mod report;
+pub mod safety;
+pub mod tube;
+pub mod units;

@@ -1,0 +1,172 @@
+//! DC linearity: how the gain moves as the average anode current rises (physics brief §3–4).
+//!
+//! The curve is traced in the cathode current (which cannot fold back), from an anode current of
+//! 1e-4 of the quiescent divider current to three times it, on log-spaced points, each solve
+//! starting from the previous one (continuation). The deviation is `G(I)/G0 - 1`, with `G0` the
+//! small-signal gain. Crossings of +1 %, −1 %, +5 % and −5 % are bracketed on the grid and
+//! refined by bisection on ln(cathode current) with real solves.
+
+use crate::network::{Network, OperatingPoint, SolveError, Workspace};
+
+/// One point of the linearity curve.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct LinearityPoint {
+    /// Average anode current, amperes.
+    pub anode_amps: f64,
+    /// Gain deviation from the small-signal gain (fraction).
+    pub deviation: f64,
+}
+
+/// The linearity curve and its limits.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Linearity {
+    /// Points in order of rising cathode current.
+    pub points: Vec<LinearityPoint>,
+    /// Anode current where the deviation first reaches +1 %.
+    pub plus_1pct: Option<f64>,
+    /// … −1 %.
+    pub minus_1pct: Option<f64>,
+    /// … +5 %.
+    pub plus_5pct: Option<f64>,
+    /// … −5 %.
+    pub minus_5pct: Option<f64>,
+    /// Largest positive deviation (over-linearity) and where.
+    pub peak_over: Option<LinearityPoint>,
+    /// Why the curve stopped early, if it did.
+    pub stopped: Option<String>,
+}
+
+/// Number of points on the curve.
+pub const CURVE_POINTS: usize = 200;
+
+/// Solve at cathode current `ik` starting from `prev`; when Newton fails, walk there in smaller
+/// steps of ln(ik) (continuation), down to 1/256 of the original step.
+fn continue_to(
+    net: &Network,
+    ik: f64,
+    prev: Option<&OperatingPoint>,
+    ws: &mut Workspace,
+) -> Result<OperatingPoint, SolveError> {
+    let first = net.solve_raw(ik, prev, ws);
+    let Some(start) = prev else {
+        return first;
+    };
+    if first.is_ok() {
+        return first;
+    }
+    let mut err = first;
+    for pieces in [4usize, 16, 64, 256] {
+        let (a, b) = (start.cathode_amps.ln(), ik.ln());
+        let mut cur = start.clone();
+        let mut ok = true;
+        for s in 1..=pieces {
+            let x = (a + (b - a) * s as f64 / pieces as f64).exp();
+            match net.solve_raw(x, Some(&cur), ws) {
+                Ok(op) => cur = op,
+                Err(e) => {
+                    err = Err(e);
+                    ok = false;
+                    break;
+                }
+            }
+        }
+        if ok {
+            return Ok(cur);
+        }
+    }
+    // Past a turning point the branch may end: a cold start finds the other one, if any.
+    net.solve_raw(ik, None, ws).or(err)
+}
+
+/// Trace the curve.
+pub fn trace(net: &Network, ws: &mut Workspace) -> Result<Linearity, SolveError> {
+    trace_points(net, CURVE_POINTS, ws)
+}
+
+/// Trace with a chosen number of points.
+pub fn trace_points(
+    net: &Network,
+    count: usize,
+    ws: &mut Workspace,
+) -> Result<Linearity, SolveError> {
+    let g0 = net.small_signal_gain();
+    let (i_div, _) = net.quiescent();
+    let lo = (1e-4 * i_div / g0).ln();
+    let hi = (3.0 * i_div / g0).ln();
+    let mut points = Vec::with_capacity(count);
+    let mut ops: Vec<(f64, OperatingPoint)> = Vec::with_capacity(count);
+    let mut prev: Option<OperatingPoint> = None;
+    let mut stopped = None;
+    for i in 0..count {
+        let ik = (lo + (hi - lo) * i as f64 / (count - 1) as f64).exp();
+        match continue_to(net, ik, prev.as_ref(), ws) {
+            Ok(op) => {
+                points.push(LinearityPoint {
+                    anode_amps: op.anode_amps(),
+                    deviation: op.gain() / g0 - 1.0,
+                });
+                prev = Some(op.clone());
+                ops.push((ik, op));
+            }
+            Err(e) => {
+                if i == 0 {
+                    return Err(e);
+                }
+                stopped = Some(format!(
+                    "the curve stops at {}: {e}",
+                    crate::units::format_eng(
+                        points.last().map_or(0.0, |p: &LinearityPoint| p.anode_amps),
+                        "A"
+                    )
+                ));
+                break;
+            }
+        }
+    }
+    let find = |target: f64, ws: &mut Workspace| -> Option<f64> {
+        let above = |d: f64| if target > 0.0 { d >= target } else { d <= target };
+        let idx = points.iter().position(|p| above(p.deviation))?;
+        if idx == 0 {
+            return Some(points[0].anode_amps);
+        }
+        let (mut a, mut opa) = (ops[idx - 1].0.ln(), ops[idx - 1].1.clone());
+        let mut b = ops[idx].0.ln();
+        let mut best = points[idx].anode_amps;
+        for _ in 0..40 {
+            let mid = 0.5 * (a + b);
+            let Ok(op) = net.solve_raw(mid.exp(), Some(&opa), ws) else {
+                break;
+            };
+            let d = op.gain() / g0 - 1.0;
+            if above(d) {
+                b = mid;
+                best = op.anode_amps();
+            } else {
+                a = mid;
+                opa = op;
+            }
+            if b - a < 1e-9 {
+                break;
+            }
+        }
+        Some(best)
+    };
+    let plus_1pct = find(0.01, ws);
+    let minus_1pct = find(-0.01, ws);
+    let plus_5pct = find(0.05, ws);
+    let minus_5pct = find(-0.05, ws);
+    let peak_over = points
+        .iter()
+        .copied()
+        .filter(|p| p.deviation > 0.0)
+        .max_by(|a, b| a.deviation.total_cmp(&b.deviation));
+    Ok(Linearity {
+        points,
+        plus_1pct,
+        minus_1pct,
+        plus_5pct,
+        minus_5pct,
+        peak_over,
+        stopped,
+    })
+}

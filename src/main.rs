@@ -1,0 +1,222 @@
+//! The `dynode` command line: parse arguments, call the library, map results to exit codes.
+//!
+//! Exit codes: 0 done; 1 the design breaks a limit and `--strict` was given; 2 bad input or
+//! usage; 3 a solve failed. Data goes to stdout, messages to stderr.
+
+use std::io::Write;
+use std::path::{Path, PathBuf};
+use std::process::ExitCode;
+
+use clap::{Parser, Subcommand};
+
+use dynode::analysis::{self, AnalysisError};
+use dynode::design;
+use dynode::netlist::{self, NetlistOptions};
+use dynode::output;
+use dynode::report::{self, Format};
+use dynode::units::{self, Kind};
+
+/// Exit codes, documented in README.md.
+#[derive(Debug, Clone, Copy)]
+enum Exit {
+    Ok = 0,
+    Strict = 1,
+    BadInput = 2,
+    SolveFailed = 3,
+}
+
+#[derive(Parser)]
+#[command(
+    name = "dynode",
+    version,
+    about = "Design and check photomultiplier-tube bases: divider, gain, linearity, safety.",
+    after_help = "Example:\n  dynode report designs/rooftop-paddle.ron\n  dynode report designs/rooftop-paddle.ron --format json -o paddle.json\n\nHIGH VOLTAGE: the circuits this tool describes can kill. See SAFETY.md."
+)]
+struct Cli {
+    #[command(subcommand)]
+    command: Command,
+}
+
+#[derive(clap::Args)]
+struct OutputArgs {
+    /// Write to FILE instead of stdout (atomically; never over an input file).
+    #[arg(short, long, value_name = "FILE")]
+    output: Option<PathBuf>,
+    /// Replace FILE if it exists.
+    #[arg(long)]
+    force: bool,
+    /// Print no messages on stderr (errors still print).
+    #[arg(short, long)]
+    quiet: bool,
+}
+
+#[derive(Subcommand)]
+enum Command {
+    /// Solve the divider with the tube's currents and print the full report.
+    #[command(after_help = "Example:\n  dynode report designs/rooftop-paddle.ron --format json -o paddle.json")]
+    Report {
+        /// The design file (RON).
+        design: PathBuf,
+        /// Output format.
+        #[arg(short, long, value_enum, default_value_t = Format::Text)]
+        format: Format,
+        /// Exit with code 1 when the design breaks a limit (any warning).
+        #[arg(long)]
+        strict: bool,
+        #[command(flatten)]
+        out: OutputArgs,
+    },
+    /// Check a design file and say what is wrong, without solving.
+    #[command(after_help = "Example:\n  dynode check designs/rooftop-paddle.ron")]
+    Check {
+        /// The design file (RON).
+        design: PathBuf,
+    },
+    /// Write a SPICE netlist of the solved network (behavioural dynode sources).
+    #[command(after_help = "Example:\n  dynode netlist designs/rooftop-paddle.ron -o base.cir\n  ngspice -b base.cir")]
+    Netlist {
+        /// The design file (RON).
+        design: PathBuf,
+        /// Average anode current to set the cathode current for (default: the design's).
+        #[arg(long, value_name = "CURRENT")]
+        anode_current: Option<String>,
+        #[command(flatten)]
+        out: OutputArgs,
+    },
+}
+
+fn fail(msg: impl std::fmt::Display, code: Exit) -> ExitCode {
+    eprintln!("dynode: error: {msg}");
+    ExitCode::from(code as u8)
+}
+
+fn analysis_exit(e: &AnalysisError) -> Exit {
+    match e {
+        AnalysisError::Tube { .. } => Exit::BadInput,
+        AnalysisError::Solve { .. } => Exit::SolveFailed,
+    }
+}
+
+fn emit(text: &str, out: &OutputArgs, input: &Path) -> Result<(), ExitCode> {
+    match &out.output {
+        Some(path) => {
+            output::write_atomic(path, text.as_bytes(), &[input], out.force)
+                .map_err(|e| fail(e, Exit::BadInput))?;
+            if !out.quiet {
+                eprintln!("dynode: wrote {}", path.display());
+            }
+        }
+        None => {
+            let mut stdout = std::io::stdout().lock();
+            // A closed pipe (e.g. `| head`) is not an error.
+            let _ = stdout.write_all(text.as_bytes());
+        }
+    }
+    Ok(())
+}
+
+fn run() -> ExitCode {
+    let cli = match Cli::try_parse() {
+        Ok(c) => c,
+        Err(e) => {
+            let _ = e.print();
+            return ExitCode::from(if e.use_stderr() { Exit::BadInput as u8 } else { 0 });
+        }
+    };
+    match cli.command {
+        Command::Check { design } => match design::load(&design) {
+            Ok(d) => match analysis::analyse(&d) {
+                Ok(_) => {
+                    println!("{}: the design reads and solves", design.display());
+                    ExitCode::from(Exit::Ok as u8)
+                }
+                Err(e) => fail(&e, analysis_exit(&e)),
+            },
+            Err(e) => fail(e, Exit::BadInput),
+        },
+        Command::Report {
+            design,
+            format,
+            strict,
+            out,
+        } => {
+            let d = match design::load(&design) {
+                Ok(d) => d,
+                Err(e) => return fail(e, Exit::BadInput),
+            };
+            if let Some(p) = &out.output {
+                if let Err(e) = output::check_target(p, &[design.as_path()], out.force) {
+                    return fail(e, Exit::BadInput);
+                }
+            }
+            let a = match analysis::analyse(&d) {
+                Ok(a) => a,
+                Err(e) => return fail(&e, analysis_exit(&e)),
+            };
+            let text = report::render(&a, format);
+            if let Err(code) = emit(&text, &out, &design) {
+                return code;
+            }
+            if strict && !a.warnings.is_empty() {
+                if !out.quiet {
+                    eprintln!(
+                        "dynode: {} warning(s) and --strict: exit 1",
+                        a.warnings.len()
+                    );
+                }
+                return ExitCode::from(Exit::Strict as u8);
+            }
+            ExitCode::from(Exit::Ok as u8)
+        }
+        Command::Netlist {
+            design,
+            anode_current,
+            out,
+        } => {
+            let d = match design::load(&design) {
+                Ok(d) => d,
+                Err(e) => return fail(e, Exit::BadInput),
+            };
+            if let Some(p) = &out.output {
+                if let Err(e) = output::check_target(p, &[design.as_path()], out.force) {
+                    return fail(e, Exit::BadInput);
+                }
+            }
+            let anode = match &anode_current {
+                None => d.anode_current,
+                Some(t) => match units::parse(t, Kind::Current) {
+                    Ok(v) if v > 0.0 => {
+                        dynode::units::ElectricCurrent::new::<uom::si::electric_current::ampere>(v)
+                    }
+                    Ok(_) => return fail("--anode-current: expected a positive current", Exit::BadInput),
+                    Err(e) => return fail(format!("--anode-current: {e}"), Exit::BadInput),
+                },
+            };
+            let a = match analysis::analyse(&d) {
+                Ok(a) => a,
+                Err(e) => return fail(&e, analysis_exit(&e)),
+            };
+            let mut ws = dynode::network::Workspace::default();
+            let op = match a.network.solve_anode(anode, &mut ws) {
+                Ok(op) => op,
+                Err(e) => return fail(format!("{}: {e}", d.source), Exit::SolveFailed),
+            };
+            let text = netlist::write(
+                &d,
+                &a.network.tube,
+                &NetlistOptions {
+                    cathode_amps: op.cathode_amps,
+                    control_block: true,
+                },
+            );
+            if let Err(code) = emit(&text, &out, &design) {
+                return code;
+            }
+            ExitCode::from(Exit::Ok as u8)
+        }
+    }
+}
+
+fn main() -> ExitCode {
+    run()
+}

@@ -1,0 +1,208 @@
+//! A SPICE netlist of the very network the tool solves, for a general-purpose circuit simulator.
+//!
+//! Node names: `k` photocathode, `d1`…`dN` dynodes, `p` anode, `rtn` the return rail (ground for a
+//! cathode-negative supply; `hv` for an anode-positive one, where the cathode is ground `0`).
+//! The tube is a chain of behavioural sources (B-sources, as ngspice reads them): auxiliary nodes
+//! `t1`…`tN+1` carry the electron current crossing each tube gap as a voltage (1 V = 1 A), with the
+//! same secondary-emission law, smooth positive part and space-charge fold as [`crate::tube`];
+//! current sources inject `t(j+1) - t(j)` into each dynode, `t1` into the cathode, and draw
+//! `t(N+1)` from the anode. Zeners are behavioural too, with the solver's piecewise law.
+
+use std::fmt::Write;
+
+use crate::design::{CapStyle, Design, Element, Polarity};
+use crate::network::ZENER_LEAK_SIEMENS;
+use crate::tube::{SMOOTH_VOLTS, TubeModel};
+use uom::si::capacitance::farad;
+use uom::si::electric_potential::volt;
+use uom::si::electrical_resistance::ohm;
+
+/// What to put in the netlist's analysis section.
+#[derive(Debug, Clone, PartialEq)]
+pub struct NetlistOptions {
+    /// Cathode (photo)current for the DC operating point, amperes.
+    pub cathode_amps: f64,
+    /// Add a `.control` block that runs `.op` and prints every electrode potential (for tests
+    /// and for users who want numbers straight away).
+    pub control_block: bool,
+}
+
+fn node(design: &Design, electrode: usize) -> String {
+    // electrode 0 = K, 1..=n = dynodes, n+1 = anode, n+2 = return rail
+    let n = design.tube.stages;
+    let neg = design.polarity == Polarity::CathodeNegative;
+    match electrode {
+        0 if !neg => "0".to_string(),
+        0 => "k".to_string(),
+        e if e <= n => format!("d{e}"),
+        e if e == n + 1 => "p".to_string(),
+        _ if neg => "0".to_string(),
+        _ => "hv".to_string(),
+    }
+}
+
+fn num(x: f64) -> String {
+    format!("{x:.12e}")
+}
+
+/// The potential of `electrode` relative to the cathode, as an ngspice expression.
+pub fn relative_expr(design: &Design, electrode: usize) -> String {
+    let k = node(design, 0);
+    let e = node(design, electrode);
+    if k == "0" {
+        format!("v({e})")
+    } else {
+        format!("v({e},{k})")
+    }
+}
+
+/// Write the netlist text.
+pub fn write(design: &Design, tube: &TubeModel, opts: &NetlistOptions) -> String {
+    let n = design.tube.stages;
+    let vs = design.supply_magnitude();
+    let rtn = node(design, n + 2);
+    let mut s = String::new();
+    let _ = writeln!(s, "* dynode netlist: {}", design.name.replace('\n', " "));
+    let _ = writeln!(s, "* from design file {}", design.source);
+    let _ = writeln!(s, "* HIGH VOLTAGE: this circuit describes a base that can kill. See SAFETY.md.");
+    let _ = writeln!(s, "* Nodes: k = photocathode, d1..d{n} = dynodes, p = anode, {rtn} = return rail.");
+    let _ = writeln!(s, "* t1..t{} carry the tube's gap currents as voltages (1 V stands for 1 A).", n + 1);
+    let _ = writeln!(
+        s,
+        "* Tube law: delta = {} * sp(u)^{}, sp(u) = (u + sqrt(u^2 + {}^2))/2; collection {};",
+        num(tube.a),
+        num(tube.k),
+        SMOOTH_VOLTS,
+        num(tube.collection)
+    );
+    let _ = writeln!(
+        s,
+        "* space charge: I_out = I_in / (1 + (I_in / (P sp(u)^1.5))^4)^0.25 with P = {} A/V^1.5.",
+        num(tube.perveance)
+    );
+    let _ = writeln!(s, ".param ik = {}", num(opts.cathode_amps));
+    let _ = writeln!(s, "* Supply: {} V magnitude, {:?}.", vs, design.polarity);
+    match design.polarity {
+        Polarity::CathodeNegative => {
+            let _ = writeln!(s, "VHV 0 k DC {}", num(vs));
+        }
+        Polarity::AnodePositive => {
+            let _ = writeln!(s, "VHV hv 0 DC {}", num(vs));
+        }
+    }
+    let _ = writeln!(s, "* Divider: element j spans electrode j-1 to j; the last spans d{n} to the return rail.");
+    for (j, e) in design.elements.iter().enumerate() {
+        let bottom = node(design, j);
+        let top = if j == n { rtn.clone() } else { node(design, j + 1) };
+        match e {
+            Element::Resistor(r) => {
+                let _ = writeln!(s, "R{} {} {} {}", j + 1, bottom, top, num(r.get::<ohm>()));
+            }
+            Element::Zener(v, rz) => {
+                let vz = v.get::<volt>();
+                let rz = rz.get::<ohm>();
+                let _ = writeln!(
+                    s,
+                    "BZ{} {top} {bottom} I = (v({top},{bottom}) > {vz}) ? ({leak}*{vz} + (v({top},{bottom}) - {vz})/{rz}) : ({leak}*v({top},{bottom}))",
+                    j + 1,
+                    vz = num(vz),
+                    rz = num(rz),
+                    leak = num(ZENER_LEAK_SIEMENS),
+                );
+            }
+        }
+    }
+    let _ = writeln!(s, "* Stray capacitance per gap, and decoupling capacitors.");
+    let stray = design.stray.get::<farad>();
+    for j in 0..=n {
+        let a = node(design, j);
+        let b = node(design, j + 1);
+        let _ = writeln!(s, "CS{} {a} {b} {}", j + 1, num(stray));
+    }
+    for (i, d) in design.decoupling.iter().enumerate() {
+        let c = d.value.get::<farad>();
+        match d.style {
+            CapStyle::Across(g) => {
+                let a = node(design, g - 1);
+                let b = if g == n + 1 { rtn.clone() } else { node(design, g) };
+                let _ = writeln!(s, "CD{} {a} {b} {}", i + 1, num(c));
+            }
+            CapStyle::ToReturn(k) => {
+                let _ = writeln!(s, "CD{} {} {rtn} {}", i + 1, node(design, k), num(c));
+            }
+        }
+    }
+    let _ = writeln!(s, "* Anode return and load.");
+    let ra = design.anode_dc_resistance().get::<ohm>();
+    let cl = design.load_capacitance.get::<farad>();
+    match design.coupling {
+        Some((cc, _)) => {
+            let _ = writeln!(s, "RA p {rtn} {}", num(ra));
+            let _ = writeln!(s, "CC p load {}", num(cc.get::<farad>()));
+            let _ = writeln!(
+                s,
+                "RL load 0 {}",
+                num(design.load_resistance.get::<ohm>())
+            );
+            let _ = writeln!(s, "CL load 0 {}", num(cl));
+        }
+        None => {
+            let _ = writeln!(s, "RA p {rtn} {}", num(ra));
+            let _ = writeln!(s, "CL p {rtn} {}", num(cl));
+        }
+    }
+    let _ = writeln!(s, "* Tube: gap currents.");
+    let sp = |a: &str, b: &str| {
+        format!(
+            "(0.5*(v({a},{b}) + sqrt(v({a},{b})*v({a},{b}) + {w})))",
+            w = num(SMOOTH_VOLTS * SMOOTH_VOLTS)
+        )
+    };
+    let fold = |offered: &str, gap: &str| {
+        format!(
+            "({offered})/pow(1 + pow(({offered})/({p}*pow({gap},1.5)),4),0.25)",
+            p = num(tube.perveance)
+        )
+    };
+    for j in 1..=n + 1 {
+        let a = node(design, j);
+        let b = node(design, j - 1);
+        let gap = sp(&a, &b);
+        let offered = if j == 1 {
+            "ik".to_string()
+        } else {
+            let pa = node(design, j - 1);
+            let pb = node(design, j - 2);
+            let eta = if j == 2 { tube.collection } else { 1.0 };
+            format!(
+                "{}*{}*pow({},{})*v(t{})",
+                num(eta),
+                num(tube.a),
+                sp(&pa, &pb),
+                num(tube.k),
+                j - 1
+            )
+        };
+        let _ = writeln!(s, "BT{j} t{j} 0 V = {}", fold(&offered, &gap));
+    }
+    let _ = writeln!(s, "* Tube: currents injected into the electrodes.");
+    let _ = writeln!(s, "BIK 0 {} I = v(t1)", node(design, 0));
+    for j in 1..=n {
+        let _ = writeln!(s, "BID{j} 0 {} I = v(t{}) - v(t{j})", node(design, j), j + 1);
+    }
+    let _ = writeln!(s, "BIP p 0 I = v(t{})", n + 1);
+    let _ = writeln!(s, ".options reltol=1e-10 vntol=1e-12 abstol=1e-18");
+    let _ = writeln!(s, ".op");
+    if opts.control_block {
+        let _ = writeln!(s, ".control");
+        let _ = writeln!(s, "set numdgt=15");
+        let _ = writeln!(s, "op");
+        for e in 1..=n + 1 {
+            let _ = writeln!(s, "print {}", relative_expr(design, e));
+        }
+        let _ = writeln!(s, "quit 0");
+        let _ = writeln!(s, ".endc");
+    }
+    let _ = writeln!(s, ".end");
+    s
+}

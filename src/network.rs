@@ -1,0 +1,717 @@
+//! The DC operating point of the divider with the tube's own currents (physics brief §3).
+//!
+//! Electrodes K, D1..Dn, P. Potentials are taken relative to the cathode, so the return rail
+//! (ground for a cathode-negative supply, +HV for an anode-positive one) sits at `+Vs`; both
+//! polarities are then the same circuit. Divider element `j` spans electrode `j-1` to `j`
+//! (element `n+1` spans Dn to the return rail); the anode returns through its DC resistance.
+//!
+//! The tube is a chain of voltage-dependent current sources. `t_j` is the electron current that
+//! crosses tube gap `j` (K–D1 is gap 1, Dn–P is gap n+1):
+//! `t_1 = f(I_k, u_1)`, `t_2 = f(eta·delta(u_1)·t_1, u_2)`, `t_j = f(delta(u_{j-1})·t_{j-1}, u_j)`,
+//! with `f` the smooth space-charge fold and low-field collection of [`crate::tube`]. Seen from the circuit, the tube injects
+//! `t_{j+1} - t_j` into dynode j, `t_1` into the cathode and draws `t_{n+1}` from the anode; the
+//! injections sum to zero.
+//!
+//! Unknowns are interleaved `[v_1, t_1, v_2, t_2, …, v_P, t_{n+1}]` so that the Jacobian is a band
+//! matrix (5 below, 3 above the diagonal) whatever the stage count: one Newton step costs O(n).
+//! Newton's method with a backtracking line search on the scaled residual; failure is an error
+//! with a reason, never a NaN.
+
+use crate::design::{Design, Element};
+use crate::tube::TubeModel;
+use crate::units::{ElectricCurrent, ElectricPotential};
+use uom::si::electric_current::ampere;
+use uom::si::electric_potential::volt;
+use uom::si::electrical_resistance::ohm;
+
+/// Leakage conductance of a Zener below its knee, siemens (keeps the node equations regular).
+pub const ZENER_LEAK_SIEMENS: f64 = 1e-11;
+const KL: usize = 5;
+const KU: usize = 3;
+
+/// Why a solve failed.
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+pub enum SolveError {
+    /// Newton's method did not converge.
+    #[error("the DC solve did not converge after {iterations} Newton steps (scaled residual {residual:.2e}) at a cathode current of {cathode_amps:.3e} A")]
+    NoConvergence {
+        /// Steps taken.
+        iterations: usize,
+        /// Residual left.
+        residual: f64,
+        /// Cathode current of the attempt.
+        cathode_amps: f64,
+    },
+    /// The Jacobian was singular.
+    #[error("the node equations are singular (a node has no DC path); check the divider")]
+    Singular,
+    /// A requested anode current cannot be reached.
+    #[error("an average anode current of {wanted:.3e} A cannot be reached: the divider saturates near {reached:.3e} A")]
+    Unreachable {
+        /// Asked for.
+        wanted: f64,
+        /// Highest reached.
+        reached: f64,
+    },
+}
+
+/// One divider element in solver form.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub enum Part {
+    /// Conductance in siemens.
+    Resistor(f64),
+    /// Breakdown voltage (V) and dynamic resistance (ohm).
+    Zener(f64, f64),
+}
+
+impl Part {
+    /// Current (top to bottom) for a voltage across the element, and its derivative.
+    #[inline]
+    pub fn current(&self, w: f64) -> (f64, f64) {
+        match *self {
+            Part::Resistor(g) => (g * w, g),
+            Part::Zener(vz, rz) => {
+                if w <= vz {
+                    (ZENER_LEAK_SIEMENS * w, ZENER_LEAK_SIEMENS)
+                } else {
+                    (ZENER_LEAK_SIEMENS * vz + (w - vz) / rz, 1.0 / rz)
+                }
+            }
+        }
+    }
+}
+
+/// The solver's view of a base: plain f64 behind the typed API.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Network {
+    /// Calibrated tube.
+    pub tube: TubeModel,
+    /// Divider elements, `n + 1`.
+    pub parts: Vec<Part>,
+    /// Supply magnitude, volts.
+    pub supply: f64,
+    /// Anode DC resistance to the return rail, ohms.
+    pub anode_resistance: f64,
+}
+
+/// A solved operating point. Potentials are relative to the cathode.
+#[derive(Debug, Clone, PartialEq)]
+pub struct OperatingPoint {
+    /// Electrode potentials D1..Dn, P relative to K, volts (`n + 1`).
+    pub potentials: Vec<f64>,
+    /// Tube currents across gaps 1..n+1 (electron flow as positive amperes).
+    pub tube_currents: Vec<f64>,
+    /// Voltage across each divider element, volts (`n + 1`).
+    pub element_volts: Vec<f64>,
+    /// Current through each divider element, top to bottom, amperes.
+    pub element_amps: Vec<f64>,
+    /// Cathode (photo)current, amperes.
+    pub cathode_amps: f64,
+    /// Newton steps taken.
+    pub iterations: usize,
+}
+
+impl OperatingPoint {
+    /// Anode current, amperes.
+    pub fn anode_amps(&self) -> f64 {
+        *self.tube_currents.last().unwrap_or(&0.0)
+    }
+    /// Gain = anode current / cathode current.
+    pub fn gain(&self) -> f64 {
+        self.anode_amps() / self.cathode_amps
+    }
+    /// Voltages of the tube gaps K–D1 … Dn–P, volts.
+    pub fn tube_gap_volts(&self) -> Vec<f64> {
+        let mut prev = 0.0;
+        self.potentials
+            .iter()
+            .map(|v| {
+                let u = v - prev;
+                prev = *v;
+                u
+            })
+            .collect()
+    }
+    /// Current the supply delivers, amperes (bottom of the divider plus the cathode current).
+    pub fn supply_amps(&self) -> f64 {
+        self.element_amps[0] + self.tube_currents[0]
+    }
+    /// Conventional current the tube injects into each dynode node, amperes (`n`).
+    pub fn dynode_injections(&self) -> Vec<f64> {
+        let t = &self.tube_currents;
+        (0..t.len() - 1).map(|j| t[j + 1] - t[j]).collect()
+    }
+    /// Typed anode current.
+    pub fn anode_current(&self) -> ElectricCurrent {
+        ElectricCurrent::new::<ampere>(self.anode_amps())
+    }
+    /// Typed element voltages.
+    pub fn element_voltages(&self) -> Vec<ElectricPotential> {
+        self.element_volts
+            .iter()
+            .map(|v| ElectricPotential::new::<volt>(*v))
+            .collect()
+    }
+}
+
+/// Reusable scratch space so that repeated solves do not allocate.
+#[derive(Debug, Clone, Default)]
+pub struct Workspace {
+    jac: Vec<f64>,
+    res: Vec<f64>,
+    dx: Vec<f64>,
+    x: Vec<f64>,
+    trial: Vec<f64>,
+    scale: Vec<f64>,
+}
+
+impl Network {
+    /// Build from a checked design and a calibrated tube.
+    pub fn from_design(design: &Design, tube: TubeModel) -> Network {
+        let parts = design
+            .elements
+            .iter()
+            .map(|e| match e {
+                Element::Resistor(r) => Part::Resistor(1.0 / r.get::<ohm>()),
+                Element::Zener(v, r) => Part::Zener(v.get::<volt>(), r.get::<ohm>()),
+            })
+            .collect();
+        Network {
+            tube,
+            parts,
+            supply: design.supply_magnitude(),
+            anode_resistance: design.anode_dc_resistance().get::<ohm>(),
+        }
+    }
+
+    /// Number of dynodes.
+    pub fn stages(&self) -> usize {
+        self.parts.len() - 1
+    }
+
+    /// Divider current with no tube current, amperes, and the element voltages then.
+    pub fn quiescent(&self) -> (f64, Vec<f64>) {
+        let (vz, r) = self.parts.iter().fold((0.0, 0.0), |(vz, r), p| match p {
+            Part::Resistor(g) => (vz, r + 1.0 / g),
+            Part::Zener(v, rz) => (vz + v, r + rz),
+        });
+        let i = (self.supply - vz) / r;
+        let volts = self
+            .parts
+            .iter()
+            .map(|p| match p {
+                Part::Resistor(g) => i / g,
+                Part::Zener(v, rz) => v + i * rz,
+            })
+            .collect();
+        (i, volts)
+    }
+
+    /// Small-signal gain (the limit of vanishing tube current).
+    pub fn small_signal_gain(&self) -> f64 {
+        let (_, v) = self.quiescent();
+        self.tube.gain_for_gaps(&v)
+    }
+
+    /// d ln G / d ln Vs of the small-signal gain, by central difference (±0.1 %).
+    pub fn gain_sensitivity(&self) -> f64 {
+        let h = 1e-3;
+        let mut up = self.clone();
+        up.supply *= 1.0 + h;
+        let mut dn = self.clone();
+        dn.supply *= 1.0 - h;
+        (up.small_signal_gain().ln() - dn.small_signal_gain().ln())
+            / ((1.0 + h).ln() - (1.0 - h).ln())
+    }
+
+    fn initial_guess(&self, ik: f64, x: &mut Vec<f64>) {
+        let n = self.stages();
+        let (_, w) = self.quiescent();
+        x.clear();
+        x.resize(2 * (n + 1), 0.0);
+        let mut v = 0.0;
+        for j in 0..n {
+            v += w[j];
+            x[2 * j] = v;
+        }
+        // Anode near the return rail.
+        x[2 * n] = self.supply;
+        self.forward_currents(ik, x);
+        x[2 * n] = self.supply - x[2 * n + 1] * self.anode_resistance;
+        self.forward_currents(ik, x);
+    }
+
+    /// Fill the tube currents from the potentials by forward substitution (explicit chain).
+    fn forward_currents(&self, ik: f64, x: &mut [f64]) {
+        let n = self.stages();
+        let mut prev_v = 0.0;
+        let mut offered = ik;
+        for j in 0..=n {
+            let u = x[2 * j] - prev_v;
+            let (t, _, _) = self.tube.transmit(offered, u);
+            x[2 * j + 1] = t;
+            let (d, _) = self.tube.delta(u);
+            offered = d * t * if j == 0 { self.tube.collection } else { 1.0 };
+            prev_v = x[2 * j];
+        }
+    }
+
+    /// Residual and (optionally) the banded Jacobian, stored densely row-major `m × m`.
+    fn evaluate(&self, ik: f64, x: &[f64], res: &mut [f64], jac: Option<&mut [f64]>) {
+        let n = self.stages();
+        let m = 2 * (n + 1);
+        let v = |j: usize| if j == 0 { 0.0 } else { x[2 * (j - 1)] }; // electrode j potential
+        let vi = |j: usize| 2 * (j - 1); // index of v_j (j >= 1)
+        let ti = |j: usize| 2 * (j - 1) + 1; // index of t_j
+        let mut jac = jac;
+        if let Some(jm) = jac.as_deref_mut() {
+            jm[..m * m].iter_mut().for_each(|a| *a = 0.0);
+        }
+        let set = |jm: &mut Option<&mut [f64]>, r: usize, c: usize, val: f64| {
+            if let Some(jm) = jm.as_deref_mut() {
+                jm[r * m + c] += val;
+            }
+        };
+        // Current equations C_j, rows ti(j).
+        for j in 1..=n + 1 {
+            let row = ti(j);
+            let u = v(j) - v(j - 1);
+            let (offered, de_dt, de_du_prev) = if j == 1 {
+                (ik, 0.0, 0.0)
+            } else {
+                let up = v(j - 1) - v(j - 2);
+                let eta = if j == 2 { self.tube.collection } else { 1.0 };
+                let (d, dd) = self.tube.delta(up);
+                let tp = x[ti(j - 1)];
+                (eta * d * tp, eta * d, eta * dd * tp)
+            };
+            let (f, fc, fu) = self.tube.transmit(offered, u);
+            res[row] = x[row] - f;
+            set(&mut jac, row, row, 1.0);
+            // through u_j = v_j - v_{j-1}
+            set(&mut jac, row, vi(j), -fu);
+            if j >= 2 {
+                set(&mut jac, row, vi(j - 1), fu);
+                set(&mut jac, row, ti(j - 1), -fc * de_dt);
+                // through u_{j-1} = v_{j-1} - v_{j-2}
+                set(&mut jac, row, vi(j - 1), -fc * de_du_prev);
+                if j >= 3 {
+                    set(&mut jac, row, vi(j - 2), fc * de_du_prev);
+                }
+            }
+        }
+        // Node equations N_j at dynodes, rows vi(j).
+        for j in 1..=n {
+            let row = vi(j);
+            let w_below = v(j) - v(j - 1);
+            let (i_below, g_below) = self.parts[j - 1].current(w_below);
+            let w_above = if j < n { v(j + 1) - v(j) } else { self.supply - v(j) };
+            let (i_above, g_above) = self.parts[j].current(w_above);
+            res[row] = i_above - i_below + x[ti(j + 1)] - x[ti(j)];
+            set(&mut jac, row, vi(j), -g_above - g_below);
+            if j >= 2 {
+                set(&mut jac, row, vi(j - 1), g_below);
+            }
+            if j < n {
+                set(&mut jac, row, vi(j + 1), g_above);
+            }
+            set(&mut jac, row, ti(j + 1), 1.0);
+            set(&mut jac, row, ti(j), -1.0);
+        }
+        // Anode equation, row vi(n+1).
+        let row = vi(n + 1);
+        res[row] = (self.supply - x[row]) / self.anode_resistance - x[ti(n + 1)];
+        set(&mut jac, row, row, -1.0 / self.anode_resistance);
+        set(&mut jac, row, ti(n + 1), -1.0);
+    }
+
+    fn scaled_norm(res: &[f64], scale: &[f64]) -> f64 {
+        res.iter()
+            .zip(scale)
+            .map(|(r, s)| (r * s).abs())
+            .fold(0.0, f64::max)
+    }
+
+    fn row_scales(&self, ik: f64, x: &[f64], scale: &mut Vec<f64>) {
+        let n = self.stages();
+        let (i0, _) = self.quiescent();
+        scale.clear();
+        scale.resize(2 * (n + 1), 0.0);
+        for j in 0..=n {
+            scale[2 * j] = 1.0 / i0.max(1e-300);
+            // Current rows relative to the current they carry (never below the cathode current).
+            scale[2 * j + 1] = 1.0 / x[2 * j + 1].abs().max(ik.abs()).max(1e-300);
+        }
+    }
+
+    /// Solve at a given cathode (photo)current, starting from `start` when given.
+    pub fn solve_cathode(
+        &self,
+        cathode: ElectricCurrent,
+        start: Option<&OperatingPoint>,
+        ws: &mut Workspace,
+    ) -> Result<OperatingPoint, SolveError> {
+        self.solve_raw(cathode.get::<ampere>(), start, ws)
+    }
+
+    /// As [`Network::solve_cathode`] with plain amperes (hot loops).
+    ///
+    /// Newton's method from `start` (or from the no-current divider). Should it fail — past a
+    /// turning point of the curve, where the branch it follows ends — the solve falls back on
+    /// pseudo-transient continuation: node capacitances `c` are added and the network is stepped
+    /// in implicit Euler pseudo-time, `F(v) - c (v - v_old) = 0`, with `c` shrinking
+    /// geometrically, so the state slides to the stable steady state as a real base would.
+    pub fn solve_raw(
+        &self,
+        ik: f64,
+        start: Option<&OperatingPoint>,
+        ws: &mut Workspace,
+    ) -> Result<OperatingPoint, SolveError> {
+        let n = self.stages();
+        let mut x = std::mem::take(&mut ws.x);
+        let warm = |x: &mut Vec<f64>| match start {
+            Some(op) if op.potentials.len() == n + 1 => {
+                x.clear();
+                for j in 0..=n {
+                    x.push(op.potentials[j]);
+                    x.push(op.tube_currents[j]);
+                }
+                self.forward_currents(ik, x);
+            }
+            _ => self.initial_guess(ik, x),
+        };
+        warm(&mut x);
+        let mut result = self.newton(ik, &mut x, None, ws);
+        if result.is_err() {
+            warm(&mut x);
+            let (i0, _) = self.quiescent();
+            let g0 = i0 / self.supply; // a typical node conductance
+            let mut old = x.clone();
+            let mut c = 1e3 * g0;
+            let mut ok = true;
+            while c > 1e-9 * g0 {
+                if self.newton(ik, &mut x, Some((c, &old)), ws).is_err() {
+                    ok = false;
+                    break;
+                }
+                old.copy_from_slice(&x);
+                c *= 0.3;
+            }
+            if ok {
+                result = self.newton(ik, &mut x, None, ws);
+            }
+        }
+        let out = match result {
+            Ok(iterations) if x.iter().all(|v| v.is_finite()) => Ok(self.operating_point(ik, &x, iterations)),
+            Ok(iterations) => Err(SolveError::NoConvergence {
+                iterations,
+                residual: f64::NAN,
+                cathode_amps: ik,
+            }),
+            Err(e) => Err(e),
+        };
+        ws.x = x;
+        out
+    }
+
+    fn operating_point(&self, ik: f64, x: &[f64], iterations: usize) -> OperatingPoint {
+        let n = self.stages();
+        let potentials: Vec<f64> = (0..=n).map(|j| x[2 * j]).collect();
+        let tube_currents: Vec<f64> = (0..=n).map(|j| x[2 * j + 1]).collect();
+        let mut element_volts = Vec::with_capacity(n + 1);
+        let mut element_amps = Vec::with_capacity(n + 1);
+        let mut prev = 0.0;
+        for j in 0..=n {
+            let top = if j < n { potentials[j] } else { self.supply };
+            let w = top - prev;
+            element_volts.push(w);
+            element_amps.push(self.parts[j].current(w).0);
+            prev = top;
+        }
+        OperatingPoint {
+            potentials,
+            tube_currents,
+            element_volts,
+            element_amps,
+            cathode_amps: ik,
+            iterations,
+        }
+    }
+
+    /// Newton iterations in place on `x`; `pseudo = (c, v_old)` adds the pseudo-transient term.
+    fn newton(
+        &self,
+        ik: f64,
+        x: &mut [f64],
+        pseudo: Option<(f64, &[f64])>,
+        ws: &mut Workspace,
+    ) -> Result<usize, SolveError> {
+        let n = self.stages();
+        let m = 2 * (n + 1);
+        ws.jac.resize(m * m, 0.0);
+        ws.res.resize(m, 0.0);
+        ws.dx.resize(m, 0.0);
+        ws.trial.resize(m, 0.0);
+        let mut scale = std::mem::take(&mut ws.scale);
+        let max_iter = 60;
+        let mut norm = f64::INFINITY;
+        let mut result = Err(max_iter);
+        let add_pseudo = |x: &[f64], res: &mut [f64], jac: Option<&mut [f64]>| {
+            if let Some((c, old)) = pseudo {
+                for j in 0..=n {
+                    let i = 2 * j;
+                    res[i] -= c * (x[i] - old[i]);
+                }
+                if let Some(jm) = jac {
+                    for j in 0..=n {
+                        let i = 2 * j;
+                        jm[i * m + i] -= c;
+                    }
+                }
+            }
+        };
+        for iter in 0..max_iter {
+            self.row_scales(ik, x, &mut scale);
+            self.evaluate(ik, x, &mut ws.res, Some(&mut ws.jac));
+            add_pseudo(x, &mut ws.res, Some(&mut ws.jac));
+            norm = Self::scaled_norm(&ws.res, &scale);
+            ws.dx.copy_from_slice(&ws.res);
+            if !band_solve(&mut ws.jac, &mut ws.dx, m) {
+                ws.scale = scale;
+                return Err(SolveError::Singular);
+            }
+            // Newton step x - J^-1 F, with backtracking on the scaled residual.
+            let mut lambda = 1.0;
+            let mut accepted = false;
+            let mut trial_norm = norm;
+            for _ in 0..30 {
+                for i in 0..m {
+                    ws.trial[i] = x[i] - lambda * ws.dx[i];
+                }
+                self.evaluate(ik, &ws.trial, &mut ws.res, None);
+                add_pseudo(&ws.trial, &mut ws.res, None);
+                trial_norm = Self::scaled_norm(&ws.res, &scale);
+                if trial_norm.is_finite() && (trial_norm < norm || trial_norm < 1e-13) {
+                    accepted = true;
+                    break;
+                }
+                lambda *= 0.5;
+            }
+            if !accepted {
+                // No descent: converged only if the residual is already negligible.
+                if norm < 1e-8 {
+                    result = Ok(iter);
+                }
+                break;
+            }
+            x.copy_from_slice(&ws.trial);
+            let step = (0..=n)
+                .map(|j| (lambda * ws.dx[2 * j]).abs() / self.supply)
+                .fold(0.0, f64::max);
+            norm = trial_norm;
+            if trial_norm < 1e-10 && step < 1e-10 {
+                result = Ok(iter + 1);
+                break;
+            }
+        }
+        ws.scale = scale;
+        result.map_err(|iterations| SolveError::NoConvergence {
+            iterations,
+            residual: norm,
+            cathode_amps: ik,
+        })
+    }
+
+    /// Solve for the cathode current that gives average anode current `anode` (amperes).
+    pub fn solve_anode_raw(
+        &self,
+        anode: f64,
+        ws: &mut Workspace,
+    ) -> Result<OperatingPoint, SolveError> {
+        let g0 = self.small_signal_gain();
+        let mut ik = anode / g0;
+        let mut op = self.solve_raw(ik, None, ws)?;
+        // Secant iteration on ln(t) against ln(ik).
+        let mut prev: Option<(f64, f64)> = None;
+        let mut best = op.anode_amps();
+        for _ in 0..80 {
+            let got = op.anode_amps();
+            best = best.max(got);
+            let err = (got / anode).ln();
+            if err.abs() < 1e-12 {
+                return Ok(op);
+            }
+            let (lx, ly) = (ik.ln(), got.ln());
+            let slope = match prev {
+                Some((px, py)) if (lx - px).abs() > 1e-300 => (ly - py) / (lx - px),
+                _ => 1.0,
+            };
+            if slope < 1e-3 {
+                return Err(SolveError::Unreachable {
+                    wanted: anode,
+                    reached: best,
+                });
+            }
+            let stepln = (-(err) / slope).clamp(-2.0, 2.0);
+            prev = Some((lx, ly));
+            ik = (lx + stepln).exp();
+            op = self.solve_raw(ik, Some(&op), ws)?;
+        }
+        Err(SolveError::Unreachable {
+            wanted: anode,
+            reached: best,
+        })
+    }
+
+    /// Typed form of [`Network::solve_anode_raw`].
+    pub fn solve_anode(
+        &self,
+        anode: ElectricCurrent,
+        ws: &mut Workspace,
+    ) -> Result<OperatingPoint, SolveError> {
+        self.solve_anode_raw(anode.get::<ampere>(), ws)
+    }
+}
+
+/// Solve `A x = b` in place for a band matrix (`KL` below, `KU` above the diagonal) stored
+/// densely row-major; partial pivoting inside the band. Returns false when singular.
+fn band_solve(a: &mut [f64], b: &mut [f64], m: usize) -> bool {
+    let width = KL + KU; // fill-in reaches KL + KU above the diagonal after pivoting
+    for k in 0..m {
+        let last_row = (k + KL).min(m - 1);
+        let last_col = (k + width).min(m - 1);
+        // Pivot.
+        let mut p = k;
+        let mut best = a[k * m + k].abs();
+        for r in k + 1..=last_row {
+            let val = a[r * m + k].abs();
+            if val > best {
+                best = val;
+                p = r;
+            }
+        }
+        if best == 0.0 || !best.is_finite() {
+            return false;
+        }
+        if p != k {
+            for c in k..=last_col {
+                a.swap(k * m + c, p * m + c);
+            }
+            b.swap(k, p);
+        }
+        let piv = a[k * m + k];
+        for r in k + 1..=last_row {
+            let f = a[r * m + k] / piv;
+            if f != 0.0 {
+                a[r * m + k] = 0.0;
+                for c in k + 1..=last_col {
+                    a[r * m + c] -= f * a[k * m + c];
+                }
+                b[r] -= f * b[k];
+            }
+        }
+    }
+    for k in (0..m).rev() {
+        let last_col = (k + width).min(m - 1);
+        let mut s = b[k];
+        for c in k + 1..=last_col {
+            s -= a[k * m + c] * b[c];
+        }
+        b[k] = s / a[k * m + k];
+    }
+    true
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn band_solver_matches_a_dense_example() {
+        // 6x6 matrix inside the band with a pivot needed in the first column.
+        let m = 6;
+        let mut a = vec![0.0; m * m];
+        let vals = [
+            (0, 0, 1e-6),
+            (0, 1, 2.0),
+            (1, 0, 3.0),
+            (1, 1, 1.0),
+            (1, 2, 1.0),
+            (2, 1, 1.0),
+            (2, 2, 4.0),
+            (2, 3, 1.0),
+            (3, 2, 1.0),
+            (3, 3, 5.0),
+            (3, 4, 2.0),
+            (4, 3, 1.0),
+            (4, 4, 6.0),
+            (4, 5, 1.0),
+            (5, 4, 2.0),
+            (5, 5, 7.0),
+        ];
+        for (r, c, v) in vals {
+            a[r * m + c] = v;
+        }
+        let x_true = [1.0, -2.0, 3.0, 0.5, -1.5, 2.5];
+        let mut b: Vec<f64> = (0..m)
+            .map(|r| (0..m).map(|c| a[r * m + c] * x_true[c]).sum())
+            .collect();
+        let mut lu = a.clone();
+        assert!(band_solve(&mut lu, &mut b, m));
+        for (x, t) in b.iter().zip(x_true) {
+            assert!((x - t).abs() < 1e-9, "{x} vs {t}");
+        }
+    }
+}
+
+#[cfg(test)]
+mod jacobian_tests {
+    use super::*;
+    use crate::design::parse_str;
+
+    pub(crate) fn demo_network() -> Network {
+        let text = std::fs::read_to_string(concat!(
+            env!("CARGO_MANIFEST_DIR"),
+            "/designs/photon-counter-positive.ron"
+        ))
+        .unwrap();
+        let d = parse_str(&text, "demo").unwrap();
+        let t = TubeModel::from_spec(&d.tube).unwrap();
+        Network::from_design(&d, t)
+    }
+
+    #[test]
+    fn jacobian_matches_finite_differences() {
+        let net = demo_network();
+        let mut ws = Workspace::default();
+        let ik = 2.0e-11;
+        let op = net.solve_raw(ik * 0.9, None, &mut ws).unwrap();
+        let n = net.stages();
+        let m = 2 * (n + 1);
+        let mut x = Vec::new();
+        for j in 0..=n {
+            x.push(op.potentials[j]);
+            x.push(op.tube_currents[j]);
+        }
+        let mut jac = vec![0.0; m * m];
+        let mut r0 = vec![0.0; m];
+        net.evaluate(ik, &x, &mut r0, Some(&mut jac));
+        for c in 0..m {
+            let h = if c % 2 == 0 { 1e-4 } else { x[c].abs() * 1e-6 + 1e-18 };
+            let mut xp = x.clone();
+            xp[c] += h;
+            let mut xm = x.clone();
+            xm[c] -= h;
+            let mut rp = vec![0.0; m];
+            let mut rm = vec![0.0; m];
+            net.evaluate(ik, &xp, &mut rp, None);
+            net.evaluate(ik, &xm, &mut rm, None);
+            for r in 0..m {
+                let num = (rp[r] - rm[r]) / (2.0 * h);
+                let ana = jac[r * m + c];
+                let tol = 1e-5 * (num.abs() + ana.abs()) + 1e-14;
+                assert!((num - ana).abs() <= tol, "J[{r}][{c}] analytic {ana:e} numeric {num:e}");
+            }
+        }
+    }
+}

@@ -1,0 +1,79 @@
+//! Writing results: atomically, never over an input, never over an existing file unless told.
+//!
+//! A file is written to a temporary sibling and renamed into place, so an interrupted run leaves
+//! either the old file or the new one, never half of one.
+
+use std::io::Write;
+use std::path::{Path, PathBuf};
+
+/// Why an output could not be written.
+#[derive(Debug, thiserror::Error)]
+pub enum OutputError {
+    /// The output path names an input file.
+    #[error("{0}: refusing to write over an input file; choose another output path")]
+    IsInput(String),
+    /// The output exists and `--force` was not given.
+    #[error("{0}: the file exists; pass --force to replace it")]
+    Exists(String),
+    /// The operating system refused.
+    #[error("{path}: cannot write: {reason}")]
+    Io {
+        /// Output path.
+        path: String,
+        /// Reason.
+        reason: String,
+    },
+}
+
+fn same_file(a: &Path, b: &Path) -> bool {
+    match (std::fs::canonicalize(a), std::fs::canonicalize(b)) {
+        (Ok(x), Ok(y)) => x == y,
+        _ => false,
+    }
+}
+
+/// Check that `path` may be written: not one of `inputs`, and absent unless `force`.
+pub fn check_target(path: &Path, inputs: &[&Path], force: bool) -> Result<(), OutputError> {
+    let shown = path.display().to_string();
+    if inputs.iter().any(|i| same_file(i, path)) {
+        return Err(OutputError::IsInput(shown));
+    }
+    if path.exists() && !force {
+        return Err(OutputError::Exists(shown));
+    }
+    Ok(())
+}
+
+/// Write `bytes` to `path` atomically (temporary file in the same directory, then rename).
+pub fn write_atomic(
+    path: &Path,
+    bytes: &[u8],
+    inputs: &[&Path],
+    force: bool,
+) -> Result<(), OutputError> {
+    check_target(path, inputs, force)?;
+    let io = |e: std::io::Error| OutputError::Io {
+        path: path.display().to_string(),
+        reason: e.to_string(),
+    };
+    let dir = match path.parent() {
+        Some(p) if !p.as_os_str().is_empty() => p.to_path_buf(),
+        _ => PathBuf::from("."),
+    };
+    let name = path
+        .file_name()
+        .map(|n| n.to_string_lossy().to_string())
+        .unwrap_or_else(|| "output".to_string());
+    let tmp = dir.join(format!(".{name}.{}.tmp", std::process::id()));
+    let result = (|| {
+        let mut f = std::fs::File::create(&tmp)?;
+        f.write_all(bytes)?;
+        f.sync_all()?;
+        std::fs::rename(&tmp, path)
+    })();
+    if let Err(e) = result {
+        let _ = std::fs::remove_file(&tmp);
+        return Err(io(e));
+    }
+    Ok(())
+}

@@ -1,0 +1,110 @@
+//! The JSON report: the same content as the text report, SI base units, a `schema_version`.
+//!
+//! Format: one JSON object. Wire format: numbers are SI base units (volts, amperes, watts,
+//! ohms, farads, coulombs, joules, seconds); fractions are plain numbers (0.01 = 1 %); a figure
+//! that does not exist (a limit not reached) is `null`. The keys are documented in
+//! DEVELOPERS.md ("JSON schema"); a test checks every documented key on every demo design.
+
+use serde_json::{Value, json};
+
+use crate::analysis::Analysis;
+use crate::design::Polarity;
+use crate::safety::{self, CAUTIONS, CLOSING_CAUTION};
+use uom::si::electric_potential::volt;
+
+/// Version of the JSON layout; bumped when a key changes meaning or disappears.
+pub const SCHEMA_VERSION: u32 = 1;
+
+/// Build the JSON value of a report.
+pub fn to_value(a: &Analysis) -> Value {
+    let d = &a.design;
+    let t = &a.network.tube;
+    let l = &a.linearity;
+    let s = &a.safety;
+    let mut cautions: Vec<String> = CAUTIONS.iter().map(|c| c.to_string()).collect();
+    cautions.extend(s.specific.iter().cloned());
+    json!({
+        "schema_version": SCHEMA_VERSION,
+        "name": d.name,
+        "design_file": d.source,
+        "cautions": cautions,
+        "closing_caution": CLOSING_CAUTION,
+        "polarity": match d.polarity {
+            Polarity::CathodeNegative => "cathode_negative",
+            Polarity::AnodePositive => "anode_positive",
+        },
+        "supply_volts": d.supply_volts.get::<volt>(),
+        "stages": t.stages,
+        "tube_model": {
+            "a": t.a,
+            "k": t.k,
+            "collection": t.collection,
+            "perveance_amps_per_volt_1_5": t.perveance,
+            "fit_rms_ln_gain": t.fit_rms,
+        },
+        "divider_current_amps": a.quiescent_amps,
+        "supply_current_amps": a.op.supply_amps(),
+        "dissipation_watts": a.dissipation(),
+        "anode_current_amps": a.op.anode_amps(),
+        "cathode_current_amps": a.op.cathode_amps,
+        "gaps": a.gaps.iter().map(|g| json!({
+            "number": g.number,
+            "label": g.label,
+            "element": g.element,
+            "volts": g.volts,
+            "quiescent_volts": g.quiescent_volts,
+            "share": g.share,
+            "amps": g.amps,
+            "watts": g.watts,
+            "power_rating_watts": g.power_rating,
+            "rated_volts": g.rated_volts,
+            "delta": g.delta,
+            "over_power": g.over_power,
+            "over_voltage": g.over_voltage,
+            "over_gap_limit": g.over_gap_limit,
+        })).collect::<Vec<_>>(),
+        "electrode_volts_from_cathode": a.op.potentials,
+        "gain": a.gain(),
+        "small_signal_gain": a.small_signal_gain,
+        "gain_sensitivity_dlnG_dlnV": a.sensitivity,
+        "excess_noise_factor": t.excess_noise_factor(&a.op.tube_gap_volts()),
+        "linearity": {
+            "plus_1pct_amps": l.plus_1pct,
+            "minus_1pct_amps": l.minus_1pct,
+            "plus_5pct_amps": l.plus_5pct,
+            "minus_5pct_amps": l.minus_5pct,
+            "peak_over_deviation": l.peak_over.map(|p| p.deviation),
+            "peak_over_amps": l.peak_over.map(|p| p.anode_amps),
+            "stopped": l.stopped,
+            "curve": l.points.iter().map(|p| json!({
+                "anode_amps": p.anode_amps,
+                "deviation": p.deviation,
+            })).collect::<Vec<_>>(),
+        },
+        "safety": {
+            "capacitors": s.capacitors.iter().map(|c| json!({
+                "label": c.label,
+                "farads": c.farads,
+                "volts": c.volts,
+                "rating_volts": c.rating_volts,
+                "coulombs": c.coulombs,
+                "joules": c.joules,
+            })).collect::<Vec<_>>(),
+            "total_coulombs": s.total_coulombs,
+            "total_joules": s.total_joules,
+            "bleed_seconds": s.bleed_seconds,
+            "bleed_case": s.bleed_case,
+            "bleed_threshold_volts": safety::SAFE_VOLTS,
+            "shield_touch_amps": s.shield_touch_amps,
+        },
+        "warnings": a.warnings,
+        "assumptions": a.assumptions,
+    })
+}
+
+/// Render the JSON report as pretty text with a trailing newline.
+pub fn render(a: &Analysis) -> String {
+    let mut s = serde_json::to_string_pretty(&to_value(a)).unwrap_or_else(|_| "{}".to_string());
+    s.push('\n');
+    s
+}

@@ -1,0 +1,417 @@
+//! High-voltage safety figures shown on every report (physics brief §9; SAFETY.md).
+//!
+//! - Stored energy `E = C V^2 / 2` and charge `Q = C V` of every capacitor the design names.
+//! - Bleed-down after switch-off: the base is integrated in time (backward Euler, steps growing
+//!   with elapsed time) as a linear RC network with the supply switched off in two cases — still
+//!   connected with its output capacitance, and unplugged (cathode lead open) — and the time until
+//!   every capacitor and every electrode is below [`SAFE_VOLTS`] is the worse of the two. For one
+//!   capacitor on one resistor this is `t = R C ln(V0 / V_safe)`.
+//! - Touch current through the cathode-shield resistor `I = V / R`.
+//!
+//! The thresholds are quoted from standards *from memory*; they are not legal advice, and local
+//! codes and licensed practice rule.
+
+use crate::design::{CapStyle, Design, Element, Polarity};
+use crate::network::{OperatingPoint, ZENER_LEAK_SIEMENS};
+use uom::si::capacitance::farad;
+use uom::si::electric_potential::volt;
+use uom::si::electrical_resistance::ohm;
+
+/// Residual voltage considered safe after switch-off: 60 V within 5 s (IEC 60204-1 §6.2.4, from memory).
+pub const SAFE_VOLTS: f64 = 60.0;
+/// Time allowed to reach [`SAFE_VOLTS`] (IEC 60204-1 §6.2.4, from memory).
+pub const SAFE_SECONDS: f64 = 5.0;
+/// Hazardous-live DC threshold (IEC 61010-1:2010 §6.3.1, from memory).
+pub const HAZARDOUS_DC_VOLTS: f64 = 70.0;
+/// Stored charge a person may touch, 450 V to 15 kV (IEC 61010-1 §6.3.1, from memory).
+pub const CHARGE_LIMIT_COULOMBS: f64 = 45e-6;
+/// Stored energy limit above 15 kV (IEC 61010-1 §6.3.1, from memory).
+pub const ENERGY_LIMIT_JOULES: f64 = 0.350;
+/// DC touch-current limit in normal condition (IEC 61010-1 §6.3.1, from memory).
+pub const TOUCH_CURRENT_DC_AMPS: f64 = 2e-3;
+/// Longest bleed-down simulated, seconds.
+pub const BLEED_HORIZON_SECONDS: f64 = 3600.0;
+
+/// The cautions printed first on every report.
+pub const CAUTIONS: &[&str] = &[
+    "HIGH VOLTAGE. The supply and the divider carry voltages that can kill. Work on a base only with the supply switched off, its output discharged and measured, and one hand away from the circuit.",
+    "Capacitors in the base and in the supply hold their charge after switch-off. Wait the bleed-down time given below, then short each capacitor with an insulated, resistive discharge tool before touching.",
+    "Never defeat or raise the supply's current limit, and never bypass an interlock. Use connectors and cable rated for the full supply voltage.",
+    "Never expose an energised tube to room light: it saturates the tube and can damage the cathode.",
+    "These figures are a design aid, not a safety assessment. Thresholds are quoted from IEC standards from memory; local electrical codes and licensed practice take precedence. See SAFETY.md.",
+];
+
+/// The short caution printed last on every report.
+pub const CLOSING_CAUTION: &str = "HIGH VOLTAGE: switch off, wait the bleed-down time, discharge and measure before touching the base. Local codes and licensed practice rule (SAFETY.md).";
+
+/// A capacitor that stores energy, as the report shows it.
+#[derive(Debug, Clone, PartialEq)]
+pub struct StoredCharge {
+    /// What it is and where.
+    pub label: String,
+    /// Capacitance, farads.
+    pub farads: f64,
+    /// Voltage it holds in operation, volts.
+    pub volts: f64,
+    /// Its rating, if given.
+    pub rating_volts: Option<f64>,
+    /// Charge, coulombs.
+    pub coulombs: f64,
+    /// Energy, joules.
+    pub joules: f64,
+}
+
+/// The safety figures of a design at an operating point.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Safety {
+    /// Supply magnitude, volts.
+    pub supply_volts: f64,
+    /// Every named capacitor.
+    pub capacitors: Vec<StoredCharge>,
+    /// Total charge, coulombs.
+    pub total_coulombs: f64,
+    /// Total energy, joules.
+    pub total_joules: f64,
+    /// Bleed-down time to [`SAFE_VOLTS`], seconds, worst case; `None` if not reached within the
+    /// horizon.
+    pub bleed_seconds: Option<f64>,
+    /// Which switch-off case gave the worst time.
+    pub bleed_case: String,
+    /// Touch current through the shield resistor, amperes.
+    pub shield_touch_amps: Option<f64>,
+    /// Cautions particular to this design.
+    pub specific: Vec<String>,
+}
+
+/// Compute the safety figures.
+pub fn assess(design: &Design, op: &OperatingPoint) -> Safety {
+    let vs = design.supply_magnitude();
+    let n = design.tube.stages;
+    let mut caps = Vec::new();
+    for d in &design.decoupling {
+        let (label, volts) = match d.style {
+            CapStyle::Across(g) => (
+                format!("decoupling across gap {g} ({})", design.gap_label(g - 1)),
+                op.element_volts[g - 1],
+            ),
+            CapStyle::ToReturn(k) => (
+                format!(
+                    "decoupling D{k} to {}",
+                    match design.polarity {
+                        Polarity::CathodeNegative => "ground",
+                        Polarity::AnodePositive => "+HV",
+                    }
+                ),
+                vs - op.potentials[k - 1],
+            ),
+        };
+        caps.push(stored(
+            label,
+            d.value.get::<farad>(),
+            volts,
+            d.rating.map(|r| r.get::<volt>()),
+        ));
+    }
+    if let Some((c, rating)) = design.coupling {
+        // The coupling capacitor holds the anode's DC potential against the load's ground.
+        let anode_abs = match design.polarity {
+            Polarity::CathodeNegative => op.potentials[n] - vs,
+            Polarity::AnodePositive => op.potentials[n],
+        };
+        caps.push(stored(
+            "coupling, anode to load".to_string(),
+            c.get::<farad>(),
+            anode_abs.abs(),
+            rating.map(|r| r.get::<volt>()),
+        ));
+    }
+    if let Some(c) = design.supply_capacitance {
+        caps.push(stored(
+            "supply output".to_string(),
+            c.get::<farad>(),
+            vs,
+            None,
+        ));
+    }
+    let total_coulombs = caps.iter().map(|c| c.coulombs).sum();
+    let total_joules = caps.iter().map(|c| c.joules).sum();
+
+    let connected = bleed_time(design, op, true);
+    let unplugged = bleed_time(design, op, false);
+    let (bleed_seconds, bleed_case) = match (connected, unplugged) {
+        (Some(a), Some(b)) if a >= b => (Some(a), "supply off, still connected"),
+        (Some(_), Some(b)) => (Some(b), "base unplugged from the supply"),
+        (None, _) => (None, "supply off, still connected"),
+        (_, None) => (None, "base unplugged from the supply"),
+    };
+    let shield_touch_amps = design.shield_resistor.map(|r| vs / r.get::<ohm>());
+
+    let mut specific = Vec::new();
+    if vs > HAZARDOUS_DC_VOLTS {
+        specific.push(format!(
+            "The supply ({:.0} V) is above the {HAZARDOUS_DC_VOLTS:.0} V DC hazardous-live threshold (IEC 61010-1 §6.3.1, from memory).",
+            vs
+        ));
+    }
+    if design.polarity == Polarity::AnodePositive {
+        specific.push(
+            "Anode-positive supply: the anode, the anode resistor and the tube's signal pin sit at +HV; the coupling capacitor alone separates the instrument from it. A failed coupling capacitor puts the full supply on the instrument input.".to_string(),
+        );
+    } else {
+        specific.push(format!(
+            "Cathode-negative supply: the photocathode, and any conductive surface near the glass at the cathode end, is at -{vs:.0} V. Keep the tube face insulated from grounded housings."
+        ));
+    }
+    if design.current_limit.is_none() {
+        specific.push("The design gives no supply current limit: use a supply whose output current is limited, and never defeat that limit.".to_string());
+    }
+    for c in &caps {
+        if c.coulombs > CHARGE_LIMIT_COULOMBS {
+            specific.push(format!(
+                "The {} holds {:.1} µC, above the {:.0} µC touchable-charge limit (IEC 61010-1 §6.3.1, from memory): treat it as a shock hazard after switch-off.",
+                c.label,
+                c.coulombs * 1e6,
+                CHARGE_LIMIT_COULOMBS * 1e6
+            ));
+        }
+        if c.joules > ENERGY_LIMIT_JOULES {
+            specific.push(format!(
+                "The {} stores {:.0} mJ, above {:.0} mJ (IEC 61010-1 §6.3.1, from memory).",
+                c.label,
+                c.joules * 1e3,
+                ENERGY_LIMIT_JOULES * 1e3
+            ));
+        }
+    }
+    if let Some(i) = shield_touch_amps {
+        if i > TOUCH_CURRENT_DC_AMPS {
+            specific.push(format!(
+                "The shield resistor lets {:.2} mA flow into a person touching the shield, above the {:.0} mA DC touch-current limit (IEC 61010-1 §6.3.1, from memory): use a larger resistor.",
+                i * 1e3,
+                TOUCH_CURRENT_DC_AMPS * 1e3
+            ));
+        }
+    }
+    Safety {
+        supply_volts: vs,
+        capacitors: caps,
+        total_coulombs,
+        total_joules,
+        bleed_seconds,
+        bleed_case: bleed_case.to_string(),
+        shield_touch_amps,
+        specific,
+    }
+}
+
+fn stored(label: String, farads: f64, volts: f64, rating_volts: Option<f64>) -> StoredCharge {
+    StoredCharge {
+        label,
+        farads,
+        volts,
+        rating_volts,
+        coulombs: farads * volts,
+        joules: 0.5 * farads * volts * volts,
+    }
+}
+
+/// Time for the switched-off base to fall below [`SAFE_VOLTS`] everywhere.
+///
+/// Nodes: 0 = K, 1..=n = dynodes, n+1 = return rail, n+2 = anode. Potentials relative to K.
+/// The divider elements are resistors (Zeners conduct only above their knee); every gap carries
+/// its stray capacitance; decoupling capacitors as the design places them; the anode returns
+/// through its DC resistance; `connected` adds the supply's output capacitance between K and the
+/// return rail. One node is held at zero as the reference: the return rail for a cathode-negative
+/// supply (it is ground), the cathode for an anode-positive one.
+pub fn bleed_time(design: &Design, op: &OperatingPoint, connected: bool) -> Option<f64> {
+    let n = design.tube.stages;
+    let vs = design.supply_magnitude();
+    let nodes = n + 3;
+    let rail = n + 1;
+    let anode = n + 2;
+    let ground = match design.polarity {
+        Polarity::CathodeNegative => rail,
+        Polarity::AnodePositive => 0,
+    };
+    // Initial potentials relative to K.
+    let mut v = vec![0.0; nodes];
+    for j in 1..=n {
+        v[j] = op.potentials[j - 1];
+    }
+    v[rail] = vs;
+    v[anode] = op.potentials[n];
+    // Capacitor list (a, b, C).
+    let stray = design.stray.get::<farad>();
+    let mut caps: Vec<(usize, usize, f64)> = Vec::new();
+    for j in 0..n {
+        caps.push((j, j + 1, stray));
+    }
+    caps.push((n, anode, stray));
+    for d in &design.decoupling {
+        let c = d.value.get::<farad>();
+        match d.style {
+            CapStyle::Across(g) => {
+                let top = if g == n + 1 { rail } else { g };
+                caps.push((g - 1, top, c));
+            }
+            CapStyle::ToReturn(k) => caps.push((k, rail, c)),
+        }
+    }
+    if let Some((c, _)) = design.coupling {
+        // The load's resistance in series is small beside the anode resistor: ignored.
+        caps.push((anode, ground, c.get::<farad>()));
+    }
+    if connected {
+        if let Some(c) = design.supply_capacitance {
+            caps.push((0, rail, c.get::<farad>()));
+        }
+    }
+    // Resistive elements (a, b, element) for the divider, plus the anode resistance.
+    let ra = design.anode_dc_resistance().get::<ohm>();
+    let elements: Vec<(usize, usize, Element)> = (0..=n)
+        .map(|j| {
+            let top = if j == n { rail } else { j + 1 };
+            (j, top, design.elements[j])
+        })
+        .collect();
+    // Unknown nodes: all but the ground node.
+    let idx: Vec<Option<usize>> = (0..nodes)
+        .map(|i| {
+            if i == ground {
+                None
+            } else {
+                Some(if i < ground { i } else { i - 1 })
+            }
+        })
+        .collect();
+    let m = nodes - 1;
+    let rel = |v: &[f64], i: usize| v[i] - v[ground];
+    let hazard = |v: &[f64]| -> f64 {
+        let mut worst: f64 = 0.0;
+        for i in 0..nodes {
+            worst = worst.max(rel(v, i).abs());
+        }
+        for &(a, b, _) in &caps {
+            worst = worst.max((v[a] - v[b]).abs());
+        }
+        worst
+    };
+    if hazard(&v) < SAFE_VOLTS {
+        return Some(0.0);
+    }
+    // Shift so that ground is zero.
+    let g0 = v[ground];
+    for x in v.iter_mut() {
+        *x -= g0;
+    }
+    let mut t = 0.0;
+    let mut dt = 1e-12_f64;
+    let mut a = vec![0.0; m * m];
+    let mut b = vec![0.0; m];
+    let mut prev_hazard = hazard(&v);
+    while t < BLEED_HORIZON_SECONDS {
+        a.iter_mut().for_each(|x| *x = 0.0);
+        b.iter_mut().for_each(|x| *x = 0.0);
+        let stamp = |p: usize, q: usize, g: f64, a: &mut [f64]| {
+            if let Some(i) = idx[p] {
+                a[i * m + i] += g;
+                if let Some(j) = idx[q] {
+                    a[i * m + j] -= g;
+                }
+            }
+            if let Some(j) = idx[q] {
+                a[j * m + j] += g;
+                if let Some(i) = idx[p] {
+                    a[j * m + i] -= g;
+                }
+            }
+        };
+        // Capacitors: backward Euler companion (conductance C/dt, source C/dt * v_old).
+        for &(p, q, c) in &caps {
+            let g = c / dt;
+            stamp(p, q, g, &mut a);
+            let i_hist = g * (v[p] - v[q]);
+            if let Some(i) = idx[p] {
+                b[i] += i_hist;
+            }
+            if let Some(j) = idx[q] {
+                b[j] -= i_hist;
+            }
+        }
+        // Divider elements linearised at the previous voltages (Zeners: above or below knee).
+        for &(p, q, e) in &elements {
+            let w = v[q] - v[p];
+            match e {
+                Element::Resistor(r) => stamp(p, q, 1.0 / r.get::<ohm>(), &mut a),
+                Element::Zener(vz, rz) => {
+                    let vz = vz.get::<volt>();
+                    if w > vz {
+                        let g = 1.0 / rz.get::<ohm>();
+                        stamp(p, q, g, &mut a);
+                        // Source vz*g from q to p (current flows q -> p through the element).
+                        if let Some(i) = idx[p] {
+                            b[i] -= vz * g;
+                        }
+                        if let Some(j) = idx[q] {
+                            b[j] += vz * g;
+                        }
+                    } else {
+                        stamp(p, q, ZENER_LEAK_SIEMENS, &mut a);
+                    }
+                }
+            }
+        }
+        stamp(anode, rail, 1.0 / ra, &mut a);
+        if !dense_solve(&mut a, &mut b, m) {
+            return None;
+        }
+        for i in 0..nodes {
+            v[i] = idx[i].map_or(0.0, |k| b[k]);
+        }
+        t += dt;
+        let h = hazard(&v);
+        if h < SAFE_VOLTS {
+            // Interpolate in log of the hazard voltage within the last step.
+            let f = ((prev_hazard / SAFE_VOLTS).ln() / (prev_hazard / h).ln()).clamp(0.0, 1.0);
+            return Some(t - dt + f * dt);
+        }
+        prev_hazard = h;
+        dt = (t * 0.003).max(1e-12);
+    }
+    None
+}
+
+/// Dense Gaussian elimination with partial pivoting; false when singular.
+pub fn dense_solve(a: &mut [f64], b: &mut [f64], m: usize) -> bool {
+    for k in 0..m {
+        let p = (k..m)
+            .max_by(|&i, &j| a[i * m + k].abs().total_cmp(&a[j * m + k].abs()))
+            .unwrap_or(k);
+        if a[p * m + k] == 0.0 {
+            return false;
+        }
+        if p != k {
+            for c in 0..m {
+                a.swap(k * m + c, p * m + c);
+            }
+            b.swap(k, p);
+        }
+        for r in k + 1..m {
+            let f = a[r * m + k] / a[k * m + k];
+            if f != 0.0 {
+                for c in k..m {
+                    a[r * m + c] -= f * a[k * m + c];
+                }
+                b[r] -= f * b[k];
+            }
+        }
+    }
+    for k in (0..m).rev() {
+        let mut s = b[k];
+        for c in k + 1..m {
+            s -= a[k * m + c] * b[c];
+        }
+        b[k] = s / a[k * m + k];
+    }
+    true
+}

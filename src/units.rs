@@ -1,0 +1,380 @@
+//! Engineering notation for quantities typed by people, and the uom types the model speaks.
+//!
+//! A design file is written the way a practitioner writes on a schematic: `"1.25 kV"`,
+//! `"-1100 V"`, `"4.7 nF"`, `"1M"`, `"470k"`, `"4k7"`, `"50 ohm"`, `"2 %"`, or a plain SI number.
+//! This module turns such text into a number in SI base units for one expected kind of quantity,
+//! and refuses text whose unit belongs to another kind ("4.7 uV" where a capacitance belongs).
+//! Only this edge knows about text; everything inward receives uom quantities or checked f64.
+//!
+//! Prefixes follow the SI brochure (BIPM, 9th edition): f p n u/µ m k M G T. `K` is accepted for
+//! kilo as resistor markings commonly use it (common practice); `R` as an ohm sign and the
+//! "4k7" style (the prefix standing for the decimal point, IEC 60062) are accepted for resistance.
+
+use std::fmt;
+
+pub use uom::si::f64::{
+    Capacitance, ElectricCharge, ElectricCurrent, ElectricPotential, ElectricalResistance, Energy,
+    Frequency, Length, Power, Time,
+};
+
+/// The kind of quantity a field expects; it fixes which unit symbols are accepted.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Kind {
+    /// Volts.
+    Voltage,
+    /// Ohms.
+    Resistance,
+    /// Farads.
+    Capacitance,
+    /// Amperes.
+    Current,
+    /// Watts.
+    Power,
+    /// Seconds.
+    Time,
+    /// Hertz.
+    Frequency,
+    /// Coulombs.
+    Charge,
+    /// Joules.
+    Energy,
+    /// Metres (wavelengths are usually written in nm).
+    Length,
+    /// A pure number; `%` divides by 100 and `ppm` by 1e6.
+    Ratio,
+}
+
+impl Kind {
+    /// Human name used in error messages.
+    pub fn name(self) -> &'static str {
+        match self {
+            Kind::Voltage => "a voltage",
+            Kind::Resistance => "a resistance",
+            Kind::Capacitance => "a capacitance",
+            Kind::Current => "a current",
+            Kind::Power => "a power",
+            Kind::Time => "a time",
+            Kind::Frequency => "a frequency",
+            Kind::Charge => "a charge",
+            Kind::Energy => "an energy",
+            Kind::Length => "a length",
+            Kind::Ratio => "a plain number or percentage",
+        }
+    }
+
+    /// The canonical unit symbol, for messages.
+    pub fn symbol(self) -> &'static str {
+        match self {
+            Kind::Voltage => "V",
+            Kind::Resistance => "ohm",
+            Kind::Capacitance => "F",
+            Kind::Current => "A",
+            Kind::Power => "W",
+            Kind::Time => "s",
+            Kind::Frequency => "Hz",
+            Kind::Charge => "C",
+            Kind::Energy => "J",
+            Kind::Length => "m",
+            Kind::Ratio => "%",
+        }
+    }
+
+    /// Example text for messages.
+    pub fn example(self) -> &'static str {
+        match self {
+            Kind::Voltage => "\"-1100 V\" or \"1.25 kV\"",
+            Kind::Resistance => "\"470k\", \"1M\", \"4k7\" or \"50 ohm\"",
+            Kind::Capacitance => "\"4.7 nF\" or \"10n\"",
+            Kind::Current => "\"100 uA\"",
+            Kind::Power => "\"0.25 W\"",
+            Kind::Time => "\"5 ns\"",
+            Kind::Frequency => "\"1 MHz\"",
+            Kind::Charge => "\"1.6 pC\"",
+            Kind::Energy => "\"10 nJ\"",
+            Kind::Length => "\"405 nm\"",
+            Kind::Ratio => "0.9 or \"90 %\"",
+        }
+    }
+}
+
+/// Why a piece of text is not a quantity of the expected kind.
+#[derive(Debug, Clone, PartialEq)]
+pub struct QuantityError {
+    /// What was expected, e.g. "a capacitance".
+    pub expected: Kind,
+    /// What went wrong, in words.
+    pub reason: String,
+}
+
+impl fmt::Display for QuantityError {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        write!(
+            f,
+            "expected {} such as {}: {}",
+            self.expected.name(),
+            self.expected.example(),
+            self.reason
+        )
+    }
+}
+
+fn unit_kind(symbol: &str) -> Option<Kind> {
+    Some(match symbol {
+        "V" | "v" => Kind::Voltage,
+        "ohm" | "ohms" | "Ohm" | "Ω" | "R" | "Ohms" => Kind::Resistance,
+        "F" => Kind::Capacitance,
+        "A" => Kind::Current,
+        "W" => Kind::Power,
+        "s" => Kind::Time,
+        "Hz" => Kind::Frequency,
+        "C" => Kind::Charge,
+        "J" => Kind::Energy,
+        "m" => Kind::Length,
+        _ => return None,
+    })
+}
+
+fn prefix_factor(c: char) -> Option<f64> {
+    Some(match c {
+        'f' => 1e-15,
+        'p' => 1e-12,
+        'n' => 1e-9,
+        'u' | 'µ' | 'μ' => 1e-6,
+        'm' => 1e-3,
+        'k' | 'K' => 1e3,
+        'M' => 1e6,
+        'G' => 1e9,
+        'T' => 1e12,
+        _ => return None,
+    })
+}
+
+/// Split the leading number (sign, digits, point, exponent) from the rest.
+fn split_number(text: &str) -> (&str, &str) {
+    let bytes = text.as_bytes();
+    let mut i = 0;
+    if i < bytes.len() && (bytes[i] == b'+' || bytes[i] == b'-') {
+        i += 1;
+    }
+    while i < bytes.len() && (bytes[i].is_ascii_digit() || bytes[i] == b'.') {
+        i += 1;
+    }
+    // An exponent only when followed by digits, so "1e" stays a number then a unit.
+    if i < bytes.len() && (bytes[i] == b'e' || bytes[i] == b'E') {
+        let mut j = i + 1;
+        if j < bytes.len() && (bytes[j] == b'+' || bytes[j] == b'-') {
+            j += 1;
+        }
+        if j < bytes.len() && bytes[j].is_ascii_digit() {
+            while j < bytes.len() && bytes[j].is_ascii_digit() {
+                j += 1;
+            }
+            i = j;
+        }
+    }
+    (&text[..i], &text[i..])
+}
+
+/// Parse `text` as a quantity of `kind`, returning its value in SI base units.
+///
+/// Accepted shapes: `number`, `number unit`, `number prefix`, `number prefix unit`, with or
+/// without a space, and for resistances the marking style `4k7` / `4R7`.
+pub fn parse(text: &str, kind: Kind) -> Result<f64, QuantityError> {
+    let err = |reason: String| QuantityError {
+        expected: kind,
+        reason,
+    };
+    let t = text.trim();
+    if t.is_empty() {
+        return Err(err("the text is empty".into()));
+    }
+    let lower = t.to_ascii_lowercase();
+    if lower.contains("nan") || lower.contains("inf") {
+        return Err(err(format!("\"{t}\" is not a finite number")));
+    }
+    let (num, rest) = split_number(t);
+    if num.is_empty() || num == "+" || num == "-" || num == "." {
+        return Err(err(format!("\"{t}\" does not start with a number")));
+    }
+    let mut value: f64 = num
+        .parse()
+        .map_err(|_| err(format!("\"{num}\" is not a number")))?;
+    let mut rest = rest.trim_start();
+
+    // Marking style "4k7", "4R7", "2M2": a prefix (or R) between digit groups.
+    if kind == Kind::Resistance && !num.contains('.') && !num.contains(['e', 'E']) {
+        let mut chars = rest.chars();
+        if let Some(c) = chars.next() {
+            let tail = chars.as_str();
+            if !tail.is_empty() && tail.chars().all(|d| d.is_ascii_digit()) {
+                let factor = if c == 'R' { Some(1.0) } else { prefix_factor(c) };
+                if let Some(f) = factor {
+                    let frac: f64 = format!("0.{tail}").parse().unwrap_or(0.0);
+                    let v = (value.abs() + frac) * f * value.signum();
+                    return finite(v, t, kind);
+                }
+            }
+        }
+    }
+
+    if kind == Kind::Ratio {
+        return match rest {
+            "" => finite(value, t, kind),
+            "%" => finite(value / 100.0, t, kind),
+            "ppm" => finite(value * 1e-6, t, kind),
+            other => Err(err(format!(
+                "\"{other}\" is not understood here; write a plain number, a percentage or ppm"
+            ))),
+        };
+    }
+    if rest.is_empty() {
+        return finite(value, t, kind);
+    }
+    if rest == "%" {
+        return Err(err(format!("\"{t}\" is a percentage, not {}", kind.name())));
+    }
+
+    // Whole rest a unit symbol?
+    if let Some(k) = unit_kind(rest) {
+        // "m" alone for a non-length kind means milli with no unit (e.g. "10m" ohm).
+        if k == kind {
+            return finite(value, t, kind);
+        }
+        if rest.chars().count() == 1 {
+            if let Some(f) = prefix_factor(rest.chars().next().unwrap_or(' ')) {
+                return finite(value * f, t, kind);
+            }
+        }
+        return Err(err(format!(
+            "the unit \"{rest}\" is {}, not {}",
+            k.name(),
+            kind.name()
+        )));
+    }
+    // Prefix then (optional) unit.
+    let mut chars = rest.chars();
+    let first = chars.next().unwrap_or(' ');
+    let after = chars.as_str();
+    if let Some(f) = prefix_factor(first) {
+        value *= f;
+        rest = after.trim_start();
+        if rest.is_empty() {
+            return finite(value, t, kind);
+        }
+        return match unit_kind(rest) {
+            Some(k) if k == kind => finite(value, t, kind),
+            Some(k) => Err(err(format!(
+                "the unit \"{rest}\" is {}, not {}",
+                k.name(),
+                kind.name()
+            ))),
+            None => Err(err(format!("\"{rest}\" is not a known unit"))),
+        };
+    }
+    if first.is_alphabetic() {
+        return Err(err(format!(
+            "\"{first}\" is not an SI prefix (f p n u m k M G T) and \"{rest}\" is not a unit"
+        )));
+    }
+    Err(err(format!("cannot read \"{rest}\" after the number")))
+}
+
+fn finite(v: f64, text: &str, kind: Kind) -> Result<f64, QuantityError> {
+    if v.is_finite() {
+        Ok(v)
+    } else {
+        Err(QuantityError {
+            expected: kind,
+            reason: format!("\"{text}\" is too large to be a finite number"),
+        })
+    }
+}
+
+/// Format a value in SI base units with an engineering prefix and the unit symbol,
+/// three significant digits: `format_eng(4.7e-9, "F")` gives `"4.70 nF"`.
+pub fn format_eng(value: f64, unit: &str) -> String {
+    if !value.is_finite() {
+        return "n/a".to_string();
+    }
+    if value == 0.0 {
+        return format!("0 {unit}");
+    }
+    const PREFIXES: [(f64, &str); 9] = [
+        (1e12, "T"),
+        (1e9, "G"),
+        (1e6, "M"),
+        (1e3, "k"),
+        (1.0, ""),
+        (1e-3, "m"),
+        (1e-6, "µ"),
+        (1e-9, "n"),
+        (1e-12, "p"),
+    ];
+    let a = value.abs();
+    let (scale, p) = PREFIXES
+        .iter()
+        .copied()
+        .find(|(s, _)| a >= *s * 0.9995)
+        .unwrap_or((1e-15, "f"));
+    let x = value / scale;
+    let digits = if x.abs() >= 99.95 {
+        0
+    } else if x.abs() >= 9.995 {
+        1
+    } else {
+        2
+    };
+    format!("{x:.digits$} {p}{unit}")
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn close(a: f64, b: f64) -> bool {
+        (a - b).abs() <= 1e-12 * b.abs().max(1e-30)
+    }
+
+    #[test]
+    fn practitioner_spellings() {
+        assert!(close(parse("1.25 kV", Kind::Voltage).unwrap(), 1250.0));
+        assert!(close(parse("-1100 V", Kind::Voltage).unwrap(), -1100.0));
+        assert!(close(parse("4.7 nF", Kind::Capacitance).unwrap(), 4.7e-9));
+        assert!(close(parse("10n", Kind::Capacitance).unwrap(), 1e-8));
+        assert!(close(parse("1M", Kind::Resistance).unwrap(), 1e6));
+        assert!(close(parse("470k", Kind::Resistance).unwrap(), 4.7e5));
+        assert!(close(parse("4k7", Kind::Resistance).unwrap(), 4700.0));
+        assert!(close(parse("4R7", Kind::Resistance).unwrap(), 4.7));
+        assert!(close(parse("50 ohm", Kind::Resistance).unwrap(), 50.0));
+        assert!(close(parse("2.2 MΩ", Kind::Resistance).unwrap(), 2.2e6));
+        assert!(close(parse("100 uA", Kind::Current).unwrap(), 1e-4));
+        assert!(close(parse("100µA", Kind::Current).unwrap(), 1e-4));
+        assert!(close(parse("1e-3", Kind::Current).unwrap(), 1e-3));
+        assert!(close(parse("2 %", Kind::Ratio).unwrap(), 0.02));
+        assert!(close(parse("405 nm", Kind::Length).unwrap(), 4.05e-7));
+        assert!(close(parse("1 MHz", Kind::Frequency).unwrap(), 1e6));
+    }
+
+    #[test]
+    fn wrong_kind_is_named() {
+        let e = parse("4.7 uV", Kind::Capacitance).unwrap_err();
+        assert!(e.to_string().contains("a voltage, not a capacitance"), "{e}");
+        let e = parse("3 xF", Kind::Capacitance).unwrap_err();
+        assert!(e.to_string().contains("not an SI prefix"), "{e}");
+        assert!(parse("NaN V", Kind::Voltage).is_err());
+        assert!(parse("inf", Kind::Voltage).is_err());
+        assert!(parse("", Kind::Voltage).is_err());
+        assert!(parse("V", Kind::Voltage).is_err());
+        assert!(parse("1e999 V", Kind::Voltage).is_err());
+    }
+
+    #[test]
+    fn engineering_format() {
+        assert_eq!(format_eng(4.7e-9, "F"), "4.70 nF");
+        assert_eq!(format_eng(1100.0, "V"), "1.10 kV");
+        assert_eq!(format_eng(-1100.0, "V"), "-1.10 kV");
+        assert_eq!(format_eng(100.0, "V"), "100 V");
+        assert_eq!(format_eng(0.0, "A"), "0 A");
+        assert_eq!(format_eng(f64::NAN, "A"), "n/a");
+    }
+}
