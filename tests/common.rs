@@ -1,0 +1,48 @@
+//! Shared helpers for the integration tests.
+#![allow(dead_code)]
+
+use std::path::{Path, PathBuf};
+
+/// Path of a file in the crate.
+pub fn crate_path(rel: &str) -> PathBuf {
+    Path::new(env!("CARGO_MANIFEST_DIR")).join(rel)
+}
+
+/// The demo designs shipped in designs/.
+pub fn demo_designs() -> Vec<PathBuf> {
+    let mut v: Vec<PathBuf> = std::fs::read_dir(crate_path("designs"))
+        .expect("designs/ exists")
+        .filter_map(|e| e.ok().map(|e| e.path()))
+        .filter(|p| p.extension().is_some_and(|x| x == "ron"))
+        .collect();
+    v.sort();
+    v
+}
+
+/// A fresh temporary directory for one test.
+pub fn temp_dir(name: &str) -> PathBuf {
+    let d = std::env::temp_dir().join(format!("dynode-test-{}-{}", name, std::process::id()));
+    let _ = std::fs::remove_dir_all(&d);
+    std::fs::create_dir_all(&d).expect("temp dir");
+    d
+}
+
+/// Whether ngspice is on PATH. Under CI its absence is a failure, elsewhere a printed skip.
+pub fn ngspice_available(test: &str) -> bool {
+    let ok = std::process::Command::new("ngspice")
+        .arg("--version")
+        .output()
+        .is_ok_and(|o| o.status.success());
+    if !ok {
+        if std::env::var_os("CI").is_some() {
+            panic!("{test}: ngspice is required under CI (apt-get install -y ngspice)");
+        }
+        eprintln!("{test}: SKIPPED, ngspice not found (install it from the distribution's packages)");
+    }
+    ok
+}
+
+/// Relative difference.
+pub fn rel(a: f64, b: f64) -> f64 {
+    (a - b).abs() / b.abs().max(1e-300)
+}

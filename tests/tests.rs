@@ -1,0 +1,3 @@
+//! One integration-test binary; each module checks one concern against an outside source.
+
+mod common;
