@@ -697,15 +697,15 @@ fn check(raw: RawDesign, file: &str) -> Result<Design, DesignError> {
                     format!("expected a gain above 1, found {gain}"),
                 ));
             }
-            if let Some(k) = exponent {
-                if !(k.is_finite() && *k > 0.2 && *k < 1.5) {
-                    return Err(c.fail(
+            if let Some(k) = exponent
+                && !(k.is_finite() && *k > 0.2 && *k < 1.5)
+            {
+                return Err(c.fail(
                         "tube.gain.exponent",
                         format!(
                             "expected a secondary-emission exponent k between 0.2 and 1.5 (typically 0.7–0.8), found {k}"
                         ),
                     ));
-                }
             }
             GainSpec::Reference {
                 volts: ElectricPotential::new::<volt>(v),
@@ -730,9 +730,10 @@ fn check(raw: RawDesign, file: &str) -> Result<Design, DesignError> {
                 if !(g.is_finite() && *g > 1.0) {
                     return Err(c.fail(&field, format!("expected a gain above 1, found {g}")));
                 }
-                if let Some((pv, pg)) = out.last().map(|(pv, pg): &(ElectricPotential, f64)| {
-                    (pv.get::<volt>(), *pg)
-                }) {
+                if let Some((pv, pg)) = out
+                    .last()
+                    .map(|(pv, pg): &(ElectricPotential, f64)| (pv.get::<volt>(), *pg))
+                {
                     if v <= pv {
                         return Err(c.fail(
                             &field,
@@ -744,9 +745,7 @@ fn check(raw: RawDesign, file: &str) -> Result<Design, DesignError> {
                     if *g <= pg {
                         return Err(c.fail(
                             &field,
-                            format!(
-                                "expected the gain to rise with voltage, found {g} after {pg}"
-                            ),
+                            format!("expected the gain to rise with voltage, found {g} after {pg}"),
                         ));
                     }
                 }
@@ -895,7 +894,10 @@ fn check(raw: RawDesign, file: &str) -> Result<Design, DesignError> {
     if sv.abs() < 10.0 {
         return Err(c.fail(
             "supply.volts",
-            format!("expected a high voltage of at least 10 V in magnitude, found {}", s.volts),
+            format!(
+                "expected a high voltage of at least 10 V in magnitude, found {}",
+                s.volts
+            ),
         ));
     }
     let current_limit = match &s.current_limit {
@@ -1126,21 +1128,20 @@ fn check(raw: RawDesign, file: &str) -> Result<Design, DesignError> {
     };
 
     // Zero-current gap voltages against the gap rating.
-    if let Some(max_gap) = max_gap {
-        if let Some((i, v)) = linear_gap_voltages(&elements, sv.abs())
+    if let Some(max_gap) = max_gap
+        && let Some((i, v)) = linear_gap_voltages(&elements, sv.abs())
             .into_iter()
             .enumerate()
             .find(|(_, v)| *v > max_gap * 1.0000001)
-        {
-            return Err(c.fail(
-                format!("divider.gaps[{i}]"),
-                format!(
-                    "this gap would hold {} with no tube current, above tube.limits.max_gap = {}",
-                    units::format_eng(v, "V"),
-                    units::format_eng(max_gap, "V")
-                ),
-            ));
-        }
+    {
+        return Err(c.fail(
+            format!("divider.gaps[{i}]"),
+            format!(
+                "this gap would hold {} with no tube current, above tube.limits.max_gap = {}",
+                units::format_eng(v, "V"),
+                units::format_eng(max_gap, "V")
+            ),
+        ));
     }
 
     Ok(Design {

@@ -4,7 +4,7 @@
 //! 1e-4 of the quiescent divider current to three times it, on log-spaced points, each solve
 //! starting from the previous one (continuation). The deviation is `G(I)/G0 - 1`, with `G0` the
 //! small-signal gain. Crossings of +1 %, −1 %, +5 % and −5 % are bracketed on the grid and
-//! refined by bisection on ln(cathode current) with real solves.
+//! refined by modified regula falsi (Illinois) on ln(cathode current) with real solves.
 
 use crate::network::{Network, OperatingPoint, SolveError, Workspace};
 
@@ -124,28 +124,53 @@ pub fn trace_points(
         }
     }
     let find = |target: f64, ws: &mut Workspace| -> Option<f64> {
-        let above = |d: f64| if target > 0.0 { d >= target } else { d <= target };
+        let above = |d: f64| {
+            if target > 0.0 {
+                d >= target
+            } else {
+                d <= target
+            }
+        };
         let idx = points.iter().position(|p| above(p.deviation))?;
         if idx == 0 {
             return Some(points[0].anode_amps);
         }
+        // Illinois (modified regula falsi) on deviation − target against ln(cathode current).
         let (mut a, mut opa) = (ops[idx - 1].0.ln(), ops[idx - 1].1.clone());
         let mut b = ops[idx].0.ln();
+        let mut fa = points[idx - 1].deviation - target;
+        let mut fb = points[idx].deviation - target;
         let mut best = points[idx].anode_amps;
-        for _ in 0..40 {
-            let mid = 0.5 * (a + b);
+        let mut side = 0i8;
+        for _ in 0..60 {
+            let mid = if (fb - fa).abs() > 0.0 {
+                (a * fb - b * fa) / (fb - fa)
+            } else {
+                0.5 * (a + b)
+            };
+            let mid = mid.clamp(a.min(b), a.max(b));
             let Ok(op) = net.solve_raw(mid.exp(), Some(&opa), ws) else {
                 break;
             };
-            let d = op.gain() / g0 - 1.0;
-            if above(d) {
+            let f = op.gain() / g0 - 1.0 - target;
+            if above(f + target) {
                 b = mid;
+                fb = f;
                 best = op.anode_amps();
+                if side == 1 {
+                    fa *= 0.5;
+                }
+                side = 1;
             } else {
                 a = mid;
+                fa = f;
                 opa = op;
+                if side == -1 {
+                    fb *= 0.5;
+                }
+                side = -1;
             }
-            if b - a < 1e-9 {
+            if f.abs() < 1e-7 * target.abs() || (b - a).abs() < 1e-12 {
                 break;
             }
         }

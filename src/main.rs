@@ -53,7 +53,9 @@ struct OutputArgs {
 #[derive(Subcommand)]
 enum Command {
     /// Solve the divider with the tube's currents and print the full report.
-    #[command(after_help = "Example:\n  dynode report designs/rooftop-paddle.ron --format json -o paddle.json")]
+    #[command(
+        after_help = "Example:\n  dynode report designs/rooftop-paddle.ron --format json -o paddle.json"
+    )]
     Report {
         /// The design file (RON).
         design: PathBuf,
@@ -73,7 +75,9 @@ enum Command {
         design: PathBuf,
     },
     /// Write a SPICE netlist of the solved network (behavioural dynode sources).
-    #[command(after_help = "Example:\n  dynode netlist designs/rooftop-paddle.ron -o base.cir\n  ngspice -b base.cir")]
+    #[command(
+        after_help = "Example:\n  dynode netlist designs/rooftop-paddle.ron -o base.cir\n  ngspice -b base.cir"
+    )]
     Netlist {
         /// The design file (RON).
         design: PathBuf,
@@ -120,7 +124,11 @@ fn run() -> ExitCode {
         Ok(c) => c,
         Err(e) => {
             let _ = e.print();
-            return ExitCode::from(if e.use_stderr() { Exit::BadInput as u8 } else { 0 });
+            return ExitCode::from(if e.use_stderr() {
+                Exit::BadInput as u8
+            } else {
+                0
+            });
         }
     };
     match cli.command {
@@ -144,10 +152,10 @@ fn run() -> ExitCode {
                 Ok(d) => d,
                 Err(e) => return fail(e, Exit::BadInput),
             };
-            if let Some(p) = &out.output {
-                if let Err(e) = output::check_target(p, &[design.as_path()], out.force) {
-                    return fail(e, Exit::BadInput);
-                }
+            if let Some(p) = &out.output
+                && let Err(e) = output::check_target(p, &[design.as_path()], out.force)
+            {
+                return fail(e, Exit::BadInput);
             }
             let a = match analysis::analyse(&d) {
                 Ok(a) => a,
@@ -177,10 +185,10 @@ fn run() -> ExitCode {
                 Ok(d) => d,
                 Err(e) => return fail(e, Exit::BadInput),
             };
-            if let Some(p) = &out.output {
-                if let Err(e) = output::check_target(p, &[design.as_path()], out.force) {
-                    return fail(e, Exit::BadInput);
-                }
+            if let Some(p) = &out.output
+                && let Err(e) = output::check_target(p, &[design.as_path()], out.force)
+            {
+                return fail(e, Exit::BadInput);
             }
             let anode = match &anode_current {
                 None => d.anode_current,
@@ -188,7 +196,12 @@ fn run() -> ExitCode {
                     Ok(v) if v > 0.0 => {
                         dynode::units::ElectricCurrent::new::<uom::si::electric_current::ampere>(v)
                     }
-                    Ok(_) => return fail("--anode-current: expected a positive current", Exit::BadInput),
+                    Ok(_) => {
+                        return fail(
+                            "--anode-current: expected a positive current",
+                            Exit::BadInput,
+                        );
+                    }
                     Err(e) => return fail(format!("--anode-current: {e}"), Exit::BadInput),
                 },
             };

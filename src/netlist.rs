@@ -64,9 +64,19 @@ pub fn write(design: &Design, tube: &TubeModel, opts: &NetlistOptions) -> String
     let mut s = String::new();
     let _ = writeln!(s, "* dynode netlist: {}", design.name.replace('\n', " "));
     let _ = writeln!(s, "* from design file {}", design.source);
-    let _ = writeln!(s, "* HIGH VOLTAGE: this circuit describes a base that can kill. See SAFETY.md.");
-    let _ = writeln!(s, "* Nodes: k = photocathode, d1..d{n} = dynodes, p = anode, {rtn} = return rail.");
-    let _ = writeln!(s, "* t1..t{} carry the tube's gap currents as voltages (1 V stands for 1 A).", n + 1);
+    let _ = writeln!(
+        s,
+        "* HIGH VOLTAGE: this circuit describes a base that can kill. See SAFETY.md."
+    );
+    let _ = writeln!(
+        s,
+        "* Nodes: k = photocathode, d1..d{n} = dynodes, p = anode, {rtn} = return rail."
+    );
+    let _ = writeln!(
+        s,
+        "* t1..t{} carry the tube's gap currents as voltages (1 V stands for 1 A).",
+        n + 1
+    );
     let _ = writeln!(
         s,
         "* Tube law: delta = {} * sp(u)^{}, sp(u) = (u + sqrt(u^2 + {}^2))/2; collection {};",
@@ -90,10 +100,17 @@ pub fn write(design: &Design, tube: &TubeModel, opts: &NetlistOptions) -> String
             let _ = writeln!(s, "VHV hv 0 DC {}", num(vs));
         }
     }
-    let _ = writeln!(s, "* Divider: element j spans electrode j-1 to j; the last spans d{n} to the return rail.");
+    let _ = writeln!(
+        s,
+        "* Divider: element j spans electrode j-1 to j; the last spans d{n} to the return rail."
+    );
     for (j, e) in design.elements.iter().enumerate() {
         let bottom = node(design, j);
-        let top = if j == n { rtn.clone() } else { node(design, j + 1) };
+        let top = if j == n {
+            rtn.clone()
+        } else {
+            node(design, j + 1)
+        };
         match e {
             Element::Resistor(r) => {
                 let _ = writeln!(s, "R{} {} {} {}", j + 1, bottom, top, num(r.get::<ohm>()));
@@ -124,7 +141,11 @@ pub fn write(design: &Design, tube: &TubeModel, opts: &NetlistOptions) -> String
         match d.style {
             CapStyle::Across(g) => {
                 let a = node(design, g - 1);
-                let b = if g == n + 1 { rtn.clone() } else { node(design, g) };
+                let b = if g == n + 1 {
+                    rtn.clone()
+                } else {
+                    node(design, g)
+                };
                 let _ = writeln!(s, "CD{} {a} {b} {}", i + 1, num(c));
             }
             CapStyle::ToReturn(k) => {
@@ -139,11 +160,7 @@ pub fn write(design: &Design, tube: &TubeModel, opts: &NetlistOptions) -> String
         Some((cc, _)) => {
             let _ = writeln!(s, "RA p {rtn} {}", num(ra));
             let _ = writeln!(s, "CC p load {}", num(cc.get::<farad>()));
-            let _ = writeln!(
-                s,
-                "RL load 0 {}",
-                num(design.load_resistance.get::<ohm>())
-            );
+            let _ = writeln!(s, "RL load 0 {}", num(design.load_resistance.get::<ohm>()));
             let _ = writeln!(s, "CL load 0 {}", num(cl));
         }
         None => {
@@ -188,7 +205,12 @@ pub fn write(design: &Design, tube: &TubeModel, opts: &NetlistOptions) -> String
     let _ = writeln!(s, "* Tube: currents injected into the electrodes.");
     let _ = writeln!(s, "BIK 0 {} I = v(t1)", node(design, 0));
     for j in 1..=n {
-        let _ = writeln!(s, "BID{j} 0 {} I = v(t{}) - v(t{j})", node(design, j), j + 1);
+        let _ = writeln!(
+            s,
+            "BID{j} 0 {} I = v(t{}) - v(t{j})",
+            node(design, j),
+            j + 1
+        );
     }
     let _ = writeln!(s, "BIP p 0 I = v(t{})", n + 1);
     let _ = writeln!(s, ".options reltol=1e-10 vntol=1e-12 abstol=1e-18");

@@ -183,14 +183,14 @@ pub fn assess(design: &Design, op: &OperatingPoint) -> Safety {
             ));
         }
     }
-    if let Some(i) = shield_touch_amps {
-        if i > TOUCH_CURRENT_DC_AMPS {
-            specific.push(format!(
+    if let Some(i) = shield_touch_amps
+        && i > TOUCH_CURRENT_DC_AMPS
+    {
+        specific.push(format!(
                 "The shield resistor lets {:.2} mA flow into a person touching the shield, above the {:.0} mA DC touch-current limit (IEC 61010-1 §6.3.1, from memory): use a larger resistor.",
                 i * 1e3,
                 TOUCH_CURRENT_DC_AMPS * 1e3
             ));
-        }
     }
     Safety {
         supply_volts: vs,
@@ -235,9 +235,7 @@ pub fn bleed_time(design: &Design, op: &OperatingPoint, connected: bool) -> Opti
     };
     // Initial potentials relative to K.
     let mut v = vec![0.0; nodes];
-    for j in 1..=n {
-        v[j] = op.potentials[j - 1];
-    }
+    v[1..=n].copy_from_slice(&op.potentials[..n]);
     v[rail] = vs;
     v[anode] = op.potentials[n];
     // Capacitor list (a, b, C).
@@ -261,10 +259,8 @@ pub fn bleed_time(design: &Design, op: &OperatingPoint, connected: bool) -> Opti
         // The load's resistance in series is small beside the anode resistor: ignored.
         caps.push((anode, ground, c.get::<farad>()));
     }
-    if connected {
-        if let Some(c) = design.supply_capacitance {
-            caps.push((0, rail, c.get::<farad>()));
-        }
+    if connected && let Some(c) = design.supply_capacitance {
+        caps.push((0, rail, c.get::<farad>()));
     }
     // Resistive elements (a, b, element) for the divider, plus the anode resistance.
     let ra = design.anode_dc_resistance().get::<ohm>();

@@ -24,8 +24,8 @@ use uom::si::electric_potential::volt;
 /// Order of the smooth space-charge fold (sharper with larger values).
 pub const FOLD_ORDER: f64 = 4.0;
 /// Width of the smooth positive part used for gap voltages, volts. Keeps the law defined and
-/// differentiable if a starved gap reaches zero; its effect at 10 V is below 3e-6 V.
-pub const SMOOTH_VOLTS: f64 = 0.01;
+/// differentiable if a starved gap reaches zero; its effect at 10 V is below 3e-10 V.
+pub const SMOOTH_VOLTS: f64 = 1e-4;
 /// Voltage scale below which a gap stops collecting, volts: transmission `1 - exp(-u / V_c)`.
 /// A modelling choice of this tool (not from a source): electrons need some accelerating field
 /// to reach the next electrode. Its effect above 30 V is below 1e-6; it keeps a starved gap at a
@@ -39,7 +39,9 @@ pub const ASSUMED_PULSE_LINEARITY: (f64, f64, f64) = (0.02, 0.02, 100.0);
 #[derive(Debug, Clone, PartialEq, thiserror::Error)]
 pub enum TubeError {
     /// The gain table implies an exponent outside physical sense.
-    #[error("tube.gain.points: the table implies a secondary-emission exponent k = {k:.3}, outside 0.2–1.5; check the voltages and gains")]
+    #[error(
+        "tube.gain.points: the table implies a secondary-emission exponent k = {k:.3}, outside 0.2–1.5; check the voltages and gains"
+    )]
     ImplausibleFit {
         /// The fitted exponent.
         k: f64,
@@ -81,10 +83,19 @@ impl TubeModel {
         let n = spec.stages;
         let total: f64 = spec.reference_ratio.iter().sum();
         // Sum of ln(r_i / R) over the multiplying gaps.
-        let ln_ratio: f64 = spec.reference_ratio[..n]
+        // Sum of ln(r_i / R) over the multiplying gaps. The smooth positive part used by the
+        // law is folded in exactly so that the reference point is reproduced to rounding.
+        let fractions: Vec<f64> = spec.reference_ratio[..n]
             .iter()
-            .map(|r| (r / total).ln())
-            .sum();
+            .map(|r| r / total)
+            .collect();
+        let ln_ratio: f64 = fractions.iter().map(|f| f.ln()).sum();
+        let ln_smooth = |vs: f64| -> f64 {
+            fractions
+                .iter()
+                .map(|f| (smooth_positive(vs * f).0 / (vs * f)).ln())
+                .sum()
+        };
         let eta = spec.collection;
         let (a, k, exponent_assumed, fit_rms) = match &spec.gain {
             GainSpec::Reference {
@@ -94,14 +105,19 @@ impl TubeModel {
             } => {
                 let k = exponent.unwrap_or(TYPICAL_EXPONENT);
                 let vs = volts.get::<volt>();
-                let ln_a = (gain.ln() - eta.ln() - k * (n as f64 * vs.ln() + ln_ratio)) / n as f64;
+                let ln_a =
+                    (gain.ln() - eta.ln() - k * (n as f64 * vs.ln() + ln_ratio + ln_smooth(vs)))
+                        / n as f64;
                 (ln_a.exp(), k, exponent.is_none(), None)
             }
             GainSpec::Table(points) => {
                 // ln G = ln eta + n ln a + k X,  X = n ln Vs + sum ln(r_i / R).
                 let xs: Vec<f64> = points
                     .iter()
-                    .map(|(v, _)| n as f64 * v.get::<volt>().ln() + ln_ratio)
+                    .map(|(v, _)| {
+                        let vs = v.get::<volt>();
+                        n as f64 * vs.ln() + ln_ratio + ln_smooth(vs)
+                    })
                     .collect();
                 let ys: Vec<f64> = points.iter().map(|(_, g)| g.ln()).collect();
                 let m = xs.len() as f64;
@@ -187,7 +203,7 @@ impl TubeModel {
         }
         let u4 = u.powi(4);
         let s = 1.0 + u4;
-        let q = s.powf(-0.25);
+        let q = 1.0 / s.sqrt().sqrt();
         let q5 = q / s; // s^(-5/4)
         (c * q, q5, u4 * u * q5)
     }
@@ -195,7 +211,11 @@ impl TubeModel {
     /// Small-signal gain for the given gap voltages (first `stages` entries are the multiplying
     /// gaps, volts).
     pub fn gain_for_gaps(&self, gaps: &[f64]) -> f64 {
-        self.collection * gaps[..self.stages].iter().map(|v| self.delta(*v).0).product::<f64>()
+        self.collection
+            * gaps[..self.stages]
+                .iter()
+                .map(|v| self.delta(*v).0)
+                .product::<f64>()
     }
 
     /// Excess noise factor of the multiplier for the given gap voltages:

@@ -207,7 +207,11 @@ pub fn parse(text: &str, kind: Kind) -> Result<f64, QuantityError> {
         if let Some(c) = chars.next() {
             let tail = chars.as_str();
             if !tail.is_empty() && tail.chars().all(|d| d.is_ascii_digit()) {
-                let factor = if c == 'R' { Some(1.0) } else { prefix_factor(c) };
+                let factor = if c == 'R' {
+                    Some(1.0)
+                } else {
+                    prefix_factor(c)
+                };
                 if let Some(f) = factor {
                     let frac: f64 = format!("0.{tail}").parse().unwrap_or(0.0);
                     let v = (value.abs() + frac) * f * value.signum();
@@ -240,10 +244,10 @@ pub fn parse(text: &str, kind: Kind) -> Result<f64, QuantityError> {
         if k == kind {
             return finite(value, t, kind);
         }
-        if rest.chars().count() == 1 {
-            if let Some(f) = prefix_factor(rest.chars().next().unwrap_or(' ')) {
-                return finite(value * f, t, kind);
-            }
+        if rest.chars().count() == 1
+            && let Some(f) = prefix_factor(rest.chars().next().unwrap_or(' '))
+        {
+            return finite(value * f, t, kind);
         }
         return Err(err(format!(
             "the unit \"{rest}\" is {}, not {}",
@@ -358,7 +362,10 @@ mod tests {
     #[test]
     fn wrong_kind_is_named() {
         let e = parse("4.7 uV", Kind::Capacitance).unwrap_err();
-        assert!(e.to_string().contains("a voltage, not a capacitance"), "{e}");
+        assert!(
+            e.to_string().contains("a voltage, not a capacitance"),
+            "{e}"
+        );
         let e = parse("3 xF", Kind::Capacitance).unwrap_err();
         assert!(e.to_string().contains("not an SI prefix"), "{e}");
         assert!(parse("NaN V", Kind::Voltage).is_err());

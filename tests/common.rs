@@ -37,7 +37,9 @@ pub fn ngspice_available(test: &str) -> bool {
         if std::env::var_os("CI").is_some() {
             panic!("{test}: ngspice is required under CI (apt-get install -y ngspice)");
         }
-        eprintln!("{test}: SKIPPED, ngspice not found (install it from the distribution's packages)");
+        eprintln!(
+            "{test}: SKIPPED, ngspice not found (install it from the distribution's packages)"
+        );
     }
     ok
 }
@@ -45,4 +47,50 @@ pub fn ngspice_available(test: &str) -> bool {
 /// Relative difference.
 pub fn rel(a: f64, b: f64) -> f64 {
     (a - b).abs() / b.abs().max(1e-300)
+}
+
+/// Keys the JSON schema allows to be null (a limit not reached, a rating not given).
+pub const NULLABLE_KEYS: &[&str] = &[
+    "plus_1pct_amps",
+    "minus_1pct_amps",
+    "plus_5pct_amps",
+    "minus_5pct_amps",
+    "peak_over_deviation",
+    "peak_over_amps",
+    "stopped",
+    "fit_rms_ln_gain",
+    "power_rating_watts",
+    "rated_volts",
+    "delta",
+    "rating_volts",
+    "bleed_seconds",
+    "shield_touch_amps",
+];
+
+/// Walk a JSON value and fail on any number that is not finite (serde_json writes NaN as null,
+/// so also fail on nulls in places where a number was computed: those are listed by key).
+pub fn assert_all_numbers_finite(v: &serde_json::Value, path: &str) {
+    match v {
+        serde_json::Value::Number(n) => {
+            let x = n.as_f64().expect("number");
+            assert!(x.is_finite(), "{path} = {x}");
+        }
+        serde_json::Value::Array(a) => {
+            for (i, x) in a.iter().enumerate() {
+                assert_all_numbers_finite(x, &format!("{path}[{i}]"));
+            }
+        }
+        serde_json::Value::Object(o) => {
+            for (k, x) in o {
+                // serde_json writes a NaN as null: a null is allowed only where the schema says
+                // a figure may not exist.
+                assert!(
+                    !x.is_null() || NULLABLE_KEYS.contains(&k.as_str()),
+                    "{path}.{k} is null (a NaN or a missing figure)"
+                );
+                assert_all_numbers_finite(x, &format!("{path}.{k}"));
+            }
+        }
+        _ => {}
+    }
 }

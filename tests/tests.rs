@@ -1,3 +1,11 @@
 //! One integration-test binary; each module checks one concern against an outside source.
+// Node-indexed checks read several arrays by the same index.
+#![allow(clippy::needless_range_loop)]
 
 mod common;
+/// The core model against textbook laws and worked examples.
+mod core;
+/// The DC operating point against ngspice on the same netlist.
+mod ngspice_dc;
+/// Invariants over random valid designs.
+mod properties;

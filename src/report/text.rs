@@ -22,7 +22,11 @@ pub fn wrap(out: &mut String, prefix: &str, text: &str) {
     let mut first = true;
     for word in text.split_whitespace() {
         if !line.is_empty() && line.chars().count() + 1 + word.chars().count() > width {
-            let p = if first { prefix.to_string() } else { " ".repeat(prefix.chars().count()) };
+            let p = if first {
+                prefix.to_string()
+            } else {
+                " ".repeat(prefix.chars().count())
+            };
             let _ = writeln!(out, "{p}{line}");
             line.clear();
             first = false;
@@ -33,7 +37,11 @@ pub fn wrap(out: &mut String, prefix: &str, text: &str) {
         line.push_str(word);
     }
     if !line.is_empty() {
-        let p = if first { prefix.to_string() } else { " ".repeat(prefix.chars().count()) };
+        let p = if first {
+            prefix.to_string()
+        } else {
+            " ".repeat(prefix.chars().count())
+        };
         let _ = writeln!(out, "{p}{line}");
     }
 }
@@ -131,13 +139,11 @@ pub fn render(a: &Analysis) -> String {
         out,
         "  load        {} with {} at the anode{}",
         eng(
-            d.load_resistance.get::<uom::si::electrical_resistance::ohm>(),
+            d.load_resistance
+                .get::<uom::si::electrical_resistance::ohm>(),
             "Ω"
         ),
-        eng(
-            d.load_capacitance.get::<uom::si::capacitance::farad>(),
-            "F"
-        ),
+        eng(d.load_capacitance.get::<uom::si::capacitance::farad>(), "F"),
         match (d.anode_resistor, d.coupling) {
             (Some(r), Some((c, _))) => format!(
                 "; anode resistor {}, coupling {}",
@@ -166,7 +172,16 @@ pub fn render(a: &Analysis) -> String {
     let _ = writeln!(
         out,
         "  {:>2}  {:<8} {:<20} {:>9} {:>11} {:>7} {:>9} {:>19} {:>17} {:>6}",
-        "#", "gap", "element", "volts", "(no curr.)", "share", "current", "power / rating", "volts / rated", "delta"
+        "#",
+        "gap",
+        "element",
+        "volts",
+        "(no curr.)",
+        "share",
+        "current",
+        "power / rating",
+        "volts / rated",
+        "delta"
     );
     for g in &a.gaps {
         let power = match g.power_rating {
@@ -199,7 +214,8 @@ pub fn render(a: &Analysis) -> String {
             eng(g.amps, "A"),
             power,
             volts,
-            g.delta.map_or_else(|| "—".to_string(), |x| format!("{x:.2}")),
+            g.delta
+                .map_or_else(|| "—".to_string(), |x| format!("{x:.2}")),
             flags
         );
     }
@@ -257,9 +273,7 @@ pub fn render(a: &Analysis) -> String {
     let _ = writeln!(
         out,
         "  excess noise factor of the chain       {:.3}",
-        a.network
-            .tube
-            .excess_noise_factor(&a.op.tube_gap_volts())
+        a.network.tube.excess_noise_factor(&a.op.tube_gap_volts())
     );
     let _ = writeln!(out);
 
@@ -311,7 +325,8 @@ pub fn render(a: &Analysis) -> String {
             eng(c.volts, "V"),
             eng(c.coulombs, "C"),
             eng(c.joules, "J"),
-            c.rating_volts.map_or_else(|| "—".to_string(), |r| eng(r, "V"))
+            c.rating_volts
+                .map_or_else(|| "—".to_string(), |r| eng(r, "V"))
         );
     }
     if s.capacitors.is_empty() {

@@ -1,0 +1,206 @@
+//! The core model against textbook laws and worked examples.
+
+use dynode::design::{self, Design};
+use dynode::network::{Network, Workspace};
+use dynode::tube::TubeModel;
+
+use crate::common::{crate_path, rel};
+
+/// A design with `stages` dynodes, equal resistors and the given supply, as RON text.
+pub fn equal_design(stages: usize, supply: f64, r: &str, k: f64) -> String {
+    let gaps = vec![format!("R(\"{r}\")"); stages + 1].join(", ");
+    format!(
+        r#"(
+    name: "test chain",
+    tube: (
+        stages: {stages},
+        gain: Reference(volts: "{supply} V", gain: 1.0e6, exponent: Some({k})),
+        collection: Some(1.0),
+        limits: (max_supply: "5000 V", max_anode_current: "1 mA"),
+        pulse_linearity: Some((peak_current: "30 mA", last_gap: "100 V")),
+    ),
+    supply: (volts: "-{supply} V", polarity: CathodeNegative),
+    divider: (gaps: [{gaps}]),
+    load: (resistance: "50 ohm"),
+)"#
+    )
+}
+
+fn network(text: &str) -> (Design, Network) {
+    let d = design::parse_str(text, "test.ron").expect("valid design");
+    let t = TubeModel::from_spec(&d.tube).expect("calibrates");
+    let net = Network::from_design(&d, t);
+    (d, net)
+}
+
+#[test]
+fn ohm_and_kirchhoff_with_no_tube_current() {
+    // Ohm's and Kirchhoff's laws: with no tube current, gap voltages are V·R_i/ΣR exactly.
+    let text = std::fs::read_to_string(crate_path("designs/rooftop-paddle.ron")).unwrap();
+    let (d, net) = network(&text);
+    let mut ws = Workspace::default();
+    let op = net.solve_raw(0.0, None, &mut ws).expect("solves");
+    let rs: Vec<f64> = d
+        .elements
+        .iter()
+        .map(|e| match e {
+            design::Element::Resistor(r) => r.get::<uom::si::electrical_resistance::ohm>(),
+            design::Element::Zener(..) => unreachable!("all resistors"),
+        })
+        .collect();
+    let total: f64 = rs.iter().sum();
+    for (v, r) in op.element_volts.iter().zip(&rs) {
+        let expect = 1100.0 * r / total;
+        assert!(rel(*v, expect) < 1e-9, "{v} vs {expect}");
+    }
+}
+
+#[test]
+fn zener_gap_holds_its_voltage() {
+    // A Zener above its knee: V = Vz + I·r_z (piecewise-linear Zener, circuit theory).
+    let text = std::fs::read_to_string(crate_path("designs/liquid-cell-tapered.ron")).unwrap();
+    let (_, net) = network(&text);
+    let mut ws = Workspace::default();
+    let op = net.solve_raw(0.0, None, &mut ws).expect("solves");
+    let i = op.element_amps[0];
+    let expect = 300.0 + i * 50.0;
+    assert!(rel(op.element_volts[0], expect) < 1e-9);
+    // And it still holds at a real anode current (the point of a Zener in the first gap).
+    let op = net.solve_anode_raw(20e-6, &mut ws).expect("solves");
+    let expect = 300.0 + op.element_amps[0] * 50.0;
+    assert!(rel(op.element_volts[0], expect) < 1e-9);
+}
+
+#[test]
+fn tsoulfanidis_1100_volts_over_ten_stages() {
+    // Tsoulfanidis, Measurement and Detection of Radiation, ch. 6: 1100 V across a 10-dynode
+    // tube gives about 100 V per stage. With 11 equal gaps (K–D1 … D10–anode) it is exactly 100 V.
+    let (_, net) = network(&equal_design(10, 1100.0, "1M", 0.75));
+    let (_, volts) = net.quiescent();
+    assert_eq!(volts.len(), 11);
+    for v in volts {
+        assert!((v - 100.0).abs() < 1e-9, "{v}");
+    }
+    // Same source: delta = 4 over 10 dynodes gives M ≈ 1.05e6.
+    let mut t = net.tube.clone();
+    t.collection = 1.0;
+    t.k = 1.0;
+    t.a = 0.04; // delta = 0.04 · 100 V = 4
+    let m = t.gain_for_gaps(&[100.0; 11]);
+    assert!(
+        rel(m, 1.048576e6) < 1e-6 && (m / 1e6 - 1.05).abs() < 0.01,
+        "{m}"
+    );
+}
+
+#[test]
+fn ahmed_worked_example_per_stage_product() {
+    // Ahmed, Physics and Engineering of Radiation Detection (2007) §6.5: four dynodes at
+    // delta = 3 and six at delta = 4 give 3^4 · 4^6 = 331 776.
+    let (_, net) = network(&equal_design(10, 1000.0, "1M", 0.75));
+    let mut t = net.tube.clone();
+    t.collection = 1.0;
+    let v_for = |delta: f64| (delta / t.a).powf(1.0 / t.k);
+    let mut gaps: Vec<f64> = (0..4).map(|_| v_for(3.0)).collect();
+    gaps.extend((0..6).map(|_| v_for(4.0)));
+    gaps.push(100.0); // the collecting gap does not multiply
+    let g = t.gain_for_gaps(&gaps);
+    assert!(rel(g, 331_776.0) < 1e-9, "{g}");
+}
+
+#[test]
+fn ahmed_gain_sensitivity_alpha_n() {
+    // Ahmed §6.5: G ∝ V^(α n), dG/G = α n dV/V; for α n ≈ 7 a 2 % voltage change gives about
+    // 14 % gain change (first order). The model's own numerical derivative must give α n.
+    let (_, net) = network(&equal_design(10, 1000.0, "1M", 0.7));
+    let s = net.gain_sensitivity();
+    assert!((s - 7.0).abs() < 1e-6, "d ln G / d ln V = {s}");
+    let first_order = s * 0.02;
+    assert!((first_order - 0.14).abs() < 1e-6);
+    // The exact power law gives 1.02^7 - 1 = 14.87 %.
+    let mut up = net.clone();
+    up.supply *= 1.02;
+    let change = up.small_signal_gain() / net.small_signal_gain() - 1.0;
+    assert!(rel(change, 1.02f64.powi(7) - 1.0) < 1e-9, "{change}");
+}
+
+#[test]
+fn reference_point_is_reproduced_under_the_reference_ratio() {
+    // Calibration: under the reference ratio at the reference voltage, the model gives the
+    // reference gain (definition of the calibration; IUPAC G = eta · prod delta).
+    let (_, net) = network(&equal_design(12, 1500.0, "1M", 0.72));
+    assert!(rel(net.small_signal_gain(), 1.0e6) < 1e-12);
+}
+
+#[test]
+fn table_fit_recovers_a_power_law() {
+    // Least squares on ln G vs ln V recovers an exact power law G = C V^(k n) (k n = 7.5).
+    let pts: Vec<String> = [900.0f64, 1000.0, 1100.0, 1200.0]
+        .iter()
+        .map(|v| format!("(\"{v} V\", {:e})", 1.0e6 * (v / 1000.0).powf(7.5)))
+        .collect();
+    let text = equal_design(10, 1000.0, "1M", 0.75).replace(
+        "Reference(volts: \"1000 V\", gain: 1.0e6, exponent: Some(0.75))",
+        &format!("Table(points: [{}])", pts.join(", ")),
+    );
+    let (_, net) = network(&text);
+    assert!((net.tube.k - 0.75).abs() < 1e-9, "k = {}", net.tube.k);
+    assert!(rel(net.small_signal_gain(), 1.0e6) < 1e-9);
+    assert!(net.tube.fit_rms.unwrap() < 1e-9);
+}
+
+#[test]
+fn resistive_divider_is_over_linear_and_zener_flattens() {
+    // Physics brief §3: dynode currents take voltage from the last gaps and give it to the
+    // earlier ones, so a resistive divider's gain first rises; a Zener-held last gap does not
+    // lose its voltage, so the deviation at the same anode current is much smaller.
+    let resistive = equal_design(10, 1100.0, "1M", 0.75);
+    let zener = resistive.replacen(
+        "R(\"1M\")]",
+        "Zener(volts: \"100 V\", dynamic: \"20 ohm\")]",
+        1,
+    );
+    let mut ws = Workspace::default();
+    let (_, r_net) = network(&resistive);
+    let (_, z_net) = network(&zener);
+    let ia = 10e-6; // 10 % of the 100 µA divider current
+    let r_dev =
+        r_net.solve_anode_raw(ia, &mut ws).unwrap().gain() / r_net.small_signal_gain() - 1.0;
+    let z_dev =
+        z_net.solve_anode_raw(ia, &mut ws).unwrap().gain() / z_net.small_signal_gain() - 1.0;
+    assert!(r_dev > 0.01, "resistive over-linearity {r_dev}");
+    assert!(
+        z_dev.abs() < 0.5 * r_dev,
+        "zener {z_dev} vs resistive {r_dev}"
+    );
+}
+
+#[test]
+fn iec_thresholds_in_the_safety_figures() {
+    // IEC 61010-1:2010 §6.3.1 (from memory): 70 V DC hazardous live, 45 µC, 350 mJ, 2 mA DC;
+    // IEC 60204-1 §6.2.4 (from memory): 60 V within 5 s.
+    use dynode::safety::*;
+    assert_eq!(HAZARDOUS_DC_VOLTS, 70.0);
+    assert_eq!(CHARGE_LIMIT_COULOMBS, 45e-6);
+    assert_eq!(ENERGY_LIMIT_JOULES, 0.350);
+    assert_eq!(TOUCH_CURRENT_DC_AMPS, 2e-3);
+    assert_eq!((SAFE_VOLTS, SAFE_SECONDS), (60.0, 5.0));
+}
+
+#[test]
+fn bleed_down_of_one_capacitor_is_rc_ln_ratio() {
+    // First-order discharge: t = R C ln(V0 / V_safe). One 100 nF capacitor across the last gap
+    // of an unplugged base discharges through that gap's resistor alone (the cathode lead is
+    // open); the strays (1 fF here) are negligible.
+    let text = equal_design(10, 2200.0, "1M", 0.75)
+        .replace(
+            "divider: (gaps: [",
+            "divider: (stray: Some(\"1 fF\"), decoupling: [Across(gap: 11, value: \"100 nF\")], gaps: [",
+        );
+    let d = design::parse_str(&text, "t.ron").unwrap();
+    let a = dynode::analysis::analyse(&d).unwrap();
+    let t = dynode::safety::bleed_time(&d, &a.op, false).expect("bleeds");
+    let v0 = a.op.element_volts[10];
+    let expect = 1e6 * 100e-9 * (v0 / 60.0).ln();
+    assert!(rel(t, expect) < 0.01, "{t} vs {expect}");
+}
