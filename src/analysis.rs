@@ -26,6 +26,16 @@ pub enum AnalysisError {
         /// Cause.
         source: TubeError,
     },
+    /// The operating point the design asks for cannot exist (bad input): the field is named.
+    #[error("{file}: {field}: {source}")]
+    Operating {
+        /// Design file.
+        file: String,
+        /// The field that asks for it, e.g. `operating.anode_current`.
+        field: String,
+        /// Cause (always [`SolveError::Unreachable`]).
+        source: SolveError,
+    },
     /// A solve failed.
     #[error("{file}: {source}")]
     Solve {
@@ -131,7 +141,19 @@ pub fn analyse(design: &Design) -> Result<Analysis, AnalysisError> {
     let sensitivity = network.gain_sensitivity();
     let op = network
         .solve_anode(design.anode_current, &mut ws)
-        .map_err(solve_err)?;
+        .map_err(|source| match source {
+            SolveError::Unreachable { .. } => AnalysisError::Operating {
+                file: file.clone(),
+                field: if design.operating_assumed {
+                    "operating.anode_current (not given: 10 % of tube.limits.max_anode_current)"
+                        .to_string()
+                } else {
+                    "operating.anode_current".to_string()
+                },
+                source,
+            },
+            other => solve_err(other),
+        })?;
     let linearity = linearity::trace(&network, &mut ws).map_err(solve_err)?;
     let safety = safety::assess(design, &op);
 

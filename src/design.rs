@@ -443,6 +443,8 @@ pub struct Design {
     pub resistors_assumed: bool,
     /// Average anode current to report at.
     pub anode_current: ElectricCurrent,
+    /// Whether the operating current was assumed (no `operating` block).
+    pub operating_assumed: bool,
 }
 
 impl Design {
@@ -497,11 +499,19 @@ impl Checker<'_> {
 
     fn quantity(&self, field: &str, v: &Value, kind: Kind) -> Result<f64, DesignError> {
         match v {
-            Value::Number(x) if x.is_finite() => Ok(*x),
-            Value::Number(_) => Err(self.fail(
+            Value::Number(x) if !x.is_finite() => Err(self.fail(
                 field,
-                format!("expected a finite {}, found {v}", kind.name()),
+                format!("expected a finite {}, found {v}", kind.noun()),
             )),
+            Value::Number(x) if kind.needs_unit() => Err(self.fail(
+                field,
+                format!(
+                    "expected {} with its unit, e.g. {}; a bare number has no unit here (found {x})",
+                    kind.name(),
+                    kind.typical(&x.to_string())
+                ),
+            )),
+            Value::Number(x) => Ok(*x),
             Value::Text(t) => {
                 units::parse(t, kind).map_err(|e| self.fail(field, format!("{e} (found {v})")))
             }
@@ -515,7 +525,7 @@ impl Checker<'_> {
         } else {
             Err(self.fail(
                 field,
-                format!("expected a positive {}, found {v}", kind.name()),
+                format!("expected a positive {}, found {v}", kind.noun()),
             ))
         }
     }
@@ -562,7 +572,24 @@ pub fn load(path: &Path) -> Result<Design, DesignError> {
             MAX_FILE_BYTES
         )));
     }
-    let bytes = std::fs::read(path).map_err(|e| io(e.to_string()))?;
+    // Read at most one byte past the limit: a device or pipe (`/dev/zero`) reports no length.
+    let mut bytes = Vec::new();
+    std::fs::File::open(path)
+        .and_then(|f| {
+            use std::io::Read;
+            f.take(MAX_FILE_BYTES + 1).read_to_end(&mut bytes)
+        })
+        .map_err(|e| io(e.to_string()))?;
+    if bytes.len() as u64 > MAX_FILE_BYTES {
+        return Err(io(format!(
+            "it holds more than {MAX_FILE_BYTES} bytes; a design file is a page of text"
+        )));
+    }
+    if bytes.starts_with(&[0xff, 0xfe]) || bytes.starts_with(&[0xfe, 0xff]) {
+        return Err(io(
+            "it is UTF-16 text; save it as UTF-8 (plain text) and try again".into(),
+        ));
+    }
     let text = String::from_utf8(bytes).map_err(|e| {
         io(format!(
             "it is not UTF-8 text (byte {} is invalid); is it a binary file?",
@@ -574,18 +601,219 @@ pub fn load(path: &Path) -> Result<Design, DesignError> {
 
 /// Parse and check design text; `file` names it in messages.
 pub fn parse_str(text: &str, file: &str) -> Result<Design, DesignError> {
-    let raw: RawDesign = ron::from_str(text).map_err(|e| syntax_error(file, &e))?;
+    // A byte-order mark, as some editors write, is not part of the design.
+    let text = text.strip_prefix('\u{feff}').unwrap_or(text);
+    let raw: RawDesign = ron::from_str(text).map_err(|e| syntax_error(file, text, &e))?;
     check(raw, file)
 }
 
-fn syntax_error(file: &str, e: &ron::error::SpannedError) -> DesignError {
-    let message = e.code.to_string();
+fn syntax_error(file: &str, text: &str, e: &ron::error::SpannedError) -> DesignError {
+    let (line, col) = (e.span.start.line, e.span.start.col);
+    let mut message = describe_ron_error(&e.code, text);
+    if matches!(e.code, ron::Error::ExpectedComma) && fraction_at(text, line, col) {
+        message = "expected a whole number here, without a decimal point".to_string();
+    }
+    if let Some(hint) = unclosed_string_before(text, line) {
+        message.push_str(&format!(
+            "; line {hint} has an odd number of quotes: a string there may not be closed"
+        ));
+    }
+    if let Some(snippet) = snippet(text, line, col) {
+        message.push('\n');
+        message.push_str(&snippet);
+    }
     DesignError::Syntax {
         file: file.to_string(),
-        line: e.span.start.line,
-        col: e.span.start.col,
-        message: crate::design::suggest(&message),
+        line,
+        col,
+        message,
     }
+}
+
+/// Whether the text at `line:col` is the `.5` of a number like `10.5`.
+fn fraction_at(text: &str, line: usize, col: usize) -> bool {
+    let Some(src) = text.lines().nth(line.saturating_sub(1)) else {
+        return false;
+    };
+    let chars: Vec<char> = src.chars().collect();
+    let i = col.saturating_sub(1);
+    i > 0
+        && chars.get(i) == Some(&'.')
+        && chars[i - 1].is_ascii_digit()
+        && chars.get(i + 1).is_some_and(|c| c.is_ascii_digit())
+}
+
+/// The user-facing name of the place a serde type stands for: `RawTube` is `tube`.
+fn place_name(type_name: &str) -> String {
+    match type_name {
+        "RawDesign" => "the design".to_string(),
+        "RawGainLaw" => "`tube.gain`".to_string(),
+        "RawLimits" => "`tube.limits`".to_string(),
+        "RawElement" => "a divider element".to_string(),
+        "RawCapacitor" => "a decoupling capacitor".to_string(),
+        "Polarity" => "`supply.polarity`".to_string(),
+        other => match other.strip_prefix("Raw") {
+            // RawPulseLinearity -> pulse_linearity; new blocks follow the same rule.
+            Some(rest) => {
+                let mut out = String::new();
+                for (i, c) in rest.chars().enumerate() {
+                    if c.is_uppercase() && i > 0 {
+                        out.push('_');
+                    }
+                    out.extend(c.to_lowercase());
+                }
+                format!("`{out}`")
+            }
+            None => format!("`{other}`"),
+        },
+    }
+}
+
+fn list(names: &[&str]) -> String {
+    names
+        .iter()
+        .map(|n| format!("`{n}`"))
+        .collect::<Vec<_>>()
+        .join(", ")
+}
+
+/// The design text with comments blanked out, to tell an empty design from a broken one.
+fn without_comments(text: &str) -> String {
+    text.lines()
+        .map(|l| l.split("//").next().unwrap_or(""))
+        .collect::<Vec<_>>()
+        .join("\n")
+}
+
+/// ron's error in the words of the design file, with hints a newcomer needs.
+fn describe_ron_error(code: &ron::Error, text: &str) -> String {
+    use ron::Error as E;
+    let within = |outer: &Option<String>| match outer {
+        Some(o) => format!(" in {}", place_name(o)),
+        None => String::new(),
+    };
+    match code {
+        E::NoSuchStructField {
+            expected,
+            found,
+            outer,
+        } => {
+            let mut m = format!("unknown field `{found}`{}", within(outer));
+            // Suggest only names valid in this block; fall back on all names when ron gives none.
+            let pool: &[&str] = if expected.is_empty() { FIELD_NAMES } else { expected };
+            if let Some(name) = nearest(found, pool) {
+                m.push_str(&format!("; did you mean `{name}`?"));
+            }
+            m.push_str(&format!(" (expected one of {})", list(expected)));
+            m
+        }
+        E::MissingStructField { field, outer } => format!(
+            "{} lacks the required field `{field}` (see the design file schema in DEVELOPERS.md)",
+            outer
+                .as_deref()
+                .map_or_else(|| "this block".to_string(), place_name)
+        ),
+        E::DuplicateStructField { field, outer } => format!(
+            "the field `{field}` is given twice{}; keep one",
+            within(outer)
+        ),
+        E::NoSuchEnumVariant {
+            expected,
+            found,
+            outer,
+        } => {
+            let mut m = format!("`{found}` is not a valid choice{}", within(outer));
+            if let Some(name) = nearest(found, expected) {
+                m.push_str(&format!("; did you mean `{name}`?"));
+            }
+            m.push_str(&format!(" (expected one of {})", list(expected)));
+            m
+        }
+        E::ExpectedNamedStructLike(_) | E::ExpectedStructLike => {
+            let body = without_comments(text);
+            let body = body.trim().trim_start_matches('\u{feff}');
+            if body.is_empty() {
+                "the file holds no design (it is empty or only comments); a design is a RON struct `( name: \"...\", tube: (...), supply: (...), divider: (...), load: (...) )`, see designs/".to_string()
+            } else if body.starts_with('{') {
+                "this looks like JSON; a design file is RON: `( name: \"...\", tube: (...), ... )` with `(` `)` around blocks and unquoted field names, see designs/".to_string()
+            } else {
+                "expected `(` to open a block of fields".to_string()
+            }
+        }
+        E::ExpectedDifferentStructName { .. } => {
+            "expected `(` to open the design: a design file is a RON struct `( name: \"...\", tube: (...), ... )`, see designs/".to_string()
+        }
+        E::ExpectedOption => "expected an optional value written `Some(...)`, e.g. `Some(\"90 %\")`, or `None`".to_string(),
+        E::ExpectedIdentifier => "expected a name without quotes here, e.g. `CathodeNegative`".to_string(),
+        E::ExpectedString => "expected text in double quotes, e.g. \"Paddle 3\"".to_string(),
+        E::ExpectedStringEnd => "a string is not closed with `\"`".to_string(),
+        E::ExpectedFloat => "expected a plain number without quotes, e.g. 1.0e6".to_string(),
+        E::ExpectedInteger => "expected a whole number without quotes or decimal point, e.g. 10".to_string(),
+        E::IntegerOutOfBounds => "this whole number is too large to be meaningful here".to_string(),
+        E::ExpectedArray => "expected a list in square brackets `[...]`".to_string(),
+        E::ExpectedComma => "expected a comma (or a closing bracket) after the previous value".to_string(),
+        E::Eof => "the file ends before the design is complete: a closing `)` or `]` is missing".to_string(),
+        E::TrailingCharacters => "there is text after the design's closing `)`; a design file holds exactly one design".to_string(),
+        E::ExceededRecursionLimit => "the brackets nest too deeply for a design file".to_string(),
+        other => humanise_type_names(&other.to_string()),
+    }
+}
+
+/// Replace serde type names (`RawTube`) in a message by the places they stand for.
+fn humanise_type_names(message: &str) -> String {
+    let mut out = String::new();
+    let mut rest = message;
+    while let Some(i) = rest.find("`Raw") {
+        out.push_str(&rest[..i]);
+        let after = &rest[i + 1..];
+        match after.find('`') {
+            Some(j) => {
+                out.push_str(&place_name(&after[..j]));
+                rest = &after[j + 1..];
+            }
+            None => {
+                out.push_str(&rest[i..]);
+                rest = "";
+            }
+        }
+    }
+    out.push_str(rest);
+    out
+}
+
+/// The source line of an error with a caret under the column.
+fn snippet(text: &str, line: usize, col: usize) -> Option<String> {
+    let src = text.lines().nth(line.checked_sub(1)?)?;
+    // Long lines (a pasted blob) are cut around the column.
+    let chars: Vec<char> = src.chars().collect();
+    let col0 = col.saturating_sub(1).min(chars.len());
+    let (from, to) = if chars.len() <= 100 {
+        (0, chars.len())
+    } else {
+        (col0.saturating_sub(60), (col0 + 40).min(chars.len()))
+    };
+    let shown: String = chars[from..to]
+        .iter()
+        .map(|c| if c.is_control() { ' ' } else { *c })
+        .collect();
+    let gutter = format!("{line:>5} | ");
+    Some(format!(
+        "{gutter}{shown}\n{}| {}^",
+        " ".repeat(gutter.len() - 2),
+        " ".repeat(col0 - from)
+    ))
+}
+
+/// The first line before `line` with an odd number of quote marks (outside comments), if any.
+fn unclosed_string_before(text: &str, line: usize) -> Option<usize> {
+    for (i, l) in text.lines().enumerate().take(line.saturating_sub(1)) {
+        let code = l.split("//").next().unwrap_or("");
+        let quotes = code.matches('"').count() - code.matches("\\\"").count();
+        if quotes % 2 == 1 {
+            return Some(i + 1);
+        }
+    }
+    None
 }
 
 /// Known field names, for "did you mean" suggestions on unknown fields.
@@ -651,25 +879,14 @@ fn edit_distance(a: &str, b: &str) -> usize {
     prev[b.len()]
 }
 
-/// Append "did you mean" to ron's unknown-field message when a known name is close.
-pub(crate) fn suggest(message: &str) -> String {
-    let Some(start) = message.find("field named `") else {
-        return message.to_string();
-    };
-    let rest = &message[start + "field named `".len()..];
-    let Some(end) = rest.find('`') else {
-        return message.to_string();
-    };
-    let unknown = &rest[..end];
-    let best = FIELD_NAMES
+/// The candidate closest to `unknown` by edit distance, when close enough to be a slip.
+fn nearest<'a>(unknown: &str, candidates: &[&'a str]) -> Option<&'a str> {
+    candidates
         .iter()
         .map(|n| (edit_distance(unknown, n), *n))
+        .filter(|(d, n)| *d <= 3 && *d < n.len() && *n != unknown)
         .min()
-        .filter(|(d, n)| *d <= 3 && *d < n.len());
-    match best {
-        Some((_, name)) => format!("{message}; did you mean `{name}`?"),
-        None => message.to_string(),
-    }
+        .map(|(_, n)| n)
 }
 
 fn check(raw: RawDesign, file: &str) -> Result<Design, DesignError> {
@@ -885,9 +1102,9 @@ fn check(raw: RawDesign, file: &str) -> Result<Design, DesignError> {
         return Err(c.fail(
             "supply.volts",
             format!(
-                "|{}| exceeds the tube's maximum supply tube.limits.max_supply = {}",
-                units::format_eng(sv, "V"),
-                units::format_eng(max_supply, "V")
+                "expected at most the tube's maximum supply (tube.limits.max_supply = {}), found {} in magnitude",
+                units::format_eng(max_supply, "V"),
+                units::format_eng(sv.abs(), "V")
             ),
         ));
     }
@@ -1020,9 +1237,13 @@ fn check(raw: RawDesign, file: &str) -> Result<Design, DesignError> {
             )?)),
         };
         if decoupling.iter().any(|x: &Decoupling| x.style == style) {
+            let place = match style {
+                CapStyle::Across(g) => format!("across gap {g}"),
+                CapStyle::ToReturn(k) => format!("from D{k} to the return"),
+            };
             return Err(c.fail(
                 &field,
-                "a capacitor is already fitted at this place; give one entry per place",
+                format!("a capacitor is already fitted {place}; give one entry per place"),
             ));
         }
         decoupling.push(Decoupling {
@@ -1171,6 +1392,7 @@ fn check(raw: RawDesign, file: &str) -> Result<Design, DesignError> {
         resistor_tolerance: resistor_tol,
         resistors_assumed,
         anode_current: ElectricCurrent::new::<ampere>(anode_current),
+        operating_assumed: raw.operating.is_none(),
     })
 }
 

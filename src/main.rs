@@ -96,7 +96,7 @@ fn fail(msg: impl std::fmt::Display, code: Exit) -> ExitCode {
 
 fn analysis_exit(e: &AnalysisError) -> Exit {
     match e {
-        AnalysisError::Tube { .. } => Exit::BadInput,
+        AnalysisError::Tube { .. } | AnalysisError::Operating { .. } => Exit::BadInput,
         AnalysisError::Solve { .. } => Exit::SolveFailed,
     }
 }

@@ -19,7 +19,7 @@
 
 use crate::design::{Design, Element};
 use crate::tube::TubeModel;
-use crate::units::{ElectricCurrent, ElectricPotential};
+use crate::units::{ElectricCurrent, ElectricPotential, format_eng};
 use uom::si::electric_current::ampere;
 use uom::si::electric_potential::volt;
 use uom::si::electrical_resistance::ohm;
@@ -48,9 +48,7 @@ pub enum SolveError {
     #[error("the node equations are singular (a node has no DC path); check the divider")]
     Singular,
     /// A requested anode current cannot be reached.
-    #[error(
-        "an average anode current of {wanted:.3e} A cannot be reached: the divider saturates near {reached:.3e} A"
-    )]
+    #[error("an average anode current of {} cannot be reached: the divider saturates near {}", format_eng(*wanted, "A"), format_eng(*reached, "A"))]
     Unreachable {
         /// Asked for.
         wanted: f64,
@@ -553,7 +551,19 @@ impl Network {
     ) -> Result<OperatingPoint, SolveError> {
         let g0 = self.small_signal_gain();
         let mut ik = anode / g0;
-        let mut op = self.solve_raw(ik, None, ws)?;
+        let mut op = match self.solve_raw(ik, None, ws) {
+            Ok(op) => op,
+            // Deep in saturation the small-signal guess can land where Newton's method fails:
+            // walk up from a light load instead, following the curve, so that an impossible
+            // request ends as `Unreachable` with the current the divider does deliver.
+            Err(first) => match self.ramp_to(anode, ik, ws)? {
+                Some(op) => {
+                    ik = op.cathode_amps;
+                    op
+                }
+                None => return Err(first),
+            },
+        };
         // Secant iteration on ln(t) against ln(ik).
         let mut prev: Option<(f64, f64)> = None;
         let mut best = op.anode_amps();
@@ -579,6 +589,47 @@ impl Network {
             prev = Some((lx, ly));
             ik = (lx + stepln).exp();
             op = self.solve_raw(ik, Some(&op), ws)?;
+        }
+        Err(SolveError::Unreachable {
+            wanted: anode,
+            reached: best,
+        })
+    }
+
+    /// Continuation for [`Network::solve_anode_raw`]: raise the cathode current from a light
+    /// load in steps of 2x, warm-starting each solve, until the anode current reaches `anode`.
+    /// `Ok(None)` when even the light load does not solve; `Unreachable` when the anode current
+    /// stops rising (saturation) before reaching `anode`.
+    fn ramp_to(
+        &self,
+        anode: f64,
+        guess: f64,
+        ws: &mut Workspace,
+    ) -> Result<Option<OperatingPoint>, SolveError> {
+        let (i0, _) = self.quiescent();
+        let g0 = self.small_signal_gain();
+        let mut ik = (1e-3 * i0 / g0).min(guess);
+        let Ok(mut op) = self.solve_raw(ik, None, ws) else {
+            return Ok(None);
+        };
+        let mut best = op.anode_amps();
+        // 2^60 spans any plausible distance from the light load to the request.
+        for _ in 0..60 {
+            if op.anode_amps() >= anode {
+                return Ok(Some(op));
+            }
+            ik *= 2.0;
+            match self.solve_raw(ik, Some(&op), ws) {
+                Ok(next) => {
+                    let rising = next.anode_amps() > best * (1.0 + 1e-6);
+                    best = best.max(next.anode_amps());
+                    op = next;
+                    if !rising && ik > 1e3 * guess {
+                        break;
+                    }
+                }
+                Err(_) => break,
+            }
         }
         Err(SolveError::Unreachable {
             wanted: anode,

@@ -62,6 +62,42 @@ impl Kind {
         }
     }
 
+    /// The bare noun, for messages: "voltage", "capacitance".
+    pub fn noun(self) -> &'static str {
+        let name = self.name();
+        name.strip_prefix("an ")
+            .or_else(|| name.strip_prefix("a "))
+            .unwrap_or(name)
+    }
+
+    /// Whether text of this kind must carry a unit symbol or an SI prefix.
+    ///
+    /// Voltages and resistances may be bare numbers (volts, ohms), as on a schematic ("1100",
+    /// "470k"); ratios are plain numbers. Every other kind lives far from 1 in its base unit
+    /// (microamperes, nanofarads, nanoseconds), so a bare "2" is far more likely a forgotten
+    /// "2 uA" than two amperes: it is refused and the unit asked for.
+    pub fn needs_unit(self) -> bool {
+        !matches!(self, Kind::Voltage | Kind::Resistance | Kind::Ratio)
+    }
+
+    /// A typical way to write `number` with a unit of this kind, for messages ("2 uA").
+    pub fn typical(self, number: &str) -> String {
+        let unit = match self {
+            Kind::Current => "uA",
+            Kind::Capacitance => "nF",
+            Kind::Time => "ns",
+            Kind::Frequency => "kHz",
+            Kind::Charge => "pC",
+            Kind::Energy => "nJ",
+            Kind::Length => "nm",
+            Kind::Power => "W",
+            Kind::Voltage => "V",
+            Kind::Resistance => "k",
+            Kind::Ratio => "%",
+        };
+        format!("\"{number} {unit}\"")
+    }
+
     /// The canonical unit symbol, for messages.
     pub fn symbol(self) -> &'static str {
         match self {
@@ -232,7 +268,19 @@ pub fn parse(text: &str, kind: Kind) -> Result<f64, QuantityError> {
         };
     }
     if rest.is_empty() {
+        if kind.needs_unit() {
+            return Err(err(format!(
+                "\"{t}\" has no unit; {} needs one (or at least an SI prefix), e.g. {}",
+                kind.name(),
+                kind.typical(num)
+            )));
+        }
         return finite(value, t, kind);
+    }
+    if rest.starts_with([',', '_', '\'']) && rest[1..].starts_with(|c: char| c.is_ascii_digit()) {
+        return Err(err(format!(
+            "\"{t}\": write numbers without a thousands separator and with a point for decimals, e.g. \"1100 V\" or \"4.7 nF\""
+        )));
     }
     if rest == "%" {
         return Err(err(format!("\"{t}\" is a percentage, not {}", kind.name())));
@@ -276,8 +324,15 @@ pub fn parse(text: &str, kind: Kind) -> Result<f64, QuantityError> {
         };
     }
     if first.is_alphabetic() {
+        if after.is_empty() || unit_kind(after.trim_start()) == Some(kind) {
+            return Err(err(format!(
+                "\"{first}\" is not an SI prefix (f p n u m k M G T)"
+            )));
+        }
         return Err(err(format!(
-            "\"{first}\" is not an SI prefix (f p n u m k M G T) and \"{rest}\" is not a unit"
+            "\"{rest}\" is not a unit of {}; write {} with an optional SI prefix (f p n u m k M G T)",
+            kind.noun(),
+            kind.symbol()
         )));
     }
     Err(err(format!("cannot read \"{rest}\" after the number")))
@@ -353,7 +408,8 @@ mod tests {
         assert!(close(parse("2.2 MΩ", Kind::Resistance).unwrap(), 2.2e6));
         assert!(close(parse("100 uA", Kind::Current).unwrap(), 1e-4));
         assert!(close(parse("100µA", Kind::Current).unwrap(), 1e-4));
-        assert!(close(parse("1e-3", Kind::Current).unwrap(), 1e-3));
+        assert!(close(parse("1e-3 A", Kind::Current).unwrap(), 1e-3));
+        assert!(close(parse("1100", Kind::Voltage).unwrap(), 1100.0));
         assert!(close(parse("2 %", Kind::Ratio).unwrap(), 0.02));
         assert!(close(parse("405 nm", Kind::Length).unwrap(), 4.05e-7));
         assert!(close(parse("1 MHz", Kind::Frequency).unwrap(), 1e6));
@@ -373,6 +429,18 @@ mod tests {
         assert!(parse("", Kind::Voltage).is_err());
         assert!(parse("V", Kind::Voltage).is_err());
         assert!(parse("1e999 V", Kind::Voltage).is_err());
+        // Decision documented in DEVELOPERS.md: currents, capacitances, times… need a unit.
+        let e = parse("100", Kind::Current).unwrap_err();
+        assert!(e.to_string().contains("has no unit"), "{e}");
+        assert!(parse("100u", Kind::Current).is_ok());
+        let e = parse("1,100 V", Kind::Voltage).unwrap_err();
+        assert!(e.to_string().contains("thousands separator"), "{e}");
+        let e = parse("1500 Vlt", Kind::Voltage).unwrap_err();
+        assert!(
+            e.to_string().contains("\"Vlt\" is not a unit of voltage"),
+            "{e}"
+        );
+        assert_eq!(Kind::Energy.noun(), "energy");
     }
 
     #[test]

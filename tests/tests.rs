@@ -9,3 +9,5 @@ mod core;
 mod ngspice_dc;
 /// Invariants over random valid designs.
 mod properties;
+/// Bad and hostile input, the corpus in tests/bad_designs/, and "nothing lost" for outputs.
+mod bad_input;

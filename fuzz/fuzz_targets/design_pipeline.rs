@@ -1,0 +1,29 @@
+//! Fuzz target: arbitrary bytes through the whole pipeline a design file goes through:
+//! UTF-8 check, RON parse, validation, tube calibration, divider solve, linearity, safety and
+//! both report formats. A panic anywhere, or a non-finite number in a report, is a finding.
+#![no_main]
+
+use libfuzzer_sys::fuzz_target;
+
+#[path = "../../tests/finite.rs"]
+mod finite;
+
+fuzz_target!(|data: &[u8]| {
+    let Ok(text) = std::str::from_utf8(data) else {
+        return;
+    };
+    let Ok(design) = dynode::design::parse_str(text, "fuzz.ron") else {
+        return;
+    };
+    let Ok(analysis) = dynode::analysis::analyse(&design) else {
+        return;
+    };
+    let report = dynode::report::text::render(&analysis);
+    if let Some(bad) = finite::text_non_finite(&report) {
+        panic!("text report shows a non-finite figure: {bad}");
+    }
+    let json = dynode::report::json::to_value(&analysis);
+    if let Some(path) = finite::json_unexpected_null(&json) {
+        panic!("JSON report has null at {path}, not a key that may be absent");
+    }
+});
