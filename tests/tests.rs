@@ -2,6 +2,8 @@
 // Node-indexed checks read several arrays by the same index.
 #![allow(clippy::needless_range_loop)]
 
+/// Bad and hostile input, the corpus in tests/bad_designs/, and "nothing lost" for outputs.
+mod bad_input;
 mod common;
 /// The core model against textbook laws and worked examples.
 mod core;
@@ -9,5 +11,3 @@ mod core;
 mod ngspice_dc;
 /// Invariants over random valid designs.
 mod properties;
-/// Bad and hostile input, the corpus in tests/bad_designs/, and "nothing lost" for outputs.
-mod bad_input;
