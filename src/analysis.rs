@@ -104,6 +104,9 @@ pub struct Analysis {
     pub warnings: Vec<String>,
     /// Values assumed because the design did not give them.
     pub assumptions: Vec<String>,
+    /// Small-signal gain against supply magnitude under the design's divider: (volts, gain),
+    /// from 60 % of the supply to the tube's maximum.
+    pub gain_curve: Vec<(f64, f64)>,
 }
 
 impl Analysis {
@@ -352,7 +355,20 @@ pub fn analyse(design: &Design) -> Result<Analysis, AnalysisError> {
         );
     }
 
+    let v_max = design.tube.max_supply.get::<volt>();
+    let v_lo = 0.6 * vs;
+    let gain_curve = (0..=40)
+        .map(|i| {
+            let v = v_lo + (v_max - v_lo) * f64::from(i) / 40.0;
+            let mut net = network.clone();
+            net.supply = v;
+            (v, net.small_signal_gain())
+        })
+        .filter(|(_, g)| g.is_finite() && *g > 0.0)
+        .collect();
+
     Ok(Analysis {
+        gain_curve,
         design: design.clone(),
         network,
         quiescent_amps,

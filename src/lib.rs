@@ -17,6 +17,7 @@ pub mod linearity;
 pub mod netlist;
 pub mod network;
 pub mod output;
+pub mod plot;
 pub mod report;
 pub mod safety;
 pub mod tube;

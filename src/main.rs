@@ -65,6 +65,9 @@ enum Command {
         /// Exit with code 1 when the design breaks a limit (any warning).
         #[arg(long)]
         strict: bool,
+        /// Also write every figure as SVG and PNG into DIR (stable names, e.g. linearity.png).
+        #[arg(long, value_name = "DIR")]
+        plots: Option<PathBuf>,
         #[command(flatten)]
         out: OutputArgs,
     },
@@ -73,6 +76,14 @@ enum Command {
     Check {
         /// The design file (RON).
         design: PathBuf,
+    },
+    /// Print a shell completion script (bash, zsh, fish, elvish, powershell).
+    #[command(
+        after_help = "Example:\n  dynode completions bash > ~/.local/share/bash-completion/completions/dynode"
+    )]
+    Completions {
+        /// The shell.
+        shell: clap_complete::Shell,
     },
     /// Write a SPICE netlist of the solved network (behavioural dynode sources).
     #[command(
@@ -132,6 +143,11 @@ fn run() -> ExitCode {
         }
     };
     match cli.command {
+        Command::Completions { shell } => {
+            use clap::CommandFactory;
+            clap_complete::generate(shell, &mut Cli::command(), "dynode", &mut std::io::stdout());
+            ExitCode::from(Exit::Ok as u8)
+        }
         Command::Check { design } => match design::load(&design) {
             Ok(d) => match analysis::analyse(&d) {
                 Ok(_) => {
@@ -146,6 +162,7 @@ fn run() -> ExitCode {
             design,
             format,
             strict,
+            plots,
             out,
         } => {
             let d = match design::load(&design) {
@@ -164,6 +181,21 @@ fn run() -> ExitCode {
             let text = report::render(&a, format);
             if let Err(code) = emit(&text, &out, &design) {
                 return code;
+            }
+            if let Some(dir) = &plots {
+                let figs = report::figures::all(&a);
+                match output::write_figures(dir, &figs, &[design.as_path()], out.force) {
+                    Ok(paths) => {
+                        if !out.quiet {
+                            eprintln!(
+                                "dynode: wrote {} figure files in {}",
+                                paths.len(),
+                                dir.display()
+                            );
+                        }
+                    }
+                    Err(e) => return fail(e, Exit::BadInput),
+                }
             }
             if strict && !a.warnings.is_empty() {
                 if !out.quiet {

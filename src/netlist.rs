@@ -12,7 +12,7 @@ use std::fmt::Write;
 
 use crate::design::{CapStyle, Design, Element, Polarity};
 use crate::network::ZENER_LEAK_SIEMENS;
-use crate::tube::{SMOOTH_VOLTS, TubeModel};
+use crate::tube::{COLLECTION_VOLTS, SMOOTH_VOLTS, TubeModel};
 use uom::si::capacitance::farad;
 use uom::si::electric_potential::volt;
 use uom::si::electrical_resistance::ohm;
@@ -87,7 +87,7 @@ pub fn write(design: &Design, tube: &TubeModel, opts: &NetlistOptions) -> String
     );
     let _ = writeln!(
         s,
-        "* space charge: I_out = I_in / (1 + (I_in / (P sp(u)^1.5))^4)^0.25 with P = {} A/V^1.5.",
+        "* gap transmission: I_out = (1 - exp(-sp(u)/{COLLECTION_VOLTS} V)) I_in / (1 + (I_in / (P sp(u)^1.5))^4)^0.25, P = {} A/V^1.5.",
         num(tube.perveance)
     );
     let _ = writeln!(s, ".param ik = {}", num(opts.cathode_amps));
@@ -169,16 +169,18 @@ pub fn write(design: &Design, tube: &TubeModel, opts: &NetlistOptions) -> String
         }
     }
     let _ = writeln!(s, "* Tube: gap currents.");
+    // Smooth positive part, in the cancellation-free form for negative voltages (as the solver).
     let sp = |a: &str, b: &str| {
         format!(
-            "(0.5*(v({a},{b}) + sqrt(v({a},{b})*v({a},{b}) + {w})))",
+            "((v({a},{b}) >= 0) ? (0.5*(v({a},{b}) + sqrt(v({a},{b})*v({a},{b}) + {w}))) : (0.5*{w}/(sqrt(v({a},{b})*v({a},{b}) + {w}) - v({a},{b}))))",
             w = num(SMOOTH_VOLTS * SMOOTH_VOLTS)
         )
     };
     let fold = |offered: &str, gap: &str| {
         format!(
-            "({offered})/pow(1 + pow(({offered})/({p}*pow({gap},1.5)),4),0.25)",
-            p = num(tube.perveance)
+            "(1 - exp(-{gap}/{vc}))*({offered})/pow(1 + pow(({offered})/({p}*pow({gap},1.5)),4),0.25)",
+            p = num(tube.perveance),
+            vc = num(COLLECTION_VOLTS)
         )
     };
     for j in 1..=n + 1 {

@@ -397,13 +397,22 @@ impl Network {
             let mut old = x.clone();
             let mut c = 1e3 * g0;
             let mut ok = true;
+            let mut refusals = 0;
             while c > 1e-9 * g0 {
-                if self.newton(ik, &mut x, Some((c, &old)), ws).is_err() {
-                    ok = false;
-                    break;
+                if self.newton(ik, &mut x, Some((c, &old)), ws).is_ok() {
+                    old.copy_from_slice(&x);
+                    c *= 0.3;
+                } else {
+                    // Too long a pseudo-time step: go back and take a shorter one.
+                    x.copy_from_slice(&old);
+                    self.forward_currents(ik, &mut x);
+                    c *= 10.0;
+                    refusals += 1;
+                    if refusals > 40 || c > 1e12 * g0 {
+                        ok = false;
+                        break;
+                    }
                 }
-                old.copy_from_slice(&x);
-                c *= 0.3;
             }
             if ok {
                 result = self.newton(ik, &mut x, None, ws);

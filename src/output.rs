@@ -77,3 +77,44 @@ pub fn write_atomic(
     }
     Ok(())
 }
+
+/// Write every figure as `DIR/<name>.svg` and `DIR/<name>.png`, each atomically. Refuses an
+/// existing file without `force`. Returns the paths written.
+pub fn write_figures(
+    dir: &Path,
+    figures: &[crate::plot::Figure],
+    inputs: &[&Path],
+    force: bool,
+) -> Result<Vec<PathBuf>, OutputError> {
+    let io = |p: &Path, e: String| OutputError::Io {
+        path: p.display().to_string(),
+        reason: e,
+    };
+    std::fs::create_dir_all(dir).map_err(|e| io(dir, e.to_string()))?;
+    // Check every target first so that a refusal writes nothing.
+    for f in figures {
+        for ext in ["svg", "png"] {
+            check_target(&dir.join(format!("{}.{ext}", f.name)), inputs, force)?;
+        }
+    }
+    let mut written = Vec::new();
+    for f in figures {
+        let svg_path = dir.join(format!("{}.svg", f.name));
+        let svg = crate::plot::svg(f).map_err(|e| io(&svg_path, e.to_string()))?;
+        write_atomic(&svg_path, svg.as_bytes(), inputs, true)?;
+        written.push(svg_path);
+        let png_path = dir.join(format!("{}.png", f.name));
+        let tmp = dir.join(format!(".{}.{}.tmp.png", f.name, std::process::id()));
+        let result = crate::plot::png(f, &tmp)
+            .map_err(|e| io(&png_path, e.to_string()))
+            .and_then(|_| {
+                std::fs::rename(&tmp, &png_path).map_err(|e| io(&png_path, e.to_string()))
+            });
+        if let Err(e) = result {
+            let _ = std::fs::remove_file(&tmp);
+            return Err(e);
+        }
+        written.push(png_path);
+    }
+    Ok(written)
+}

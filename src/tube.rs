@@ -74,7 +74,13 @@ pub struct TubeModel {
 pub fn smooth_positive(v: f64) -> (f64, f64) {
     let w = SMOOTH_VOLTS;
     let r = (v * v + w * w).sqrt();
-    (0.5 * (v + r), 0.5 * (1.0 + v / r))
+    // For negative v, (v + r) cancels: use the equal form w^2 / (r - v), which stays positive.
+    let p = if v >= 0.0 {
+        0.5 * (v + r)
+    } else {
+        0.5 * w * w / (r - v)
+    };
+    (p, 0.5 * (1.0 + v / r))
 }
 
 impl TubeModel {

@@ -46,9 +46,17 @@ fn compare_design(file: &str) {
         .expect("the demo reaches +1 % before saturation");
     let dir = temp_dir(&format!("ngspice-dc-{}", file.replace('/', "-")));
     let mut ws = Workspace::default();
-    // Three anode currents: well inside the linear range, near +1 %, and past it (3×).
-    for (k, ia) in [plus1 * 0.05, plus1, plus1 * 3.0].into_iter().enumerate() {
-        let op = a.network.solve_anode_raw(ia, &mut ws).unwrap();
+    // Three anode currents: well inside the linear range, near +1 %, and past it (3×); then a
+    // cathode current deep in saturation (past −5 %), where the starved gaps sit at a few volts.
+    let mut cases: Vec<dynode::network::OperatingPoint> = [plus1 * 0.05, plus1, plus1 * 3.0]
+        .into_iter()
+        .map(|ia| a.network.solve_anode_raw(ia, &mut ws).unwrap())
+        .collect();
+    let deep = a.network.small_signal_gain();
+    let ik_deep = 2.0 * a.quiescent_amps / deep;
+    cases.push(a.network.solve_raw(ik_deep, None, &mut ws).unwrap());
+    for (k, op) in cases.into_iter().enumerate() {
+        let ia = op.anode_amps();
         let text = netlist::write(
             &d,
             &a.network.tube,

@@ -9,5 +9,7 @@ mod common;
 mod core;
 /// The DC operating point against ngspice on the same netlist.
 mod ngspice_dc;
+/// Figures, HTML, Markdown, JSON schema, netlist and output hygiene.
+mod outputs;
 /// Invariants over random valid designs.
 mod properties;

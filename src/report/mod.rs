@@ -1,9 +1,13 @@
-//! Reports: the same analysis rendered as text or JSON (more formats add a module here).
+//! Reports: the same analysis rendered as text, JSON, HTML or Markdown, plus its figures.
 //!
 //! Every format opens with the high-voltage cautions and closes with a short one. Renderers are
 //! pure functions of an [`Analysis`]; writing files is the caller's business.
 
+pub mod figures;
+pub mod html;
 pub mod json;
+pub mod markdown;
+pub mod tables;
 pub mod text;
 
 use crate::analysis::Analysis;
@@ -15,6 +19,10 @@ pub enum Format {
     Text,
     /// JSON, SI base units, documented schema.
     Json,
+    /// One self-contained HTML file (figures inline, no scripts, prints well).
+    Html,
+    /// Markdown for notebooks and issue trackers.
+    Markdown,
 }
 
 /// Render an analysis in the chosen format.
@@ -22,5 +30,13 @@ pub fn render(a: &Analysis, format: Format) -> String {
     match format {
         Format::Text => text::render(a),
         Format::Json => json::render(a),
+        Format::Html => html::render(a),
+        Format::Markdown => markdown::render(a),
     }
+}
+
+/// Sections that capabilities beyond the core add, as (title, plain text), in report order.
+/// The HTML and Markdown renderers show each one; a capability adds its section here.
+pub fn extra_sections(_a: &Analysis) -> Vec<(String, String)> {
+    Vec::new()
 }

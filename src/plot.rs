@@ -1,0 +1,559 @@
+//! Figures: a plain description ([`Figure`]) that any module can fill, rendered to SVG or PNG.
+//!
+//! A module that wants a figure builds a `Figure` from its own results — series of points,
+//! vertical or horizontal markers, shaded bands — and never touches the drawing library. This
+//! module owns the drawing (plotters), the axes (linear or log), tick labels with units in
+//! engineering notation, the legend and the font. PNG text uses a DejaVu Sans face bundled in the
+//! binary (the `dejavu` crate), registered once, so no system font is needed.
+
+use std::path::Path;
+use std::sync::OnceLock;
+
+use plotters::coord::Shift;
+use plotters::coord::ranged1d::{AsRangedCoord, ValueFormatter};
+use plotters::prelude::*;
+use plotters::style::FontStyle;
+
+use crate::units::format_eng;
+
+/// Width of every figure, pixels.
+pub const WIDTH: u32 = 960;
+/// Height of every figure, pixels.
+pub const HEIGHT: u32 = 560;
+
+/// Why a figure could not be drawn or written.
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+pub enum PlotError {
+    /// The drawing library failed.
+    #[error("figure {figure}: {reason}")]
+    Draw {
+        /// Figure name.
+        figure: String,
+        /// Reason.
+        reason: String,
+    },
+}
+
+/// Axis scale.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Scale {
+    /// Linear.
+    Linear,
+    /// Logarithmic (values must be positive; others are dropped).
+    Log,
+}
+
+/// How a series is drawn.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Style {
+    /// Solid line.
+    Line,
+    /// Dots.
+    Points,
+    /// Bars centred on each x (x usually an index); several bar series sit side by side.
+    Bars,
+}
+
+/// One series of points.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Series {
+    /// Legend text.
+    pub label: String,
+    /// (x, y) points.
+    pub points: Vec<(f64, f64)>,
+    /// Drawing style.
+    pub style: Style,
+}
+
+/// A vertical (`x`) or horizontal (`y`) reference line with a label.
+#[derive(Debug, Clone, PartialEq)]
+pub enum Marker {
+    /// Vertical line at this x.
+    X(f64, String),
+    /// Horizontal line at this y.
+    Y(f64, String),
+}
+
+/// A horizontal band between two y values (e.g. ±1 %).
+#[derive(Debug, Clone, PartialEq)]
+pub struct Band {
+    /// Lower edge.
+    pub lo: f64,
+    /// Upper edge.
+    pub hi: f64,
+    /// Legend text.
+    pub label: String,
+}
+
+/// An axis: its label, scale and the unit used for tick labels.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Axis {
+    /// Label, with the unit in words or symbols.
+    pub label: String,
+    /// Scale.
+    pub scale: Scale,
+    /// Unit symbol for engineering-notation ticks ("A", "V", "s"); `None` for plain numbers.
+    pub unit: Option<String>,
+}
+
+impl Axis {
+    /// Linear axis with a unit.
+    pub fn linear(label: &str, unit: Option<&str>) -> Axis {
+        Axis {
+            label: label.to_string(),
+            scale: Scale::Linear,
+            unit: unit.map(str::to_string),
+        }
+    }
+    /// Log axis with a unit.
+    pub fn log(label: &str, unit: Option<&str>) -> Axis {
+        Axis {
+            label: label.to_string(),
+            scale: Scale::Log,
+            unit: unit.map(str::to_string),
+        }
+    }
+}
+
+/// A complete figure description.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Figure {
+    /// Stable file stem, e.g. `linearity` (written as `linearity.svg` and `linearity.png`).
+    pub name: String,
+    /// Title.
+    pub title: String,
+    /// Horizontal axis.
+    pub x: Axis,
+    /// Vertical axis.
+    pub y: Axis,
+    /// Series.
+    pub series: Vec<Series>,
+    /// Reference lines.
+    pub markers: Vec<Marker>,
+    /// Shaded bands.
+    pub bands: Vec<Band>,
+    /// Integer tick labels on x (for gap or pulse numbers).
+    pub integer_x: bool,
+    /// Fixed vertical range (data beyond it is clipped); `None` fits the data.
+    pub y_limits: Option<(f64, f64)>,
+    /// Where the legend goes.
+    pub legend: Legend,
+}
+
+/// Legend corner.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Legend {
+    /// Upper left.
+    UpperLeft,
+    /// Upper right.
+    UpperRight,
+    /// Lower right.
+    LowerRight,
+}
+
+impl Figure {
+    /// A new empty figure.
+    pub fn new(name: &str, title: &str, x: Axis, y: Axis) -> Figure {
+        Figure {
+            name: name.to_string(),
+            title: title.to_string(),
+            x,
+            y,
+            series: Vec::new(),
+            markers: Vec::new(),
+            bands: Vec::new(),
+            integer_x: false,
+            y_limits: None,
+            legend: Legend::UpperLeft,
+        }
+    }
+    /// Add a series.
+    pub fn with(mut self, label: &str, style: Style, points: Vec<(f64, f64)>) -> Figure {
+        self.series.push(Series {
+            label: label.to_string(),
+            points,
+            style,
+        });
+        self
+    }
+}
+
+/// Series colours, chosen to stay apart in print and for common colour-vision deficiencies.
+const PALETTE: [RGBColor; 6] = [
+    RGBColor(0, 90, 181),
+    RGBColor(220, 50, 32),
+    RGBColor(0, 140, 80),
+    RGBColor(150, 80, 170),
+    RGBColor(230, 140, 0),
+    RGBColor(60, 60, 60),
+];
+const MARKER: RGBColor = RGBColor(110, 110, 110);
+const BAND: RGBColor = RGBColor(120, 200, 120);
+
+fn register_fonts() -> Result<(), String> {
+    static DONE: OnceLock<Result<(), String>> = OnceLock::new();
+    DONE.get_or_init(|| {
+        plotters::style::register_font("sans-serif", FontStyle::Normal, dejavu::sans::regular())
+            .map_err(|_| "the bundled font could not be loaded".to_string())?;
+        plotters::style::register_font("sans-serif", FontStyle::Bold, dejavu::sans::bold())
+            .map_err(|_| "the bundled bold font could not be loaded".to_string())
+    })
+    .clone()
+}
+
+fn usable(v: f64, scale: Scale) -> bool {
+    v.is_finite() && (scale == Scale::Linear || v > 0.0)
+}
+
+/// Data range of one axis over everything drawn, padded.
+fn range(values: impl Iterator<Item = f64>, scale: Scale) -> (f64, f64) {
+    let (mut lo, mut hi) = (f64::INFINITY, f64::NEG_INFINITY);
+    for v in values.filter(|v| usable(*v, scale)) {
+        lo = lo.min(v);
+        hi = hi.max(v);
+    }
+    if !lo.is_finite() {
+        return match scale {
+            Scale::Linear => (0.0, 1.0),
+            Scale::Log => (1.0, 10.0),
+        };
+    }
+    match scale {
+        Scale::Linear => {
+            let span = if hi > lo { hi - lo } else { lo.abs().max(1.0) };
+            (lo - 0.05 * span, hi + 0.05 * span)
+        }
+        Scale::Log => {
+            let (l, h) = if hi > lo {
+                (lo, hi)
+            } else {
+                (lo / 2.0, hi * 2.0)
+            };
+            let f = (h / l).powf(0.04);
+            (l / f, h * f)
+        }
+    }
+}
+
+fn tick_text(v: f64, axis: &Axis, integer: bool) -> String {
+    if integer {
+        return format!("{}", v.round() as i64);
+    }
+    match &axis.unit {
+        Some(u) => format_eng(v, u),
+        None => {
+            let a = v.abs();
+            if a != 0.0 && !(1e-3..1e5).contains(&a) {
+                format!("{v:.0e}")
+            } else {
+                let s = format!("{v:.4}");
+                let s = s.trim_end_matches('0').trim_end_matches('.');
+                s.to_string()
+            }
+        }
+    }
+}
+
+fn draw<DB, X, Y>(
+    root: &DrawingArea<DB, Shift>,
+    fig: &Figure,
+    xs: X,
+    ys: Y,
+    xr: (f64, f64),
+    yr: (f64, f64),
+) -> Result<(), String>
+where
+    DB: DrawingBackend,
+    X: AsRangedCoord<Value = f64>,
+    Y: AsRangedCoord<Value = f64>,
+    X::CoordDescType: ValueFormatter<f64>,
+    Y::CoordDescType: ValueFormatter<f64>,
+{
+    let e = |e: DrawingAreaErrorKind<DB::ErrorType>| format!("{e:?}");
+    root.fill(&WHITE).map_err(e)?;
+    let mut chart = ChartBuilder::on(root)
+        .caption(
+            &fig.title,
+            ("sans-serif", 22).into_font().style(FontStyle::Bold),
+        )
+        .margin(14)
+        .x_label_area_size(52)
+        .y_label_area_size(84)
+        .build_cartesian_2d(xs, ys)
+        .map_err(e)?;
+    let xf = |v: &f64| tick_text(*v, &fig.x, fig.integer_x);
+    let yf = |v: &f64| tick_text(*v, &fig.y, false);
+    let mut mesh = chart.configure_mesh();
+    mesh.x_desc(fig.x.label.as_str())
+        .y_desc(fig.y.label.as_str())
+        .x_label_formatter(&xf)
+        .y_label_formatter(&yf)
+        .label_style(("sans-serif", 15))
+        .axis_desc_style(("sans-serif", 17))
+        .light_line_style(RGBColor(235, 235, 235));
+    if fig.integer_x {
+        let count = (xr.1 - xr.0).round().max(1.0) as usize;
+        mesh.x_labels(count.min(24));
+    }
+    mesh.draw().map_err(e)?;
+
+    for b in &fig.bands {
+        let lo = b.lo.max(yr.0);
+        let hi = b.hi.min(yr.1);
+        if hi > lo {
+            chart
+                .draw_series(std::iter::once(Rectangle::new(
+                    [(xr.0, lo), (xr.1, hi)],
+                    BAND.mix(0.25).filled(),
+                )))
+                .map_err(e)?
+                .label(b.label.as_str())
+                .legend(|(x, y)| {
+                    Rectangle::new([(x, y - 6), (x + 18, y + 6)], BAND.mix(0.4).filled())
+                });
+        }
+    }
+    let bar_series: Vec<usize> = fig
+        .series
+        .iter()
+        .enumerate()
+        .filter(|(_, s)| s.style == Style::Bars)
+        .map(|(i, _)| i)
+        .collect();
+    for (i, s) in fig.series.iter().enumerate() {
+        let colour = PALETTE[i % PALETTE.len()];
+        let pts: Vec<(f64, f64)> = s
+            .points
+            .iter()
+            .copied()
+            .filter(|(x, y)| usable(*x, fig.x.scale) && usable(*y, fig.y.scale))
+            .collect();
+        let anno = match s.style {
+            Style::Line => {
+                // Cut the polyline where it leaves the vertical range, so that nothing is drawn
+                // flattened against the frame.
+                let mut pieces: Vec<Vec<(f64, f64)>> = vec![Vec::new()];
+                let inside = |y: f64| y >= yr.0 && y <= yr.1;
+                let cut = |a: (f64, f64), b: (f64, f64), edge: f64| {
+                    let t = (edge - a.1) / (b.1 - a.1);
+                    (a.0 + t * (b.0 - a.0), edge)
+                };
+                for (k, p) in pts.iter().copied().enumerate() {
+                    let prev = if k > 0 { Some(pts[k - 1]) } else { None };
+                    match (prev, inside(p.1)) {
+                        (Some(q), true) if !inside(q.1) => {
+                            let edge = if q.1 > yr.1 { yr.1 } else { yr.0 };
+                            pieces.push(vec![cut(q, p, edge), p]);
+                        }
+                        (_, true) => {
+                            if let Some(v) = pieces.last_mut() {
+                                v.push(p);
+                            }
+                        }
+                        (Some(q), false) if inside(q.1) => {
+                            let edge = if p.1 > yr.1 { yr.1 } else { yr.0 };
+                            if let Some(v) = pieces.last_mut() {
+                                v.push(cut(q, p, edge));
+                            }
+                            pieces.push(Vec::new());
+                        }
+                        _ => {}
+                    }
+                }
+                let mut drawn = None;
+                for piece in pieces.into_iter().filter(|v| v.len() > 1) {
+                    drawn = Some(
+                        chart
+                            .draw_series(LineSeries::new(piece, colour.stroke_width(2)))
+                            .map_err(e)?,
+                    );
+                }
+                match drawn {
+                    Some(d) => d,
+                    None => chart
+                        .draw_series(std::iter::empty::<Circle<(f64, f64), i32>>())
+                        .map_err(e)?,
+                }
+            }
+            Style::Points => chart
+                .draw_series(pts.into_iter().map(|p| Circle::new(p, 3, colour.filled())))
+                .map_err(e)?,
+            Style::Bars => {
+                let k = bar_series.len().max(1) as f64;
+                let slot = bar_series.iter().position(|j| *j == i).unwrap_or(0) as f64;
+                let w = 0.8 / k;
+                let base = yr.0.max(0.0).min(yr.1);
+                chart
+                    .draw_series(pts.into_iter().map(|(x, y)| {
+                        let left = x - 0.4 + slot * w;
+                        Rectangle::new(
+                            [(left, base), (left + w * 0.92, y)],
+                            colour.mix(0.85).filled(),
+                        )
+                    }))
+                    .map_err(e)?
+            }
+        };
+        anno.label(s.label.as_str())
+            .legend(move |(x, y)| Rectangle::new([(x, y - 5), (x + 18, y + 5)], colour.filled()));
+    }
+    // Fraction of the way along an axis, in the axis's own scale.
+    let frac = |v: f64, r: (f64, f64), scale: Scale| match scale {
+        Scale::Linear => (v - r.0) / (r.1 - r.0),
+        Scale::Log => (v / r.0).ln() / (r.1 / r.0).ln(),
+    };
+    for m in &fig.markers {
+        use plotters::style::text_anchor::{HPos, Pos, VPos};
+        let (line, label, at, pos) = match m {
+            Marker::X(x, l) if usable(*x, fig.x.scale) && *x >= xr.0 && *x <= xr.1 => {
+                // Label beside the line, on the side with room, just under the top edge.
+                let right_half = frac(*x, xr, fig.x.scale) > 0.6;
+                let h = if right_half { HPos::Right } else { HPos::Left };
+                let text = if right_half {
+                    format!("{l} ")
+                } else {
+                    format!(" {l}")
+                };
+                (
+                    vec![(*x, yr.0), (*x, yr.1)],
+                    text,
+                    (*x, yr.1),
+                    Pos::new(h, VPos::Top),
+                )
+            }
+            Marker::Y(y, l) if usable(*y, fig.y.scale) && *y >= yr.0 && *y <= yr.1 => {
+                // Label above the line, at the end away from the legend.
+                let line = vec![(xr.0, *y), (xr.1, *y)];
+                if fig.legend == Legend::UpperLeft {
+                    (
+                        line,
+                        format!("{l} "),
+                        (xr.1, *y),
+                        Pos::new(HPos::Right, VPos::Bottom),
+                    )
+                } else {
+                    (
+                        line,
+                        format!(" {l}"),
+                        (xr.0, *y),
+                        Pos::new(HPos::Left, VPos::Bottom),
+                    )
+                }
+            }
+            _ => continue,
+        };
+        chart
+            .draw_series(DashedLineSeries::new(line, 6, 4, MARKER.stroke_width(1)))
+            .map_err(e)?;
+        chart
+            .draw_series(std::iter::once(Text::new(
+                label,
+                at,
+                ("sans-serif", 14).into_font().color(&MARKER).pos(pos),
+            )))
+            .map_err(e)?;
+    }
+    let labelled = fig.series.len() + fig.bands.len();
+    if labelled > 1 {
+        chart
+            .configure_series_labels()
+            .background_style(WHITE.mix(0.85))
+            .border_style(RGBColor(180, 180, 180))
+            .label_font(("sans-serif", 15))
+            .position(match fig.legend {
+                Legend::UpperLeft => SeriesLabelPosition::UpperLeft,
+                Legend::UpperRight => SeriesLabelPosition::UpperRight,
+                Legend::LowerRight => SeriesLabelPosition::LowerRight,
+            })
+            .draw()
+            .map_err(e)?;
+    }
+    root.present().map_err(e)?;
+    Ok(())
+}
+
+fn render<DB: DrawingBackend>(root: DrawingArea<DB, Shift>, fig: &Figure) -> Result<(), String> {
+    register_fonts()?;
+    let xs = fig
+        .series
+        .iter()
+        .flat_map(|s| s.points.iter().map(|p| p.0))
+        .chain(fig.markers.iter().filter_map(|m| match m {
+            Marker::X(x, _) => Some(*x),
+            Marker::Y(..) => None,
+        }));
+    let bars = fig.series.iter().any(|s| s.style == Style::Bars);
+    let xr = if bars {
+        // Bars sit on integer positions: half a slot of room each side, no padding.
+        let (lo, hi) = fig
+            .series
+            .iter()
+            .flat_map(|s| s.points.iter().map(|p| p.0))
+            .filter(|x| x.is_finite())
+            .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), x| {
+                (a.min(x), b.max(x))
+            });
+        if lo.is_finite() {
+            (lo - 0.6, hi + 0.6)
+        } else {
+            (0.0, 1.0)
+        }
+    } else {
+        range(xs, fig.x.scale)
+    };
+    let ys = fig
+        .series
+        .iter()
+        .flat_map(|s| s.points.iter().map(|p| p.1))
+        .chain(fig.markers.iter().filter_map(|m| match m {
+            Marker::Y(y, _) => Some(*y),
+            Marker::X(..) => None,
+        }))
+        .chain(fig.bands.iter().flat_map(|b| [b.lo, b.hi]));
+    let mut yr = range(ys, fig.y.scale);
+    if bars && fig.y.scale == Scale::Linear {
+        yr.0 = yr.0.min(0.0);
+    }
+    if let Some((lo, hi)) = fig.y_limits {
+        yr = (lo, hi);
+    }
+    match (fig.x.scale, fig.y.scale) {
+        (Scale::Linear, Scale::Linear) => draw(&root, fig, xr.0..xr.1, yr.0..yr.1, xr, yr),
+        (Scale::Log, Scale::Linear) => {
+            draw(&root, fig, (xr.0..xr.1).log_scale(), yr.0..yr.1, xr, yr)
+        }
+        (Scale::Linear, Scale::Log) => {
+            draw(&root, fig, xr.0..xr.1, (yr.0..yr.1).log_scale(), xr, yr)
+        }
+        (Scale::Log, Scale::Log) => draw(
+            &root,
+            fig,
+            (xr.0..xr.1).log_scale(),
+            (yr.0..yr.1).log_scale(),
+            xr,
+            yr,
+        ),
+    }
+}
+
+/// Render a figure as SVG text.
+pub fn svg(fig: &Figure) -> Result<String, PlotError> {
+    let mut out = String::new();
+    {
+        let root = SVGBackend::with_string(&mut out, (WIDTH, HEIGHT)).into_drawing_area();
+        render(root, fig).map_err(|reason| PlotError::Draw {
+            figure: fig.name.clone(),
+            reason,
+        })?;
+    }
+    Ok(out)
+}
+
+/// Render a figure as PNG into the file at `path` (the caller handles atomic placement).
+pub fn png(fig: &Figure, path: &Path) -> Result<(), PlotError> {
+    let root = BitMapBackend::new(path, (WIDTH, HEIGHT)).into_drawing_area();
+    render(root, fig).map_err(|reason| PlotError::Draw {
+        figure: fig.name.clone(),
+        reason,
+    })
+}
