@@ -349,6 +349,13 @@ impl Network {
             // Current rows relative to the current they carry (never below the cathode current).
             scale[2 * j + 1] = 1.0 / x[2 * j + 1].abs().max(ik.abs()).max(1e-300);
         }
+        // The anode row, (Vs − Va)/R − t, subtracts two potentials near the supply: its
+        // round-off is about ε·Vs/R, which with a small load and a weak divider (GΩ parts) is
+        // far above 1e-10·i0, and Newton's method would stall there. With this floor the row
+        // is converged once the anode potential is within 100·ε·Vs (25 pV at 1.1 kV), which
+        // moves no figure.
+        let floor = 1e12 * f64::EPSILON * self.supply.abs() / self.anode_resistance;
+        scale[2 * n] = 1.0 / i0.max(floor).max(1e-300);
     }
 
     /// Solve at a given cathode (photo)current, starting from `start` when given.
@@ -553,26 +560,30 @@ impl Network {
     }
 
     /// Solve for the cathode current that gives average anode current `anode` (amperes).
+    ///
+    /// A secant iteration from the small-signal guess first; should it fail (deep in saturation
+    /// the guess can land where Newton's method fails, and near the top of the curve the slope
+    /// vanishes), the request is bracketed by walking up from a light load and bisected, so an
+    /// impossible request ends as `Unreachable` with the most the divider delivers.
     pub fn solve_anode_raw(
+        &self,
+        anode: f64,
+        ws: &mut Workspace,
+    ) -> Result<OperatingPoint, SolveError> {
+        match self.solve_anode_secant(anode, ws) {
+            Ok(op) => Ok(op),
+            Err(first) => self.solve_anode_bracketed(anode, ws)?.ok_or(first),
+        }
+    }
+
+    fn solve_anode_secant(
         &self,
         anode: f64,
         ws: &mut Workspace,
     ) -> Result<OperatingPoint, SolveError> {
         let g0 = self.small_signal_gain();
         let mut ik = anode / g0;
-        let mut op = match self.solve_raw(ik, None, ws) {
-            Ok(op) => op,
-            // Deep in saturation the small-signal guess can land where Newton's method fails:
-            // walk up from a light load instead, following the curve, so that an impossible
-            // request ends as `Unreachable` with the current the divider does deliver.
-            Err(first) => match self.ramp_to(anode, ik, ws)? {
-                Some(op) => {
-                    ik = op.cathode_amps;
-                    op
-                }
-                None => return Err(first),
-            },
-        };
+        let mut op = self.solve_raw(ik, None, ws)?;
         // Secant iteration on ln(t) against ln(ik).
         let mut prev: Option<(f64, f64)> = None;
         let mut best = op.anode_amps();
@@ -605,45 +616,133 @@ impl Network {
         })
     }
 
-    /// Continuation for [`Network::solve_anode_raw`]: raise the cathode current from a light
-    /// load in steps of 2x, warm-starting each solve, until the anode current reaches `anode`.
-    /// `Ok(None)` when even the light load does not solve; `Unreachable` when the anode current
-    /// stops rising (saturation) before reaching `anode`.
-    fn ramp_to(
+    /// Fallback of [`Network::solve_anode_raw`]: raise the cathode current from a light load in
+    /// steps of 2x (each solve warm-started from the last) until the anode current passes
+    /// `anode`, then bisect on ln(ik). Past saturation the curve of anode current against
+    /// cathode current has a top and, further on, other branches; the walk follows the branch a
+    /// base reaches as the light rises, and its top (refined by golden-section search) is the
+    /// most the divider delivers. `Ok(None)` when even the light load does not solve.
+    fn solve_anode_bracketed(
         &self,
         anode: f64,
-        guess: f64,
         ws: &mut Workspace,
     ) -> Result<Option<OperatingPoint>, SolveError> {
         let (i0, _) = self.quiescent();
         let g0 = self.small_signal_gain();
-        let mut ik = (1e-3 * i0 / g0).min(guess);
-        let Ok(mut op) = self.solve_raw(ik, None, ws) else {
+        let ik = (1e-3 * i0 / g0).min(anode / g0);
+        let Ok(first) = self.solve_raw(ik, None, ws) else {
             return Ok(None);
         };
-        let mut best = op.anode_amps();
-        // 2^60 spans any plausible distance from the light load to the request.
-        for _ in 0..60 {
-            if op.anode_amps() >= anode {
-                return Ok(Some(op));
+        if first.anode_amps() >= anode {
+            return Ok(Some(first));
+        }
+        // Walk: `prev` < `lo` (the highest so far) while rising.
+        let mut prev: Option<OperatingPoint> = None;
+        let mut lo = first;
+        let mut bracket = None;
+        // 2^80 spans any distance from the light load to a request.
+        for _ in 0..80 {
+            let Ok(next) = self.solve_raw(lo.cathode_amps * 2.0, Some(&lo), ws) else {
+                break;
+            };
+            if next.anode_amps() >= anode {
+                bracket = Some((lo.clone(), next));
+                break;
             }
-            ik *= 2.0;
-            match self.solve_raw(ik, Some(&op), ws) {
-                Ok(next) => {
-                    let rising = next.anode_amps() > best * (1.0 + 1e-6);
-                    best = best.max(next.anode_amps());
-                    op = next;
-                    if !rising && ik > 1e3 * guess {
-                        break;
+            if next.anode_amps() <= lo.anode_amps() {
+                // Past the top: search it between the neighbours of the highest point.
+                let left = prev
+                    .as_ref()
+                    .map_or(lo.cathode_amps * 0.5, |p| p.cathode_amps);
+                match self.top_between(anode, left, &lo, next.cathode_amps, ws) {
+                    Ok(pair) => bracket = Some(pair),
+                    Err(reached) => {
+                        return Err(SolveError::Unreachable {
+                            wanted: anode,
+                            reached,
+                        });
                     }
                 }
-                Err(_) => break,
+                break;
+            }
+            prev = Some(std::mem::replace(&mut lo, next));
+        }
+        let Some((mut lo, mut hi)) = bracket else {
+            return Err(SolveError::Unreachable {
+                wanted: anode,
+                reached: lo.anode_amps(),
+            });
+        };
+        // Bisection on ln(ik): the anode current is continuous along the branch.
+        for _ in 0..200 {
+            let mid = (lo.cathode_amps * hi.cathode_amps).sqrt();
+            let op = self.solve_raw(mid, Some(&lo), ws)?;
+            let err = op.anode_amps() / anode - 1.0;
+            if err.abs() < 1e-12 || hi.cathode_amps / lo.cathode_amps - 1.0 < 1e-15 {
+                return Ok(Some(op));
+            }
+            if err < 0.0 {
+                lo = op;
+            } else {
+                hi = op;
             }
         }
-        Err(SolveError::Unreachable {
-            wanted: anode,
-            reached: best,
-        })
+        Ok(Some(hi))
+    }
+
+    /// Golden-section search for the top of the anode current on `[left, right]` (cathode
+    /// currents, `top` inside). Returns a bracket `(below, at_or_above)` of `anode` as soon as a
+    /// point reaches it, or `Err(highest anode current found)`.
+    fn top_between(
+        &self,
+        anode: f64,
+        left: f64,
+        top: &OperatingPoint,
+        right: f64,
+        ws: &mut Workspace,
+    ) -> Result<(OperatingPoint, OperatingPoint), f64> {
+        let phi = 0.5 * (5f64.sqrt() - 1.0);
+        let (mut a, mut b) = (left.ln(), right.ln());
+        let mut best = top.clone();
+        for _ in 0..40 {
+            // Probe the larger side of the best point, golden-section style.
+            let x = best.cathode_amps.ln();
+            let probe = if b - x > x - a {
+                x + (1.0 - phi) * (b - x)
+            } else {
+                x - (1.0 - phi) * (x - a)
+            };
+            let Ok(op) = self.solve_raw(probe.exp(), Some(&best), ws) else {
+                break;
+            };
+            if op.anode_amps() >= anode {
+                // The rising side below `probe` holds `anode`: bracket with the light side.
+                return if probe > x {
+                    Ok((best, op))
+                } else {
+                    match self.solve_raw(a.exp(), Some(&op), ws) {
+                        Ok(low) if low.anode_amps() < anode => Ok((low, op)),
+                        _ => Err(op.anode_amps()),
+                    }
+                };
+            }
+            if op.anode_amps() > best.anode_amps() {
+                if probe > x {
+                    a = x;
+                } else {
+                    b = x;
+                }
+                best = op;
+            } else if probe > x {
+                b = probe;
+            } else {
+                a = probe;
+            }
+            if b - a < 1e-9 {
+                break;
+            }
+        }
+        Err(best.anode_amps())
     }
 
     /// Typed form of [`Network::solve_anode_raw`].

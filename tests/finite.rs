@@ -38,7 +38,11 @@ pub fn json_unexpected_null(v: &Value) -> Option<String> {
         match v {
             Value::Null => match key {
                 Some(k) if NULLABLE_KEYS.contains(&k) => None,
-                _ => Some(if path.is_empty() { "(root)".to_string() } else { path.clone() }),
+                _ => Some(if path.is_empty() {
+                    "(root)".to_string()
+                } else {
+                    path.clone()
+                }),
             },
             Value::Number(n) => {
                 // serde_json never holds a non-finite number, but an f64 that is one is a bug.

@@ -7,9 +7,15 @@ mod bad_input;
 mod common;
 /// The core model against textbook laws and worked examples.
 mod core;
+/// Numerical edge cases; no NaN or infinity in any command's JSON.
+mod edge_cases;
+/// Shared check for non-finite figures in reports (also used by the fuzz target).
+mod finite;
 /// The DC operating point against ngspice on the same netlist.
 mod ngspice_dc;
 /// Figures, HTML, Markdown, JSON schema, netlist and output hygiene.
 mod outputs;
 /// Invariants over random valid designs.
 mod properties;
+/// Plausibility warnings: triggered one by one, shown in every format, never blocking.
+mod warnings;

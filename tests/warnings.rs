@@ -1,0 +1,233 @@
+//! Plausibility warnings: each one triggered by a design made for it, shown in every report
+//! format (text, JSON, and whatever formats `report::Format` gains), and never blocking: the
+//! report is still written, exit 0, and exit 1 only with `--strict`.
+//!
+//! Sources of the thresholds are named beside each case: the tube's own ratings (from the
+//! design), common practice (divider current at least ten times the anode current, capacitor
+//! rating at least the voltage it holds), IEC 60115-1 (resistor rated voltage, from memory) and
+//! IEC 60204-1 §6.2.4 (5 s to 60 V after switch-off, from memory).
+
+use clap::ValueEnum;
+use dynode::{analysis, design, report};
+
+/// A valid 10-stage cathode-negative design of our own (invented numbers) that raises no
+/// warning; each case changes one thing in it.
+pub const BASE: &str = r#"(
+    name: "Warning base: 10-stage tube, cathode-negative (invented numbers)",
+    tube: (
+        stages: 10,
+        gain: Reference(volts: "1000 V", gain: 1.0e6, exponent: Some(0.75)),
+        reference_ratio: Some([2, 1, 1, 1, 1, 1, 1, 1, 1, 1, 1]),
+        collection: Some("90 %"),
+        limits: (
+            max_supply: "1500 V",
+            max_gap: Some("300 V"),
+            max_anode_current: "100 uA",
+        ),
+        pulse_linearity: Some((peak_current: "30 mA", deviation: Some("2 %"), last_gap: "90 V")),
+    ),
+    supply: (
+        volts: "-1100 V",
+        polarity: CathodeNegative,
+        current_limit: Some("1 mA"),
+    ),
+    divider: (
+        gaps: [R("1M"), R("470k"), R("470k"), R("470k"), R("470k"), R("470k"),
+               R("470k"), R("470k"), R("470k"), R("470k"), R("470k")],
+        decoupling: [
+            Across(gap: 10, value: "4.7 nF", rating: Some("500 V")),
+            Across(gap: 11, value: "10 nF", rating: Some("500 V")),
+        ],
+    ),
+    load: (
+        resistance: "50 ohm",
+        capacitance: Some("15 pF"),
+    ),
+    resistors: Some((power: "0.25 W", working_voltage: "250 V", tolerance: Some("1 %"))),
+    operating: Some((anode_current: "2 uA")),
+)"#;
+
+/// `BASE` with each `(from, to)` replaced; every `from` must occur exactly once.
+pub fn variant(changes: &[(&str, &str)]) -> String {
+    let mut text = BASE.to_string();
+    for (from, to) in changes {
+        assert_eq!(
+            text.matches(from).count(),
+            1,
+            "`{from}` must occur once in BASE"
+        );
+        text = text.replace(from, to);
+    }
+    text
+}
+
+fn collapse(s: &str) -> String {
+    s.split_whitespace().collect::<Vec<_>>().join(" ")
+}
+
+/// Analyse `text` and return its warnings, after checking that `words` appear in one warning
+/// and, with wrapping undone, in the report of every format.
+fn warns(text: &str, words: &[&str]) -> Vec<String> {
+    let d = design::parse_str(text, "case.ron").expect("the case design is valid");
+    let a = analysis::analyse(&d).expect("the case design solves");
+    let hit = a
+        .warnings
+        .iter()
+        .any(|w| words.iter().all(|x| w.contains(x)));
+    assert!(hit, "no warning with {words:?} in {:#?}", a.warnings);
+    for format in report::Format::value_variants() {
+        let out = collapse(&report::render(&a, *format));
+        for w in words {
+            assert!(out.contains(w), "{format:?} report lacks `{w}`");
+        }
+    }
+    let json = report::json::to_value(&a);
+    let listed = json["warnings"].as_array().expect("warnings array");
+    assert!(
+        listed
+            .iter()
+            .any(|w| words.iter().all(|x| w.as_str().unwrap_or("").contains(x))),
+        "JSON warnings lack {words:?}"
+    );
+    a.warnings
+}
+
+#[test]
+fn the_base_design_raises_no_warning() {
+    // Otherwise every case below would pass for the wrong reason.
+    let d = design::parse_str(BASE, "base.ron").expect("valid");
+    let a = analysis::analyse(&d).expect("solves");
+    assert!(a.warnings.is_empty(), "{:#?}", a.warnings);
+}
+
+#[test]
+fn gap_over_the_tube_limit_under_load() {
+    // The tube's gap rating (the design's own tube.limits.max_gap). With no current K–D1 holds
+    // 193 V (1 MΩ of 5.7 MΩ on 1100 V, Ohm's law); at 40 µA the lower gaps sag and it rises
+    // above 195 V, so the check passes and the warning must speak.
+    let w = warns(
+        &variant(&[
+            (r#"max_gap: Some("300 V")"#, r#"max_gap: Some("195 V")"#),
+            (r#"anode_current: "2 uA""#, r#"anode_current: "40 uA""#),
+        ]),
+        &["Gap 1 (K–D1)", "above the tube's gap limit of 195 V"],
+    );
+    assert!(!w.is_empty());
+    let d = design::parse_str(
+        &variant(&[
+            (r#"max_gap: Some("300 V")"#, r#"max_gap: Some("195 V")"#),
+            (r#"anode_current: "2 uA""#, r#"anode_current: "40 uA""#),
+        ]),
+        "case.ron",
+    )
+    .expect("valid");
+    let json = report::json::to_value(&analysis::analyse(&d).expect("solves"));
+    assert_eq!(json["gaps"][0]["over_gap_limit"], true);
+}
+
+#[test]
+fn anode_current_over_the_rating() {
+    // The tube's average anode-current rating (tube.limits.max_anode_current = 100 µA).
+    warns(
+        &variant(&[(r#"anode_current: "2 uA""#, r#"anode_current: "150 uA""#)]),
+        &["average anode current 150 µA is above the tube's rating of 100 µA"],
+    );
+}
+
+#[test]
+fn divider_current_below_ten_times_the_anode_current() {
+    // Common practice: the divider carries at least ten times the average anode current.
+    // 1100 V / 5.7 MΩ = 193 µA (Ohm's law) against 30 µA is 6.4×.
+    warns(
+        &variant(&[(r#"anode_current: "2 uA""#, r#"anode_current: "30 uA""#)]),
+        &["divider current 193 µA is less than ten times the anode current 30.0 µA"],
+    );
+}
+
+#[test]
+fn resistor_power_over_rating() {
+    // P = V²/R: K–D1 holds 193 V on 1 MΩ, 37.3 mW, above a 30 mW part (Joule's law).
+    warns(
+        &variant(&[(r#"power: "0.25 W""#, r#"power: "0.03 W""#)]),
+        &["Gap 1 (K–D1) dissipates 37.3 mW, above the resistor's 30.0 mW rating"],
+    );
+}
+
+#[test]
+fn resistor_voltage_over_rating() {
+    // Rated voltage min(√(P·R), working voltage) (IEC 60115-1, from memory): min(500 V, 150 V).
+    warns(
+        &variant(&[(r#"working_voltage: "250 V""#, r#"working_voltage: "150 V""#)]),
+        &[
+            "Gap 1 (K–D1) puts 193 V across its resistor",
+            "rated voltage of 150 V",
+        ],
+    );
+}
+
+#[test]
+fn capacitor_rating_below_the_gap_voltage() {
+    // Common practice: a capacitor is rated at least for the voltage it holds (90 V here).
+    warns(
+        &variant(&[(
+            r#"value: "10 nF", rating: Some("500 V")"#,
+            r#"value: "10 nF", rating: Some("50 V")"#,
+        )]),
+        &[
+            "decoupling across gap 11",
+            "is rated 50.0 V but holds 89.9 V",
+        ],
+    );
+}
+
+#[test]
+fn bleed_time_over_five_seconds() {
+    // IEC 60204-1 §6.2.4 (from memory): 60 V within 5 s. 1 µF on 5.7 MΩ: τ = 5.7 s, and
+    // 1100 V → 60 V takes τ·ln(1100/60) = 16.6 s (RC discharge law).
+    warns(
+        &variant(&[(
+            r#"current_limit: Some("1 mA"),"#,
+            r#"current_limit: Some("1 mA"), output_capacitance: Some("1 uF"),"#,
+        )]),
+        &[
+            "Bleed-down to 60 V takes 16.6 s",
+            "over the 5 s of IEC 60204-1",
+        ],
+    );
+}
+
+#[test]
+fn warnings_never_block_and_strict_turns_them_into_exit_1() {
+    let dir = crate::common::temp_dir("strict");
+    let design = dir.join("hot.ron");
+    std::fs::write(
+        &design,
+        variant(&[(r#"anode_current: "2 uA""#, r#"anode_current: "150 uA""#)]),
+    )
+    .expect("write");
+    let bin = env!("CARGO_BIN_EXE_dynode");
+    let out = dir.join("r.txt");
+    let o = std::process::Command::new(bin)
+        .args([
+            "report",
+            design.to_str().expect("utf-8"),
+            "-o",
+            out.to_str().expect("utf-8"),
+        ])
+        .output()
+        .expect("runs");
+    assert_eq!(o.status.code(), Some(0), "warnings must not block");
+    assert!(
+        collapse(&std::fs::read_to_string(&out).expect("written"))
+            .contains("above the tube's rating")
+    );
+    let o = std::process::Command::new(bin)
+        .args(["report", design.to_str().expect("utf-8"), "--strict"])
+        .output()
+        .expect("runs");
+    assert_eq!(o.status.code(), Some(1), "--strict with warnings exits 1");
+    assert!(
+        !o.stdout.is_empty(),
+        "the report is still printed under --strict"
+    );
+}
