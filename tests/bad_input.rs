@@ -428,6 +428,10 @@ const COMMANDS: &[&[&str]] = &[
     &["check", "{design}"],
     &["report", "{design}", "--format", "json", "-o", "{out}"],
     &["report", "{design}", "-o", "{out}"],
+    &["report", "{design}", "--format", "html", "-o", "{out}"],
+    &["report", "{design}", "--format", "markdown", "-o", "{out}"],
+    // The figures directory must not be created for a bad design either.
+    &["report", "{design}", "--plots", "{out}"],
     &["netlist", "{design}", "-o", "{out}"],
 ];
 

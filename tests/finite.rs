@@ -85,7 +85,17 @@ pub fn json_unexpected_null(v: &Value) -> Option<String> {
 }
 
 /// The first word of `text` that is how a non-finite figure prints (`NaN`, `inf`, `n/a`), with
-/// its line, if any.
+/// its line, if any. Text the user wrote (the design's name, notes, file path: pass them in
+/// `theirs`) is blanked first, so a design named "NaN" is not taken for a figure.
+pub fn text_non_finite_except(text: &str, theirs: &[&str]) -> Option<String> {
+    let mut text = text.to_string();
+    for t in theirs.iter().filter(|t| !t.is_empty()) {
+        text = text.replace(t, " ");
+    }
+    text_non_finite(&text)
+}
+
+/// As [`text_non_finite_except`] with nothing to blank.
 pub fn text_non_finite(text: &str) -> Option<String> {
     for line in text.lines() {
         let words = line.split(|c: char| c.is_whitespace() || c == '(' || c == ')' || c == ',');

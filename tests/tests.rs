@@ -11,6 +11,8 @@ mod core;
 mod edge_cases;
 /// Shared check for non-finite figures in reports (also used by the fuzz target).
 mod finite;
+/// Hostile input as properties: arbitrary bytes, byte- and value-mutated designs.
+mod hostile;
 /// The DC operating point against ngspice on the same netlist.
 mod ngspice_dc;
 /// Figures, HTML, Markdown, JSON schema, netlist and output hygiene.
