@@ -161,6 +161,7 @@ impl OperatingPoint {
 pub struct Workspace {
     jac: Vec<f64>,
     res: Vec<f64>,
+    res_trial: Vec<f64>,
     dx: Vec<f64>,
     x: Vec<f64>,
     trial: Vec<f64>,
@@ -269,11 +270,11 @@ impl Network {
         let ti = |j: usize| 2 * (j - 1) + 1; // index of t_j
         let mut jac = jac;
         if let Some(jm) = jac.as_deref_mut() {
-            jm[..m * m].iter_mut().for_each(|a| *a = 0.0);
+            jm[..m * BAND].iter_mut().for_each(|a| *a = 0.0);
         }
         let set = |jm: &mut Option<&mut [f64]>, r: usize, c: usize, val: f64| {
             if let Some(jm) = jm.as_deref_mut() {
-                jm[r * m + c] += val;
+                jm[band_index(r, c)] += val;
             }
         };
         // Current equations C_j, rows ti(j).
@@ -474,10 +475,11 @@ impl Network {
     ) -> Result<usize, SolveError> {
         let n = self.stages();
         let m = 2 * (n + 1);
-        ws.jac.resize(m * m, 0.0);
+        ws.jac.resize(m * BAND, 0.0);
         ws.res.resize(m, 0.0);
         ws.dx.resize(m, 0.0);
         ws.trial.resize(m, 0.0);
+        ws.res_trial.resize(m, 0.0);
         let mut scale = std::mem::take(&mut ws.scale);
         let max_iter = 60;
         let mut norm = f64::INFINITY;
@@ -491,15 +493,20 @@ impl Network {
                 if let Some(jm) = jac {
                     for j in 0..=n {
                         let i = 2 * j;
-                        jm[i * m + i] -= c;
+                        jm[band_index(i, i)] -= c;
                     }
                 }
             }
         };
+        // The residual and Jacobian at the accepted trial point are kept for the next step, so
+        // that each Newton step costs one evaluation when no backtracking is needed.
+        let mut have = false;
         for iter in 0..max_iter {
             self.row_scales(ik, ws.i0, x, &mut scale);
-            self.evaluate(ik, x, &mut ws.res, Some(&mut ws.jac));
-            add_pseudo(x, &mut ws.res, Some(&mut ws.jac));
+            if !have {
+                self.evaluate(ik, x, &mut ws.res, Some(&mut ws.jac));
+                add_pseudo(x, &mut ws.res, Some(&mut ws.jac));
+            }
             norm = Self::scaled_norm(&ws.res, &scale);
             ws.dx.copy_from_slice(&ws.res);
             if !band_solve(&mut ws.jac, &mut ws.dx, m) {
@@ -525,9 +532,9 @@ impl Network {
                 for i in 0..m {
                     ws.trial[i] = x[i] - lambda * ws.dx[i];
                 }
-                self.evaluate(ik, &ws.trial, &mut ws.res, None);
-                add_pseudo(&ws.trial, &mut ws.res, None);
-                trial_norm = Self::scaled_norm(&ws.res, &scale);
+                self.evaluate(ik, &ws.trial, &mut ws.res_trial, Some(&mut ws.jac));
+                add_pseudo(&ws.trial, &mut ws.res_trial, Some(&mut ws.jac));
+                trial_norm = Self::scaled_norm(&ws.res_trial, &scale);
                 if trial_norm.is_finite() && (trial_norm < norm || trial_norm < 1e-11) {
                     accepted = true;
                     break;
@@ -542,6 +549,8 @@ impl Network {
                 break;
             }
             x.copy_from_slice(&ws.trial);
+            std::mem::swap(&mut ws.res, &mut ws.res_trial);
+            have = true;
             let step = (0..=n)
                 .map(|j| (lambda * ws.dx[2 * j]).abs() / self.supply)
                 .fold(0.0, f64::max);
@@ -755,8 +764,19 @@ impl Network {
     }
 }
 
-/// Solve `A x = b` in place for a band matrix (`KL` below, `KU` above the diagonal) stored
-/// densely row-major; partial pivoting inside the band. Returns false when singular.
+/// Width of a row in band storage: `KL` below, the diagonal, `KU` above and `KL` more above for
+/// the fill-in that row pivoting brings.
+const BAND: usize = 2 * KL + KU + 1;
+
+/// Position of entry (r, c) of a band matrix in row-major band storage (`c >= r - KL`).
+#[inline]
+fn band_index(r: usize, c: usize) -> usize {
+    r * BAND + c + KL - r
+}
+
+/// Solve `A x = b` in place for a band matrix (`KL` below, `KU` above the diagonal) in band
+/// storage ([`band_index`]), with partial pivoting inside the band. Returns false when singular.
+/// Cost O(m · KL · (KL + KU)).
 fn band_solve(a: &mut [f64], b: &mut [f64], m: usize) -> bool {
     let width = KL + KU; // fill-in reaches KL + KU above the diagonal after pivoting
     for k in 0..m {
@@ -764,9 +784,9 @@ fn band_solve(a: &mut [f64], b: &mut [f64], m: usize) -> bool {
         let last_col = (k + width).min(m - 1);
         // Pivot.
         let mut p = k;
-        let mut best = a[k * m + k].abs();
+        let mut best = a[band_index(k, k)].abs();
         for r in k + 1..=last_row {
-            let val = a[r * m + k].abs();
+            let val = a[band_index(r, k)].abs();
             if val > best {
                 best = val;
                 p = r;
@@ -777,17 +797,19 @@ fn band_solve(a: &mut [f64], b: &mut [f64], m: usize) -> bool {
         }
         if p != k {
             for c in k..=last_col {
-                a.swap(k * m + c, p * m + c);
+                a.swap(band_index(k, c), band_index(p, c));
             }
             b.swap(k, p);
         }
-        let piv = a[k * m + k];
+        let piv = a[band_index(k, k)];
+        let row_k = band_index(k, k);
         for r in k + 1..=last_row {
-            let f = a[r * m + k] / piv;
+            let f = a[band_index(r, k)] / piv;
             if f != 0.0 {
-                a[r * m + k] = 0.0;
-                for c in k + 1..=last_col {
-                    a[r * m + c] -= f * a[k * m + c];
+                a[band_index(r, k)] = 0.0;
+                let row_r = band_index(r, k);
+                for d in 1..=last_col - k {
+                    a[row_r + d] -= f * a[row_k + d];
                 }
                 b[r] -= f * b[k];
             }
@@ -795,11 +817,12 @@ fn band_solve(a: &mut [f64], b: &mut [f64], m: usize) -> bool {
     }
     for k in (0..m).rev() {
         let last_col = (k + width).min(m - 1);
+        let row_k = band_index(k, k);
         let mut s = b[k];
-        for c in k + 1..=last_col {
-            s -= a[k * m + c] * b[c];
+        for d in 1..=last_col - k {
+            s -= a[row_k + d] * b[k + d];
         }
-        b[k] = s / a[k * m + k];
+        b[k] = s / a[row_k];
     }
     true
 }
@@ -812,7 +835,7 @@ mod tests {
     fn band_solver_matches_a_dense_example() {
         // 6x6 matrix inside the band with a pivot needed in the first column.
         let m = 6;
-        let mut a = vec![0.0; m * m];
+        let mut dense = vec![0.0; m * m];
         let vals = [
             (0, 0, 1e-6),
             (0, 1, 2.0),
@@ -831,14 +854,15 @@ mod tests {
             (5, 4, 2.0),
             (5, 5, 7.0),
         ];
+        let mut lu = vec![0.0; m * BAND];
         for (r, c, v) in vals {
-            a[r * m + c] = v;
+            dense[r * m + c] = v;
+            lu[band_index(r, c)] = v;
         }
         let x_true = [1.0, -2.0, 3.0, 0.5, -1.5, 2.5];
         let mut b: Vec<f64> = (0..m)
-            .map(|r| (0..m).map(|c| a[r * m + c] * x_true[c]).sum())
+            .map(|r| (0..m).map(|c| dense[r * m + c] * x_true[c]).sum())
             .collect();
-        let mut lu = a.clone();
         assert!(band_solve(&mut lu, &mut b, m));
         for (x, t) in b.iter().zip(x_true) {
             assert!((x - t).abs() < 1e-9, "{x} vs {t}");
@@ -875,7 +899,7 @@ mod jacobian_tests {
             x.push(op.potentials[j]);
             x.push(op.tube_currents[j]);
         }
-        let mut jac = vec![0.0; m * m];
+        let mut jac = vec![0.0; m * BAND];
         let mut r0 = vec![0.0; m];
         net.evaluate(ik, &x, &mut r0, Some(&mut jac));
         for c in 0..m {
@@ -894,7 +918,11 @@ mod jacobian_tests {
             net.evaluate(ik, &xm, &mut rm, None);
             for r in 0..m {
                 let num = (rp[r] - rm[r]) / (2.0 * h);
-                let ana = jac[r * m + c];
+                let ana = if c + KL >= r && c <= r + KU {
+                    jac[band_index(r, c)]
+                } else {
+                    0.0
+                };
                 let tol = 1e-5 * (num.abs() + ana.abs()) + 1e-14;
                 assert!(
                     (num - ana).abs() <= tol,
