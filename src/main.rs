@@ -54,7 +54,7 @@ struct OutputArgs {
 enum Command {
     /// Solve the divider with the tube's currents and print the full report.
     #[command(
-        after_help = "Example:\n  dynode report designs/rooftop-paddle.ron --format json -o paddle.json"
+        after_help = "Examples:\n  dynode report designs/rooftop-paddle.ron\n  dynode report designs/rooftop-paddle.ron --format json -o paddle.json\n  dynode report designs/rooftop-paddle.ron --format html -o paddle.html --plots figures/"
     )]
     Report {
         /// The design file (RON).
