@@ -178,13 +178,19 @@ fn run() -> ExitCode {
                 Ok(a) => a,
                 Err(e) => return fail(&e, analysis_exit(&e)),
             };
+            let figs = plots.as_ref().map(|_| report::figures::all(&a));
+            // Refuse a bad figures directory before the report is written.
+            if let (Some(dir), Some(figs)) = (&plots, &figs)
+                && let Err(e) = output::check_figures(dir, figs, &[design.as_path()], out.force)
+            {
+                return fail(e, Exit::BadInput);
+            }
             let text = report::render(&a, format);
             if let Err(code) = emit(&text, &out, &design) {
                 return code;
             }
-            if let Some(dir) = &plots {
-                let figs = report::figures::all(&a);
-                match output::write_figures(dir, &figs, &[design.as_path()], out.force) {
+            if let (Some(dir), Some(figs)) = (&plots, &figs) {
+                match output::write_figures(dir, figs, &[design.as_path()], out.force) {
                     Ok(paths) => {
                         if !out.quiet {
                             eprintln!(
@@ -244,6 +250,12 @@ fn run() -> ExitCode {
             let mut ws = dynode::network::Workspace::default();
             let op = match a.network.solve_anode(anode, &mut ws) {
                 Ok(op) => op,
+                Err(e @ dynode::network::SolveError::Unreachable { .. }) => {
+                    return fail(
+                        format!("{}: --anode-current: {e}", d.source),
+                        Exit::BadInput,
+                    );
+                }
                 Err(e) => return fail(format!("{}: {e}", d.source), Exit::SolveFailed),
             };
             let text = netlist::write(

@@ -78,6 +78,29 @@ pub fn write_atomic(
     Ok(())
 }
 
+/// Check that [`write_figures`] may write into `dir`, writing nothing: `dir` is a directory or
+/// absent, and no figure file is an input or exists without `force`. Callers run it before
+/// writing anything else, so a refusal leaves no report behind either.
+pub fn check_figures(
+    dir: &Path,
+    figures: &[crate::plot::Figure],
+    inputs: &[&Path],
+    force: bool,
+) -> Result<(), OutputError> {
+    if dir.exists() && !dir.is_dir() {
+        return Err(OutputError::Io {
+            path: dir.display().to_string(),
+            reason: "--plots expects a directory, and this is a file".to_string(),
+        });
+    }
+    for f in figures {
+        for ext in ["svg", "png"] {
+            check_target(&dir.join(format!("{}.{ext}", f.name)), inputs, force)?;
+        }
+    }
+    Ok(())
+}
+
 /// Write every figure as `DIR/<name>.svg` and `DIR/<name>.png`, each atomically. Refuses an
 /// existing file without `force`. Returns the paths written.
 pub fn write_figures(
@@ -90,13 +113,8 @@ pub fn write_figures(
         path: p.display().to_string(),
         reason: e,
     };
+    check_figures(dir, figures, inputs, force)?;
     std::fs::create_dir_all(dir).map_err(|e| io(dir, e.to_string()))?;
-    // Check every target first so that a refusal writes nothing.
-    for f in figures {
-        for ext in ["svg", "png"] {
-            check_target(&dir.join(format!("{}.{ext}", f.name)), inputs, force)?;
-        }
-    }
     let mut written = Vec::new();
     for f in figures {
         let svg_path = dir.join(format!("{}.svg", f.name));

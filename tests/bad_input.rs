@@ -797,3 +797,67 @@ fn an_interrupted_run_leaves_no_half_file() {
     // The last runs had time to finish: the property was seen from both sides.
     assert!(complete > 0, "no run finished in 121 ms");
 }
+
+#[test]
+fn a_refused_figures_directory_leaves_no_report_behind() {
+    let dir = temp_dir("plots-refused");
+    let design = copy_demo(&dir);
+    let report_path = dir.join("r.txt");
+    let d = design.to_str().expect("utf-8");
+    let r = report_path.to_str().expect("utf-8");
+    // --plots naming a file, not a directory.
+    let o = run(&["report", d, "-o", r, "--plots", d]);
+    let stderr = String::from_utf8_lossy(&o.stderr);
+    assert_eq!(o.status.code(), Some(2), "{stderr}");
+    assert!(stderr.contains("--plots expects a directory"), "{stderr}");
+    assert!(
+        !report_path.exists(),
+        "the report was written before the refusal"
+    );
+    // A figure file that exists, without --force.
+    let figs = dir.join("figs");
+    std::fs::create_dir(&figs).expect("mkdir");
+    std::fs::write(figs.join("linearity.svg"), "keep me").expect("write");
+    let o = run(&[
+        "report",
+        d,
+        "-o",
+        r,
+        "--plots",
+        figs.to_str().expect("utf-8"),
+    ]);
+    let stderr = String::from_utf8_lossy(&o.stderr);
+    assert_eq!(o.status.code(), Some(2), "{stderr}");
+    assert!(
+        stderr.contains("linearity.svg: the file exists; pass --force"),
+        "{stderr}"
+    );
+    assert!(
+        !report_path.exists(),
+        "the report was written before the refusal"
+    );
+    assert_eq!(
+        std::fs::read_to_string(figs.join("linearity.svg")).expect("read"),
+        "keep me"
+    );
+    assert_eq!(
+        std::fs::read_dir(&figs).expect("dir").count(),
+        1,
+        "figures were written"
+    );
+}
+
+#[test]
+fn an_unreachable_netlist_current_names_the_option() {
+    // 5 mA from a 193 µA divider (1100 V / 5.7 MΩ, Ohm's law) is beyond its ceiling.
+    let o = run(&[
+        "netlist",
+        &crate_path("designs/rooftop-paddle.ron").to_string_lossy(),
+        "--anode-current",
+        "5 mA",
+    ]);
+    let stderr = String::from_utf8_lossy(&o.stderr);
+    assert_eq!(o.status.code(), Some(2), "{stderr}");
+    assert!(stderr.contains("rooftop-paddle.ron: --anode-current: an average anode current of 5.00 mA cannot be reached"), "{stderr}");
+    assert!(o.stdout.is_empty());
+}
