@@ -892,6 +892,26 @@ fn nearest<'a>(unknown: &str, candidates: &[&'a str]) -> Option<&'a str> {
 fn check(raw: RawDesign, file: &str) -> Result<Design, DesignError> {
     let c = Checker { file };
 
+    // Free text goes to terminals and documents: no control characters (an escape sequence in a
+    // title could rewrite the terminal that shows the report); notes may hold line breaks.
+    for (field, text, allowed) in [
+        ("name", Some(&raw.name), &[][..]),
+        ("notes", raw.notes.as_ref(), &['\n', '\t'][..]),
+    ] {
+        if let Some(bad) = text.and_then(|t| {
+            t.chars()
+                .find(|ch| ch.is_control() && !allowed.contains(ch))
+        }) {
+            return Err(c.fail(
+                field,
+                format!(
+                    "expected plain text, found the control character U+{:04X}",
+                    bad as u32
+                ),
+            ));
+        }
+    }
+
     // Tube
     let t = &raw.tube;
     if !(1..=20).contains(&t.stages) {

@@ -150,8 +150,12 @@ fn run() -> ExitCode {
         }
         Command::Check { design } => match design::load(&design) {
             Ok(d) => match analysis::analyse(&d) {
-                Ok(_) => {
+                Ok(a) => {
                     println!("{}: the design reads and solves", design.display());
+                    // Plausibility warnings never block, but a check shows them too.
+                    for w in &a.warnings {
+                        println!("warning: {w}");
+                    }
                     ExitCode::from(Exit::Ok as u8)
                 }
                 Err(e) => fail(&e, analysis_exit(&e)),

@@ -231,3 +231,25 @@ fn warnings_never_block_and_strict_turns_them_into_exit_1() {
         "the report is still printed under --strict"
     );
 }
+
+#[test]
+fn check_shows_the_warnings_too() {
+    let dir = crate::common::temp_dir("check-warns");
+    let design = dir.join("weak.ron");
+    // 193 µA of divider current against 30 µA (common practice: at least ten times).
+    std::fs::write(
+        &design,
+        variant(&[(r#"anode_current: "2 uA""#, r#"anode_current: "30 uA""#)]),
+    )
+    .expect("write");
+    let o = std::process::Command::new(env!("CARGO_BIN_EXE_dynode"))
+        .args(["check", design.to_str().expect("utf-8")])
+        .output()
+        .expect("runs");
+    assert_eq!(o.status.code(), Some(0));
+    let out = String::from_utf8_lossy(&o.stdout);
+    assert!(
+        out.contains("warning: The divider current 193 µA is less than ten times"),
+        "{out}"
+    );
+}
