@@ -99,7 +99,32 @@ pub fn trace_points(
     let mut stopped = None;
     for i in 0..count {
         let ik = (lo + (hi - lo) * i as f64 / (count - 1) as f64).exp();
-        match continue_to(net, ik, prev.as_ref(), ws) {
+        // Predict the start by linear extrapolation from the last two points (the grid is even
+        // in ln I_k), which saves a Newton step on the smooth part of the curve.
+        let predicted = match (ops.len(), prev.as_ref()) {
+            (k, Some(p1)) if k >= 2 => {
+                let p0 = &ops[k - 2].1;
+                let mut guess = p1.clone();
+                for (g, (a, b)) in guess
+                    .potentials
+                    .iter_mut()
+                    .zip(p0.potentials.iter().zip(&p1.potentials))
+                {
+                    *g = 2.0 * b - a;
+                }
+                Some(guess)
+            }
+            _ => None,
+        };
+        let attempt = match &predicted {
+            Some(guess) => net.solve_raw(ik, Some(guess), ws).ok(),
+            None => None,
+        };
+        let solved = match attempt {
+            Some(op) => Ok(op),
+            None => continue_to(net, ik, prev.as_ref(), ws),
+        };
+        match solved {
             Ok(op) => {
                 points.push(LinearityPoint {
                     anode_amps: op.anode_amps(),

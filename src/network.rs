@@ -803,13 +803,17 @@ fn band_solve(a: &mut [f64], b: &mut [f64], m: usize) -> bool {
         }
         let piv = a[band_index(k, k)];
         let row_k = band_index(k, k);
+        let len = last_col - k;
         for r in k + 1..=last_row {
-            let f = a[band_index(r, k)] / piv;
+            let row_r = band_index(r, k);
+            let f = a[row_r] / piv;
             if f != 0.0 {
-                a[band_index(r, k)] = 0.0;
-                let row_r = band_index(r, k);
-                for d in 1..=last_col - k {
-                    a[row_r + d] -= f * a[row_k + d];
+                a[row_r] = 0.0;
+                // Rows k and r do not overlap in storage (r > k): split to borrow both.
+                let (head, tail) = a.split_at_mut(row_r);
+                let pivot_row = &head[row_k + 1..=row_k + len];
+                for (x, y) in tail[1..=len].iter_mut().zip(pivot_row) {
+                    *x -= f * y;
                 }
                 b[r] -= f * b[k];
             }
@@ -818,11 +822,13 @@ fn band_solve(a: &mut [f64], b: &mut [f64], m: usize) -> bool {
     for k in (0..m).rev() {
         let last_col = (k + width).min(m - 1);
         let row_k = band_index(k, k);
-        let mut s = b[k];
-        for d in 1..=last_col - k {
-            s -= a[row_k + d] * b[k + d];
-        }
-        b[k] = s / a[row_k];
+        let len = last_col - k;
+        let dot: f64 = a[row_k + 1..=row_k + len]
+            .iter()
+            .zip(&b[k + 1..=k + len])
+            .map(|(x, y)| x * y)
+            .sum();
+        b[k] = (b[k] - dot) / a[row_k];
     }
     true
 }
