@@ -50,6 +50,20 @@ fn pipeline(text: &str) {
         None,
         "JSON report"
     );
+    let netlist = dynode::netlist::write(
+        &d,
+        &a.network.tube,
+        &dynode::netlist::NetlistOptions {
+            cathode_amps: a.op.cathode_amps,
+            control_block: true,
+        },
+    );
+    let theirs = [
+        d.name.as_str(),
+        d.notes.as_deref().unwrap_or(""),
+        d.source.as_str(),
+    ];
+    assert_eq!(text_non_finite_except(&netlist, &theirs), None, "netlist");
 }
 
 /// One edit of a text: insert, delete or replace a few bytes at a place.

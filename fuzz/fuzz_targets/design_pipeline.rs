@@ -1,6 +1,7 @@
 //! Fuzz target: arbitrary bytes through the whole pipeline a design file goes through:
-//! UTF-8 check, RON parse, validation, tube calibration, divider solve, linearity, safety and
-//! both report formats. A panic anywhere, or a non-finite number in a report, is a finding.
+//! UTF-8 check, RON parse, validation, tube calibration, divider solve, linearity, safety,
+//! every report format and the netlist. A panic anywhere, or a non-finite number in a report,
+//! is a finding.
 #![no_main]
 
 use clap::ValueEnum;
@@ -32,6 +33,18 @@ fuzz_target!(|data: &[u8]| {
         if let Some(bad) = finite::text_non_finite_except(&report, &theirs) {
             panic!("{format:?} report shows a non-finite figure: {bad}");
         }
+    }
+    // The netlist of the same network, at the design's operating point.
+    let netlist = dynode::netlist::write(
+        &design,
+        &analysis.network.tube,
+        &dynode::netlist::NetlistOptions {
+            cathode_amps: analysis.op.cathode_amps,
+            control_block: true,
+        },
+    );
+    if let Some(bad) = finite::text_non_finite_except(&netlist, &theirs) {
+        panic!("the netlist holds a non-finite number: {bad}");
     }
     let json = dynode::report::json::to_value(&analysis);
     if let Some(path) = finite::json_unexpected_null(&json) {
