@@ -543,11 +543,15 @@ impl Checker<'_> {
         if x < lo || x > hi {
             return Err(self.fail(
                 field,
-                format!(
-                    "{v} is outside the plausible range {} to {} for this field; check the unit prefix",
-                    units::format_eng(lo, kind.symbol()),
-                    units::format_eng(hi, kind.symbol())
-                ),
+                {
+                    let sym = if kind == Kind::Resistance { "Ω" } else { kind.symbol() };
+                    format!(
+                        "{v} ({}) is outside the plausible range {} to {} for this field; check the unit prefix",
+                        units::format_eng(x, sym),
+                        units::format_eng(lo, sym),
+                        units::format_eng(hi, sym)
+                    )
+                },
             ));
         }
         Ok(x)
