@@ -230,3 +230,32 @@ proptest! {
         pipeline(&text);
     }
 }
+
+#[test]
+fn markup_in_the_design_text_is_printed_not_run() {
+    // A title or notes holding HTML must come out as text in the HTML and Markdown reports
+    // (HTML 5 §13.1: `<` starts a tag; escaping it as `&lt;` keeps it text; Markdown viewers
+    // pass raw HTML through, CommonMark §6.6).
+    let text = BASE.replacen(
+        "name: \"Warning base: 10-stage tube, cathode-negative (invented numbers)\",",
+        "name: \"<script>alert(1)</script>\", notes: Some(\"<img src=x onerror=alert(2)>\"),",
+        1,
+    );
+    let d = design::parse_str(&text, "markup.ron").expect("valid");
+    let a = analysis::analyse(&d).expect("solves");
+    for format in [report::Format::Html, report::Format::Markdown] {
+        let out = report::render(&a, format);
+        assert!(
+            !out.contains("<script>alert"),
+            "{format:?} lets a script tag through"
+        );
+        assert!(
+            !out.contains("<img src=x"),
+            "{format:?} lets an img tag through"
+        );
+        assert!(
+            out.contains("&lt;script&gt;alert(1)&lt;/script&gt;"),
+            "{format:?} drops the title"
+        );
+    }
+}

@@ -6,6 +6,14 @@ use crate::analysis::Analysis;
 use crate::report::tables::{self, Table};
 use crate::safety::CLOSING_CAUTION;
 
+/// The design's own text (name, notes) as Markdown text: no raw HTML gets through, since many
+/// Markdown viewers render it (a name like `<img onerror=…>` must print, not run).
+fn plain(s: &str) -> String {
+    s.replace('&', "&amp;")
+        .replace('<', "&lt;")
+        .replace('>', "&gt;")
+}
+
 fn cell(s: &str) -> String {
     s.replace('|', "\\|")
 }
@@ -46,10 +54,11 @@ pub fn render(a: &Analysis) -> String {
     let _ = writeln!(
         out,
         "\n# {}\n\ndynode report of design file `{}`\n",
-        d.name, d.source
+        plain(&d.name),
+        d.source
     );
     if let Some(n) = &d.notes {
-        let _ = writeln!(out, "{n}\n");
+        let _ = writeln!(out, "{}\n", plain(n));
     }
     let _ = writeln!(out, "## Design\n");
     table_md(&mut out, &tables::design(a), true);
