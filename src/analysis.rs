@@ -174,10 +174,22 @@ pub fn analyse(design: &Design) -> Result<Analysis, AnalysisError> {
             let (element, power_rating, rated_volts) = match design.elements[j] {
                 Element::Resistor(r) => {
                     let r = r.get::<ohm>();
+                    // A gap of m equal parts in series: m times one part's ratings.
+                    let m = design.series_parts.get(j).copied().unwrap_or(1).max(1) as f64;
+                    let label = if m > 1.0 {
+                        format!(
+                            "R {} ({}×{})",
+                            format_eng(r, "Ω"),
+                            m,
+                            format_eng(r / m, "Ω")
+                        )
+                    } else {
+                        format!("R {}", format_eng(r, "Ω"))
+                    };
                     (
-                        format!("R {}", format_eng(r, "Ω")),
-                        Some(p_rating),
-                        Some(rated_voltage(p_rating, r, wv)),
+                        label,
+                        Some(p_rating * m),
+                        Some(m * rated_voltage(p_rating, r / m, wv)),
                     )
                 }
                 Element::Zener(v, rz) => (

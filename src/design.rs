@@ -225,6 +225,27 @@ pub struct RawSupply {
     /// Output (filter) capacitance of the supply.
     #[serde(default)]
     pub output_capacitance: Option<Value>,
+    /// Ripple, drift and setting accuracy of the supply, and the gain stability wanted.
+    #[serde(default)]
+    pub quality: Option<RawSupplyQuality>,
+}
+
+/// How steady the supply is, and how steady the gain must be.
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct RawSupplyQuality {
+    /// Peak-to-peak ripple on the output.
+    #[serde(default)]
+    pub ripple: Option<Value>,
+    /// Drift of the output over the run, as a fraction of the setting.
+    #[serde(default)]
+    pub drift: Option<Value>,
+    /// Accuracy of the output setting, as a fraction.
+    #[serde(default)]
+    pub setting_accuracy: Option<Value>,
+    /// Gain stability the experiment needs, as a fraction.
+    #[serde(default)]
+    pub gain_stability: Option<Value>,
 }
 
 /// One divider element.
@@ -233,6 +254,8 @@ pub struct RawSupply {
 pub enum RawElement {
     /// A resistor.
     R(Value),
+    /// `count` equal resistors in series (a gap whose voltage exceeds one part's rating).
+    Series(i64, Value),
     /// A Zener diode (or stack) with its voltage and dynamic resistance.
     Zener {
         /// Breakdown voltage.
@@ -398,6 +421,19 @@ pub struct Decoupling {
     pub rating: Option<ElectricPotential>,
 }
 
+/// Checked supply quality figures (all fractions except the ripple, which is in volts).
+#[derive(Debug, Clone, Copy, PartialEq, Default)]
+pub struct SupplyQuality {
+    /// Peak-to-peak ripple, volts.
+    pub ripple_volts: Option<f64>,
+    /// Drift over the run, fraction of the setting.
+    pub drift: Option<f64>,
+    /// Setting accuracy, fraction.
+    pub setting_accuracy: Option<f64>,
+    /// Gain stability wanted, fraction.
+    pub gain_stability: Option<f64>,
+}
+
 /// The checked design.
 #[derive(Debug, Clone, PartialEq)]
 pub struct Design {
@@ -445,6 +481,10 @@ pub struct Design {
     pub anode_current: ElectricCurrent,
     /// Whether the operating current was assumed (no `operating` block).
     pub operating_assumed: bool,
+    /// Number of equal resistors in series in each gap (1 for a single part; 1 for a Zener).
+    pub series_parts: Vec<usize>,
+    /// Supply ripple, drift, setting accuracy and the gain stability wanted, if given.
+    pub supply_quality: Option<SupplyQuality>,
 }
 
 impl Design {
@@ -866,6 +906,11 @@ const FIELD_NAMES: &[&str] = &[
     "working_voltage",
     "tolerance",
     "anode_current",
+    "quality",
+    "ripple",
+    "drift",
+    "setting_accuracy",
+    "gain_stability",
 ];
 
 /// Levenshtein distance, for suggestions.
@@ -891,6 +936,11 @@ fn nearest<'a>(unknown: &str, candidates: &[&'a str]) -> Option<&'a str> {
         .filter(|(d, n)| *d <= 3 && *d < n.len() && *n != unknown)
         .min()
         .map(|(_, n)| n)
+}
+
+/// Check an already-parsed design (used by divider sizing, which builds the raw blocks itself).
+pub fn check_raw(raw: RawDesign, file: &str) -> Result<Design, DesignError> {
+    check(raw, file)
 }
 
 fn check(raw: RawDesign, file: &str) -> Result<Design, DesignError> {
@@ -1170,9 +1220,26 @@ fn check(raw: RawDesign, file: &str) -> Result<Design, DesignError> {
         ));
     }
     let mut elements = Vec::with_capacity(n + 1);
+    let mut series_parts = Vec::with_capacity(n + 1);
     for (i, e) in d.gaps.iter().enumerate() {
         let field = format!("divider.gaps[{i}]");
+        series_parts.push(match e {
+            RawElement::Series(count, _) => {
+                if !(1..=20).contains(count) {
+                    return Err(c.fail(
+                        &field,
+                        format!("expected 1 to 20 resistors in series, found {count}"),
+                    ));
+                }
+                *count as usize
+            }
+            _ => 1,
+        });
         elements.push(match e {
+            RawElement::Series(count, v) => {
+                let each = c.ranged(&field, v, Kind::Resistance, 1.0, 1e11)?;
+                Element::Resistor(ElectricalResistance::new::<ohm>(each * *count as f64))
+            }
             RawElement::R(v) => Element::Resistor(ElectricalResistance::new::<ohm>(c.ranged(
                 &field,
                 v,
@@ -1361,6 +1428,38 @@ fn check(raw: RawDesign, file: &str) -> Result<Design, DesignError> {
         }
     };
 
+    let supply_quality = match &s.quality {
+        None => None,
+        Some(q) => {
+            let frac = |name: &str, v: &Option<Value>| -> Result<Option<f64>, DesignError> {
+                match v {
+                    None => Ok(None),
+                    Some(v) => {
+                        let field = format!("supply.quality.{name}");
+                        let x = c.quantity(&field, v, Kind::Ratio)?;
+                        if !(x > 0.0 && x < 0.5) {
+                            return Err(c.fail(
+                                &field,
+                                format!("expected a fraction between 0 and 50 %, such as \"0.1 %\", found {v}"),
+                            ));
+                        }
+                        Ok(Some(x))
+                    }
+                }
+            };
+            let ripple_volts = match &q.ripple {
+                None => None,
+                Some(v) => Some(c.ranged("supply.quality.ripple", v, Kind::Voltage, 1e-9, 1e3)?),
+            };
+            Some(SupplyQuality {
+                ripple_volts,
+                drift: frac("drift", &q.drift)?,
+                setting_accuracy: frac("setting_accuracy", &q.setting_accuracy)?,
+                gain_stability: frac("gain_stability", &q.gain_stability)?,
+            })
+        }
+    };
+
     let anode_current = match &raw.operating {
         None => max_anode * 0.1,
         Some(o) => c.ranged(
@@ -1417,6 +1516,8 @@ fn check(raw: RawDesign, file: &str) -> Result<Design, DesignError> {
         resistors_assumed,
         anode_current: ElectricCurrent::new::<ampere>(anode_current),
         operating_assumed: raw.operating.is_none(),
+        series_parts,
+        supply_quality,
     })
 }
 

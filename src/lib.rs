@@ -13,6 +13,7 @@
 
 pub mod analysis;
 pub mod design;
+pub mod eseries;
 pub mod linearity;
 pub mod netlist;
 pub mod network;
@@ -20,5 +21,6 @@ pub mod output;
 pub mod plot;
 pub mod report;
 pub mod safety;
+pub mod sizing;
 pub mod tube;
 pub mod units;

@@ -98,6 +98,23 @@ enum Command {
         #[command(flatten)]
         out: OutputArgs,
     },
+    /// Size a base from a requirements file: supply, divider, preferred values, capacitors.
+    #[command(
+        after_help = "Example:\n  dynode size designs/requirements/paddle-rebuild.ron -o paddle-sized.ron\n  dynode report paddle-sized.ron\n\nThe requirements schema is in DEVELOPERS.md (\"Requirements file\")."
+    )]
+    Size {
+        /// The requirements file (RON).
+        requirements: PathBuf,
+        /// Write the design here (required; never over an existing file without --force).
+        #[arg(short, long, value_name = "FILE")]
+        output: PathBuf,
+        /// Replace FILE if it exists.
+        #[arg(long)]
+        force: bool,
+        /// Print no summary on stderr (errors still print).
+        #[arg(short, long)]
+        quiet: bool,
+    },
 }
 
 fn fail(msg: impl std::fmt::Display, code: Exit) -> ExitCode {
@@ -130,6 +147,59 @@ fn emit(text: &str, out: &OutputArgs, input: &Path) -> Result<(), ExitCode> {
     Ok(())
 }
 
+fn size_exit(e: &dynode::sizing::SizingError) -> Exit {
+    use dynode::sizing::SizingError;
+    match e {
+        SizingError::Input(_) | SizingError::Tube { .. } | SizingError::Infeasible { .. } => {
+            Exit::BadInput
+        }
+        SizingError::Analysis(a) => analysis_exit(a),
+    }
+}
+
+fn run_size(requirements: &Path, output: &Path, force: bool, quiet: bool) -> ExitCode {
+    use dynode::sizing;
+    if let Err(e) = output::check_target(output, &[requirements], force) {
+        return fail(e, Exit::BadInput);
+    }
+    let file = requirements.display().to_string();
+    let text = match std::fs::read_to_string(requirements) {
+        Ok(t) => t,
+        Err(e) => {
+            return fail(
+                format!("{file}: cannot read the requirements: {e}"),
+                Exit::BadInput,
+            );
+        }
+    };
+    let req = match sizing::parse_requirements(&text, &file) {
+        Ok(r) => r,
+        Err(e) => return fail(&e, size_exit(&e)),
+    };
+    let sized = match sizing::size(&req) {
+        Ok(s) => s,
+        Err(e) => return fail(&e, size_exit(&e)),
+    };
+    if let Err(e) = output::write_atomic(output, sized.text.as_bytes(), &[requirements], force) {
+        return fail(e, Exit::BadInput);
+    }
+    if !quiet {
+        eprint!("{}", sizing::summary(&sized));
+        eprintln!(
+            "dynode: wrote {}; check it with `dynode report {}`",
+            output.display(),
+            output.display()
+        );
+    }
+    if sized.checks.iter().any(|c| !c.ok) {
+        return fail(
+            "the sized design misses a requirement (see CHECKS above)",
+            Exit::SolveFailed,
+        );
+    }
+    ExitCode::from(Exit::Ok as u8)
+}
+
 fn run() -> ExitCode {
     let cli = match Cli::try_parse() {
         Ok(c) => c,
@@ -148,6 +218,12 @@ fn run() -> ExitCode {
             clap_complete::generate(shell, &mut Cli::command(), "dynode", &mut std::io::stdout());
             ExitCode::from(Exit::Ok as u8)
         }
+        Command::Size {
+            requirements,
+            output,
+            force,
+            quiet,
+        } => run_size(&requirements, &output, force, quiet),
         Command::Check { design } => match design::load(&design) {
             Ok(d) => match analysis::analyse(&d) {
                 Ok(a) => {
