@@ -177,8 +177,15 @@ impl Series {
         }
         let digits = if self.per_decade() <= 24 { 2 } else { 3 };
         let e = x.log10().floor() as i32 - (digits - 1);
-        let scale = 10f64.powi(e);
-        (x / scale).round() * scale
+        // Divide by a power of ten rather than multiply by its (inexact) reciprocal, so that
+        // 0.82 comes out as 0.82 and not 0.8200000000000001.
+        if e < 0 {
+            let inv = 10f64.powi(-e);
+            (x * inv).round() / inv
+        } else {
+            let scale = 10f64.powi(e);
+            (x / scale).round() * scale
+        }
     }
 }
 

@@ -22,5 +22,6 @@ pub mod plot;
 pub mod report;
 pub mod safety;
 pub mod sizing;
+pub mod spread;
 pub mod tube;
 pub mod units;

@@ -98,6 +98,64 @@ enum Command {
         #[command(flatten)]
         out: OutputArgs,
     },
+    /// Tolerance statistics: Monte Carlo over parts, supply and tube spread.
+    #[command(
+        after_help = "Example:\n  dynode spread designs/rooftop-paddle.ron --samples 100000 --seed 7\n  dynode spread designs/rooftop-paddle.ron --resistor-tolerance 5% --tube-gain-sigma 0 --format json -o spread.json\n\nTolerances are read as --sigmas standard deviations of a normal distribution (default 3)."
+    )]
+    Spread {
+        /// The design file (RON).
+        design: PathBuf,
+        /// Number of samples.
+        #[arg(long, default_value_t = 100_000)]
+        samples: usize,
+        /// Seed; the result is the same for a seed whatever the thread count.
+        #[arg(long, default_value_t = 7)]
+        seed: u64,
+        /// Resistor tolerance (default: the design's resistors.tolerance).
+        #[arg(long, value_name = "FRACTION", value_parser = ratio)]
+        resistor_tolerance: Option<f64>,
+        /// Zener voltage tolerance.
+        #[arg(long, value_name = "FRACTION", value_parser = ratio, default_value = "5%")]
+        zener_tolerance: f64,
+        /// Capacitor tolerance.
+        #[arg(long, value_name = "FRACTION", value_parser = ratio, default_value = "10%")]
+        capacitor_tolerance: f64,
+        /// How many standard deviations a tolerance stands for.
+        #[arg(long, default_value_t = 3.0)]
+        sigmas: f64,
+        /// Supply setting accuracy (default: supply.quality.setting_accuracy, else 0.5 %).
+        #[arg(long, value_name = "FRACTION", value_parser = ratio)]
+        supply_setting: Option<f64>,
+        /// Supply drift bound, uniform (default: supply.quality.drift, else none).
+        #[arg(long, value_name = "FRACTION", value_parser = ratio)]
+        supply_drift: Option<f64>,
+        /// Standard deviation of ln(tube gain) between tubes (0 to switch off).
+        #[arg(long, value_name = "SIGMA", default_value_t = dynode::spread::DEFAULT_TUBE_GAIN_SIGMA)]
+        tube_gain_sigma: f64,
+        /// Standard deviation of the secondary-emission exponent k.
+        #[arg(long, value_name = "SIGMA", default_value_t = dynode::spread::DEFAULT_EXPONENT_SIGMA)]
+        exponent_sigma: f64,
+        /// Charge per anode pulse, for the droop figures (e.g. "200pC").
+        #[arg(long, value_name = "CHARGE")]
+        pulse_charge: Option<String>,
+        /// Yield: largest |DC deviation| at the operating point.
+        #[arg(long, value_name = "FRACTION", value_parser = ratio)]
+        max_deviation: Option<f64>,
+        /// Yield: small-signal gain window around the target.
+        #[arg(long, value_name = "FRACTION", value_parser = ratio)]
+        gain_window: Option<f64>,
+        /// Take the target gain, allowed deviation, droop and pulse charge from a requirements file.
+        #[arg(long, value_name = "FILE")]
+        requirements: Option<PathBuf>,
+        /// Samples on which the linearity curve is traced.
+        #[arg(long, default_value_t = 200)]
+        linearity_samples: usize,
+        /// Output format.
+        #[arg(short, long, value_enum, default_value_t = Format::Text)]
+        format: Format,
+        #[command(flatten)]
+        out: OutputArgs,
+    },
     /// Size a base from a requirements file: supply, divider, preferred values, capacitors.
     #[command(
         after_help = "Example:\n  dynode size designs/requirements/paddle-rebuild.ron -o paddle-sized.ron\n  dynode report paddle-sized.ron\n\nThe requirements schema is in DEVELOPERS.md (\"Requirements file\")."
@@ -145,6 +203,118 @@ fn emit(text: &str, out: &OutputArgs, input: &Path) -> Result<(), ExitCode> {
         }
     }
     Ok(())
+}
+
+fn ratio(text: &str) -> Result<f64, String> {
+    match units::parse(text, Kind::Ratio) {
+        Ok(v) if (0.0..1.0).contains(&v) => Ok(v),
+        Ok(v) => Err(format!("expected a fraction from 0 to 100 %, found {v}")),
+        Err(e) => Err(e.to_string()),
+    }
+}
+
+#[allow(clippy::too_many_arguments)]
+fn run_spread(
+    design: &Path,
+    mut cfg: dynode::spread::SpreadConfig,
+    pulse_charge: Option<String>,
+    requirements: Option<PathBuf>,
+    format: Format,
+    out: &OutputArgs,
+) -> ExitCode {
+    use indicatif::{ProgressBar, ProgressStyle};
+    use std::io::IsTerminal;
+    let d = match design::load(design) {
+        Ok(d) => d,
+        Err(e) => return fail(e, Exit::BadInput),
+    };
+    let mut inputs: Vec<&Path> = vec![design];
+    if let Some(r) = &requirements {
+        inputs.push(r.as_path());
+    }
+    if let Some(p) = &out.output {
+        if let Err(e) = output::check_target(p, &inputs, out.force) {
+            return fail(e, Exit::BadInput);
+        }
+    }
+    if cfg.samples == 0 || cfg.samples > 10_000_000 {
+        return fail("--samples: expected 1 to 10 000 000", Exit::BadInput);
+    }
+    if !(cfg.sigmas.is_finite() && cfg.sigmas > 0.0) {
+        return fail("--sigmas: expected a positive number", Exit::BadInput);
+    }
+    if !(cfg.tube_gain_sigma.is_finite() && (0.0..3.0).contains(&cfg.tube_gain_sigma)) {
+        return fail("--tube-gain-sigma: expected 0 to 3", Exit::BadInput);
+    }
+    if !(cfg.exponent_sigma.is_finite() && (0.0..0.2).contains(&cfg.exponent_sigma)) {
+        return fail("--exponent-sigma: expected 0 to 0.2", Exit::BadInput);
+    }
+    if let Some(t) = &pulse_charge {
+        match units::parse(t, Kind::Charge) {
+            Ok(q) if q > 0.0 => cfg.pulse_charge = Some(q),
+            Ok(_) => return fail("--pulse-charge: expected a positive charge", Exit::BadInput),
+            Err(e) => return fail(format!("--pulse-charge: {e}"), Exit::BadInput),
+        }
+    }
+    if let Some(r) = &requirements {
+        let file = r.display().to_string();
+        let text = match std::fs::read_to_string(r) {
+            Ok(t) => t,
+            Err(e) => {
+                return fail(
+                    format!("{file}: cannot read the requirements: {e}"),
+                    Exit::BadInput,
+                );
+            }
+        };
+        let req = match dynode::sizing::parse_requirements(&text, &file) {
+            Ok(r) => r,
+            Err(e) => return fail(&e, size_exit(&e)),
+        };
+        cfg.target_gain = Some(req.target_gain);
+        cfg.max_deviation = cfg.max_deviation.or(Some(req.deviation));
+        cfg.supply_max_volts = Some(req.supply_max_volts);
+        if let Some((_, droop)) = req.capacitors {
+            cfg.max_droop = Some(droop);
+        }
+        if cfg.pulse_charge.is_none() {
+            cfg.pulse_charge = req
+                .pulse_charge
+                .or(req.max_peak.zip(req.pulse_width).map(|(i, w)| i * w))
+                .or(req.rate.map(|r| req.max_average / r));
+        }
+    }
+    let bar = if std::io::stderr().is_terminal() && !out.quiet {
+        let b = ProgressBar::new(cfg.samples as u64);
+        if let Ok(style) = ProgressStyle::with_template("{bar:40} {pos}/{len} samples ({eta} left)")
+        {
+            b.set_style(style);
+        }
+        Some(b)
+    } else {
+        None
+    };
+    let progress = |done: usize| {
+        if let Some(b) = &bar {
+            b.set_position(done as u64);
+        }
+    };
+    let result = dynode::spread::run(&d, &cfg, &progress);
+    if let Some(b) = &bar {
+        b.finish_and_clear();
+    }
+    let s = match result {
+        Ok(s) => s,
+        Err(e) => return fail(&e, analysis_exit(&e)),
+    };
+    let text = match format {
+        Format::Json => report::spread::json(&s),
+        _ => report::spread::text(&s),
+    };
+    if let Err(code) = emit(&text, out, design) {
+        return code;
+    }
+    ExitCode::from(Exit::Ok as u8)
 }
 
 fn size_exit(e: &dynode::sizing::SizingError) -> Exit {
@@ -217,6 +387,46 @@ fn run() -> ExitCode {
             use clap::CommandFactory;
             clap_complete::generate(shell, &mut Cli::command(), "dynode", &mut std::io::stdout());
             ExitCode::from(Exit::Ok as u8)
+        Command::Spread {
+            design,
+            samples,
+            seed,
+            resistor_tolerance,
+            zener_tolerance,
+            capacitor_tolerance,
+            sigmas,
+            supply_setting,
+            supply_drift,
+            tube_gain_sigma,
+            exponent_sigma,
+            pulse_charge,
+            max_deviation,
+            gain_window,
+            requirements,
+            linearity_samples,
+            format,
+            out,
+        } => {
+            let cfg = dynode::spread::SpreadConfig {
+                samples,
+                seed,
+                resistor_tolerance,
+                sigmas,
+                zener_tolerance,
+                capacitor_tolerance,
+                supply_setting,
+                supply_drift,
+                tube_gain_sigma,
+                exponent_sigma,
+                pulse_charge: None,
+                max_deviation,
+                gain_window,
+                target_gain: None,
+                max_droop: None,
+                supply_max_volts: None,
+                linearity_samples,
+            };
+            run_spread(&design, cfg, pulse_charge, requirements, format, &out)
         }
         Command::Size {
             requirements,

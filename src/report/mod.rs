@@ -8,6 +8,7 @@ pub mod html;
 pub mod json;
 pub mod markdown;
 pub mod tables;
+pub mod spread;
 pub mod text;
 
 use crate::analysis::Analysis;
