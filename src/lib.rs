@@ -23,5 +23,7 @@ pub mod report;
 pub mod safety;
 pub mod sizing;
 pub mod spread;
+pub mod stability;
+pub mod sweep;
 pub mod tube;
 pub mod units;

@@ -156,6 +156,22 @@ enum Command {
         #[command(flatten)]
         out: OutputArgs,
     },
+    /// Vary one or two fields of the design and tabulate gain, divider current, linearity.
+    #[command(
+        after_help = "Example:\n  dynode sweep designs/rooftop-paddle.ron --vary supply.volts=900V..1500V:13\n  dynode sweep designs/rooftop-paddle.ron --vary divider.gaps[10]=470k..2M:9:log --vary operating.anode_current=1uA..20uA:4\n\nFields: supply.volts, divider.gaps[i], load.resistance, tube.gain.exponent, operating.anode_current, … (DEVELOPERS.md lists them all)."
+    )]
+    Sweep {
+        /// The design file (RON).
+        design: PathBuf,
+        /// PATH=START..END:COUNT[:log]; give it once or twice (a grid).
+        #[arg(long, value_name = "SPEC", required = true)]
+        vary: Vec<String>,
+        /// Output format.
+        #[arg(short, long, value_enum, default_value_t = Format::Text)]
+        format: Format,
+        #[command(flatten)]
+        out: OutputArgs,
+    },
     /// Size a base from a requirements file: supply, divider, preferred values, capacitors.
     #[command(
         after_help = "Example:\n  dynode size designs/requirements/paddle-rebuild.ron -o paddle-sized.ron\n  dynode report paddle-sized.ron\n\nThe requirements schema is in DEVELOPERS.md (\"Requirements file\")."
@@ -387,6 +403,7 @@ fn run() -> ExitCode {
             use clap::CommandFactory;
             clap_complete::generate(shell, &mut Cli::command(), "dynode", &mut std::io::stdout());
             ExitCode::from(Exit::Ok as u8)
+        }
         Command::Spread {
             design,
             samples,
@@ -427,6 +444,47 @@ fn run() -> ExitCode {
                 linearity_samples,
             };
             run_spread(&design, cfg, pulse_charge, requirements, format, &out)
+        }
+        Command::Sweep {
+            design,
+            vary,
+            format,
+            out,
+        } => {
+            let d = match design::load(&design) {
+                Ok(d) => d,
+                Err(e) => return fail(e, Exit::BadInput),
+            };
+            if let Some(p) = &out.output {
+                if let Err(e) = output::check_target(p, &[design.as_path()], out.force) {
+                    return fail(e, Exit::BadInput);
+                }
+            }
+            if vary.len() > 2 {
+                return fail("--vary: give one or two parameters", Exit::BadInput);
+            }
+            let mut axes = Vec::new();
+            for v in &vary {
+                match dynode::sweep::parse_axis(v) {
+                    Ok(a) => axes.push(a),
+                    Err(e) => return fail(e, Exit::BadInput),
+                }
+            }
+            if axes.iter().map(|a| a.values.len()).product::<usize>() > 100_000 {
+                return fail("--vary: at most 100 000 points in all", Exit::BadInput);
+            }
+            if let Err(e) = dynode::sweep::check_axes(&d, &axes) {
+                return fail(format!("--vary {e}"), Exit::BadInput);
+            }
+            let s = dynode::sweep::run(&d, &axes);
+            let text = match format {
+                Format::Json => report::sweep::json(&d, &s),
+                _ => report::sweep::text(&d, &s),
+            };
+            if let Err(code) = emit(&text, &out, &design) {
+                return code;
+            }
+            ExitCode::from(Exit::Ok as u8)
         }
         Command::Size {
             requirements,

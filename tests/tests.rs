@@ -21,3 +21,5 @@ mod outputs;
 mod properties;
 /// Plausibility warnings: triggered one by one, shown in every format, never blocking.
 mod warnings;
+/// Sizing from requirements, IEC 60063 tables, tolerance statistics, sweeps, supply quality.
+mod sizing;

@@ -9,6 +9,8 @@ pub mod json;
 pub mod markdown;
 pub mod tables;
 pub mod spread;
+pub mod supply;
+pub mod sweep;
 pub mod text;
 
 use crate::analysis::Analysis;

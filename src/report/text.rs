@@ -277,6 +277,8 @@ pub fn render(a: &Analysis) -> String {
     );
     let _ = writeln!(out);
 
+    crate::report::supply::text(&mut out, a);
+
     let l = &a.linearity;
     let _ = writeln!(
         out,

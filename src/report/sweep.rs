@@ -1,0 +1,136 @@
+//! Rendering of `dynode sweep`: a table (text) or rows (JSON), cautions first and last.
+//!
+//! JSON keys are documented in DEVELOPERS.md ("JSON schema: sweep").
+
+use std::fmt::Write;
+
+use serde_json::{Value, json};
+
+use crate::design::Design;
+use crate::report::text::wrap;
+use crate::safety::{CAUTIONS, CLOSING_CAUTION};
+use crate::sweep::Sweep;
+use crate::units::{Kind, format_eng as eng};
+
+const RULE: &str =
+    "================================================================================";
+
+fn show(x: f64, kind: Kind) -> String {
+    match kind {
+        Kind::Ratio => format!("{x:.4}"),
+        k => eng(
+            x,
+            if k == Kind::Resistance {
+                "Ω"
+            } else {
+                k.symbol()
+            },
+        ),
+    }
+}
+
+/// The text table.
+pub fn text(design: &Design, s: &Sweep) -> String {
+    let mut out = String::new();
+    let _ = writeln!(out, "{RULE}");
+    let _ = writeln!(out, "  !! HIGH-VOLTAGE CAUTION !!");
+    let _ = writeln!(out, "{RULE}");
+    for c in CAUTIONS {
+        wrap(&mut out, "  ! ", c);
+    }
+    let _ = writeln!(out, "{RULE}");
+    let _ = writeln!(out);
+    let _ = writeln!(out, "dynode sweep: {}", design.name);
+    let _ = writeln!(out, "design file:  {}", design.source);
+    for a in &s.axes {
+        let _ = writeln!(
+            out,
+            "varying:      {} from {} to {} in {} {} steps",
+            a.path,
+            show(a.values[0], a.kind),
+            show(*a.values.last().unwrap_or(&0.0), a.kind),
+            a.values.len(),
+            if a.log { "logarithmic" } else { "linear" }
+        );
+    }
+    let _ = writeln!(
+        out,
+        "at an average anode current of {}; ±1 % limit = anode current where the DC gain deviation first reaches 1 %",
+        eng(
+            design
+                .anode_current
+                .get::<uom::si::electric_current::ampere>(),
+            "A"
+        )
+    );
+    let _ = writeln!(out);
+    let mut head = String::new();
+    for a in &s.axes {
+        let name = a.path.rsplit('.').next().unwrap_or(&a.path);
+        let _ = write!(head, "{name:>12} ");
+    }
+    let _ = writeln!(
+        out,
+        "{head}{:>9} {:>10} {:>10} {:>9} {:>9} {:>7} {:>9} {:>10}  verdict",
+        "supply", "gain G0", "gain(op)", "dev(op)", "divider", "dlnG/dV", "power", "±1 % lim."
+    );
+    for r in &s.rows {
+        let mut line = String::new();
+        for (a, x) in s.axes.iter().zip(&r.values) {
+            let _ = write!(line, "{:>12} ", show(*x, a.kind));
+        }
+        let o = |x: Option<f64>, f: &dyn Fn(f64) -> String| x.map_or("—".to_string(), f);
+        let _ = writeln!(
+            out,
+            "{line}{:>9} {:>10} {:>10} {:>9} {:>9} {:>7} {:>9} {:>10}  {}",
+            eng(r.supply_volts, "V"),
+            o(r.small_signal_gain, &|g| format!("{g:.3e}")),
+            o(r.gain, &|g| format!("{g:.3e}")),
+            o(r.deviation, &|d| format!("{:+.3}%", d * 100.0)),
+            o(r.divider_amps, &|i| eng(i, "A")),
+            o(r.sensitivity, &|x| format!("{x:.2}")),
+            o(r.dissipation_watts, &|x| eng(x, "W")),
+            r.linearity_1pct_amps
+                .map_or("not reached".to_string(), |i| eng(i, "A")),
+            r.verdict
+        );
+    }
+    let _ = writeln!(out);
+    let _ = writeln!(
+        out,
+        "--------------------------------------------------------------------------------"
+    );
+    wrap(&mut out, "  !! ", CLOSING_CAUTION);
+    let _ = writeln!(
+        out,
+        "--------------------------------------------------------------------------------"
+    );
+    out
+}
+
+/// The JSON value.
+pub fn to_value(design: &Design, s: &Sweep) -> Value {
+    json!({
+        "schema_version": 1,
+        "kind": "sweep",
+        "name": design.name,
+        "design_file": design.source,
+        "cautions": CAUTIONS,
+        "closing_caution": CLOSING_CAUTION,
+        "anode_current_amps": design.anode_current.get::<uom::si::electric_current::ampere>(),
+        "axes": s.axes.iter().map(|a| json!({
+            "path": a.path,
+            "values": a.values,
+            "log": a.log,
+        })).collect::<Vec<_>>(),
+        "rows": s.rows,
+    })
+}
+
+/// The JSON text.
+pub fn json(design: &Design, s: &Sweep) -> String {
+    let mut t =
+        serde_json::to_string_pretty(&to_value(design, s)).unwrap_or_else(|_| "{}".to_string());
+    t.push('\n');
+    t
+}

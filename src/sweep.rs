@@ -1,0 +1,471 @@
+//! Sweeps (`dynode sweep`): how the results move when one or two values of the design change.
+//!
+//! A sweep names fields of the design file by their path (`supply.volts`, `divider.gaps[10]`,
+//! `load.resistance`, `tube.gain.exponent`, …; [`FIELDS`] lists them) and a range
+//! `START..END:COUNT`, linear or logarithmic (`:log`). Two parameters make a grid. Each point is
+//! the checked design with that field replaced, solved by the core: small-signal gain, gain and DC
+//! deviation at the design's average anode current ([`Network::solve_anode_raw`]), divider current,
+//! d ln G / d ln V, dissipation, the anode current where the DC deviation first reaches ±1 %
+//! (a 24-point log scan in cathode current with continuation, then bisection with real solves), and
+//! a verdict against the ratings. Points run in parallel (rayon); the order of rows is the order of
+//! the grid whatever the thread count.
+
+use rayon::prelude::*;
+
+use crate::analysis::rated_voltage;
+use crate::design::{CapStyle, Design, Element, GainSpec};
+use crate::network::{Network, OperatingPoint, Workspace};
+use crate::tube::TubeModel;
+use crate::units::{
+    self, Capacitance, ElectricCurrent, ElectricPotential, ElectricalResistance, Kind, Power,
+};
+use uom::si::capacitance::farad;
+use uom::si::electric_current::ampere;
+use uom::si::electric_potential::volt;
+use uom::si::electrical_resistance::ohm;
+use uom::si::power::watt;
+
+/// Fields a sweep can vary, with their kind (indexed fields take `[i]`).
+pub const FIELDS: &[(&str, Kind)] = &[
+    ("supply.volts", Kind::Voltage),
+    ("supply.current_limit", Kind::Current),
+    ("divider.gaps[i]", Kind::Resistance),
+    ("divider.decoupling[i].value", Kind::Capacitance),
+    ("divider.stray", Kind::Capacitance),
+    ("load.resistance", Kind::Resistance),
+    ("load.capacitance", Kind::Capacitance),
+    ("load.anode_resistor", Kind::Resistance),
+    ("load.coupling", Kind::Capacitance),
+    ("tube.gain.exponent", Kind::Ratio),
+    ("tube.gain.gain", Kind::Ratio),
+    ("tube.gain.volts", Kind::Voltage),
+    ("tube.collection", Kind::Ratio),
+    ("tube.limits.max_supply", Kind::Voltage),
+    ("tube.limits.max_gap", Kind::Voltage),
+    ("tube.limits.max_anode_current", Kind::Current),
+    ("tube.pulse_linearity.peak_current", Kind::Current),
+    ("tube.pulse_linearity.last_gap", Kind::Voltage),
+    ("resistors.power", Kind::Power),
+    ("resistors.working_voltage", Kind::Voltage),
+    ("operating.anode_current", Kind::Current),
+];
+
+/// A bad sweep specification (usage error).
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+#[error("--vary {spec}: {message}")]
+pub struct SweepError {
+    /// The specification as given.
+    pub spec: String,
+    /// What was expected.
+    pub message: String,
+}
+
+/// One swept parameter.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Axis {
+    /// Field path as given, e.g. `divider.gaps[10]`.
+    pub path: String,
+    /// Its kind.
+    pub kind: Kind,
+    /// Values, SI base units.
+    pub values: Vec<f64>,
+    /// Logarithmic steps?
+    pub log: bool,
+}
+
+fn field_kind(path: &str) -> Option<(Kind, Option<usize>)> {
+    // Replace one `[digits]` by `[i]`.
+    let (generic, index) = match (path.find('['), path.find(']')) {
+        (Some(a), Some(b)) if b > a + 1 => {
+            let idx: usize = path[a + 1..b].parse().ok()?;
+            (format!("{}[i]{}", &path[..a], &path[b + 1..]), Some(idx))
+        }
+        _ => (path.to_string(), None),
+    };
+    FIELDS
+        .iter()
+        .find(|(p, _)| *p == generic)
+        .map(|(_, k)| (*k, index))
+}
+
+/// Parse `PATH=START..END:COUNT[:log]`.
+pub fn parse_axis(spec: &str) -> Result<Axis, SweepError> {
+    let err = |m: String| SweepError {
+        spec: spec.to_string(),
+        message: m,
+    };
+    let (path, range) = spec.split_once('=').ok_or_else(|| {
+        err("expected PATH=START..END:COUNT, e.g. supply.volts=900V..1500V:13".into())
+    })?;
+    let path = path.trim();
+    let (kind, _) = field_kind(path).ok_or_else(|| {
+        err(format!(
+            "\"{path}\" is not a field a sweep can vary; expected one of: {}",
+            FIELDS
+                .iter()
+                .map(|(p, _)| *p)
+                .collect::<Vec<_>>()
+                .join(", ")
+        ))
+    })?;
+    let mut parts = range.split(':');
+    let span = parts.next().unwrap_or("");
+    let count = parts
+        .next()
+        .ok_or_else(|| err("expected :COUNT after the range, e.g. 900V..1500V:13".into()))?;
+    let log = match parts.next() {
+        None | Some("lin") => false,
+        Some("log") => true,
+        Some(o) => {
+            return Err(err(format!(
+                "expected :log or :lin after the count, found :{o}"
+            )));
+        }
+    };
+    if parts.next().is_some() {
+        return Err(err("too many ':' parts".into()));
+    }
+    let count: usize = count
+        .trim()
+        .parse()
+        .map_err(|_| err(format!("\"{count}\" is not a count of points")))?;
+    if !(2..=10_000).contains(&count) {
+        return Err(err(format!("expected 2 to 10000 points, found {count}")));
+    }
+    let (a, b) = span
+        .split_once("..")
+        .ok_or_else(|| err("expected START..END, e.g. 900V..1500V".into()))?;
+    let parse = |t: &str| -> Result<f64, SweepError> {
+        let v = units::parse(t, kind).map_err(|e| err(e.to_string()))?;
+        Ok(v)
+    };
+    let (mut a, mut b) = (parse(a)?, parse(b)?);
+    if path == "supply.volts" {
+        // Magnitudes: the sign follows the design's polarity.
+        a = a.abs();
+        b = b.abs();
+    }
+    if !(a > 0.0 && b > 0.0) {
+        return Err(err("expected positive values".into()));
+    }
+    let values = (0..count)
+        .map(|i| {
+            let t = i as f64 / (count - 1) as f64;
+            if log {
+                (a.ln() + (b.ln() - a.ln()) * t).exp()
+            } else {
+                a + (b - a) * t
+            }
+        })
+        .collect();
+    Ok(Axis {
+        path: path.to_string(),
+        kind,
+        values,
+        log,
+    })
+}
+
+/// Set one field of a checked design. Errors name the field and the problem.
+pub fn set_field(d: &mut Design, path: &str, x: f64) -> Result<(), String> {
+    let (_, index) = field_kind(path).ok_or_else(|| format!("{path}: not a sweepable field"))?;
+    let idx = |len: usize| -> Result<usize, String> {
+        let i = index.ok_or_else(|| format!("{path}: expected an index"))?;
+        if i >= len {
+            return Err(format!(
+                "{path}: index {i} is out of range (0 to {})",
+                len - 1
+            ));
+        }
+        Ok(i)
+    };
+    let v = ElectricPotential::new::<volt>;
+    let generic = match path.find('[') {
+        Some(a) => format!(
+            "{}[i]{}",
+            &path[..a],
+            &path[path.find(']').unwrap_or(a) + 1..]
+        ),
+        None => path.to_string(),
+    };
+    match generic.as_str() {
+        "supply.volts" => d.supply_volts = v(x * d.supply_volts.get::<volt>().signum()),
+        "supply.current_limit" => d.current_limit = Some(ElectricCurrent::new::<ampere>(x)),
+        "divider.gaps[i]" => {
+            let i = idx(d.elements.len())?;
+            d.elements[i] = match d.elements[i] {
+                Element::Resistor(_) => Element::Resistor(ElectricalResistance::new::<ohm>(x)),
+                Element::Zener(_, r) => Element::Zener(v(x), r),
+            };
+        }
+        "divider.decoupling[i].value" => {
+            let i = idx(d.decoupling.len().max(1)).and_then(|i| {
+                if d.decoupling.is_empty() {
+                    Err(format!("{path}: the design has no decoupling capacitors"))
+                } else {
+                    Ok(i)
+                }
+            })?;
+            d.decoupling[i].value = Capacitance::new::<farad>(x);
+        }
+        "divider.stray" => d.stray = Capacitance::new::<farad>(x),
+        "load.resistance" => d.load_resistance = ElectricalResistance::new::<ohm>(x),
+        "load.capacitance" => d.load_capacitance = Capacitance::new::<farad>(x),
+        "load.anode_resistor" => d.anode_resistor = Some(ElectricalResistance::new::<ohm>(x)),
+        "load.coupling" => {
+            let rating = d.coupling.and_then(|c| c.1);
+            d.coupling = Some((Capacitance::new::<farad>(x), rating));
+        }
+        "tube.gain.exponent" | "tube.gain.gain" | "tube.gain.volts" => match &mut d.tube.gain {
+            GainSpec::Reference {
+                volts,
+                gain,
+                exponent,
+            } => match generic.as_str() {
+                "tube.gain.exponent" => *exponent = Some(x),
+                "tube.gain.gain" => *gain = x,
+                _ => *volts = v(x),
+            },
+            GainSpec::Table(_) => {
+                return Err(format!(
+                    "{path}: the design's gain law is a table; only a Reference law has this field"
+                ));
+            }
+        },
+        "tube.collection" => {
+            d.tube.collection = x;
+            d.tube.collection_assumed = false;
+        }
+        "tube.limits.max_supply" => d.tube.max_supply = v(x),
+        "tube.limits.max_gap" => d.tube.max_gap = Some(v(x)),
+        "tube.limits.max_anode_current" => {
+            d.tube.max_anode_current = ElectricCurrent::new::<ampere>(x)
+        }
+        "tube.pulse_linearity.peak_current" | "tube.pulse_linearity.last_gap" => {
+            let (i, dev, vl) = d.tube.pulse_linearity.unwrap_or((
+                ElectricCurrent::new::<ampere>(crate::tube::ASSUMED_PULSE_LINEARITY.0),
+                crate::tube::ASSUMED_PULSE_LINEARITY.1,
+                v(crate::tube::ASSUMED_PULSE_LINEARITY.2),
+            ));
+            d.tube.pulse_linearity = Some(if generic.ends_with("peak_current") {
+                (ElectricCurrent::new::<ampere>(x), dev, vl)
+            } else {
+                (i, dev, v(x))
+            });
+        }
+        "resistors.power" => d.resistor_power = Power::new::<watt>(x),
+        "resistors.working_voltage" => d.resistor_working_voltage = v(x),
+        "operating.anode_current" => d.anode_current = ElectricCurrent::new::<ampere>(x),
+        _ => return Err(format!("{path}: not a sweepable field")),
+    }
+    Ok(())
+}
+
+/// One row of a sweep.
+#[derive(Debug, Clone, PartialEq, serde::Serialize)]
+pub struct Row {
+    /// The swept values (one or two), SI base units.
+    pub values: Vec<f64>,
+    /// Supply magnitude, volts.
+    pub supply_volts: f64,
+    /// Small-signal gain.
+    pub small_signal_gain: Option<f64>,
+    /// Gain at the operating point.
+    pub gain: Option<f64>,
+    /// DC deviation there.
+    pub deviation: Option<f64>,
+    /// Divider current with no tube current, amperes.
+    pub divider_amps: Option<f64>,
+    /// d ln G / d ln V.
+    pub sensitivity: Option<f64>,
+    /// Base dissipation at the operating point, watts.
+    pub dissipation_watts: Option<f64>,
+    /// Anode current where |deviation| first reaches 1 %, amperes (None: not reached).
+    pub linearity_1pct_amps: Option<f64>,
+    /// "ok", or what is broken.
+    pub verdict: String,
+}
+
+/// The result of a sweep.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Sweep {
+    /// The axes.
+    pub axes: Vec<Axis>,
+    /// Rows in grid order (the first axis outer).
+    pub rows: Vec<Row>,
+}
+
+/// Anode current where |G/G0 − 1| first reaches `threshold`: a log scan in cathode current with
+/// continuation, then bisection with real solves. `None` when not reached up to 3× the divider
+/// current.
+pub fn linearity_limit(net: &Network, threshold: f64, ws: &mut Workspace) -> Option<f64> {
+    let g0 = net.small_signal_gain();
+    let (i_div, _) = net.quiescent();
+    let lo = (1e-3 * i_div / g0).ln();
+    let hi = (3.0 * i_div / g0).ln();
+    let count = 24;
+    let mut prev: Option<(f64, OperatingPoint)> = None;
+    for i in 0..count {
+        let x = lo + (hi - lo) * i as f64 / (count - 1) as f64;
+        let op = net
+            .solve_raw(x.exp(), prev.as_ref().map(|p| &p.1), ws)
+            .ok()?;
+        let d = op.gain() / g0 - 1.0;
+        if d.abs() >= threshold {
+            let Some((mut a, mut opa)) = prev else {
+                return Some(op.anode_amps());
+            };
+            let mut b = x;
+            let mut best = op.anode_amps();
+            for _ in 0..14 {
+                let mid = 0.5 * (a + b);
+                let Ok(m) = net.solve_raw(mid.exp(), Some(&opa), ws) else {
+                    break;
+                };
+                if (m.gain() / g0 - 1.0).abs() >= threshold {
+                    b = mid;
+                    best = m.anode_amps();
+                } else {
+                    a = mid;
+                    opa = m;
+                }
+            }
+            return Some(best);
+        }
+        prev = Some((x, op));
+    }
+    None
+}
+
+fn point(base: &Design, axes: &[Axis], values: &[f64], ws: &mut Workspace) -> Row {
+    let mut d = base.clone();
+    let mut row = Row {
+        values: values.to_vec(),
+        supply_volts: base.supply_magnitude(),
+        small_signal_gain: None,
+        gain: None,
+        deviation: None,
+        divider_amps: None,
+        sensitivity: None,
+        dissipation_watts: None,
+        linearity_1pct_amps: None,
+        verdict: String::new(),
+    };
+    for (a, x) in axes.iter().zip(values) {
+        if let Err(e) = set_field(&mut d, &a.path, *x) {
+            row.verdict = e;
+            return row;
+        }
+    }
+    row.supply_volts = d.supply_magnitude();
+    let tube = match TubeModel::from_spec(&d.tube) {
+        Ok(t) => t,
+        Err(e) => {
+            row.verdict = e.to_string();
+            return row;
+        }
+    };
+    let net = Network::from_design(&d, tube);
+    let (i_div, _) = net.quiescent();
+    if !(i_div.is_finite() && i_div > 0.0) {
+        row.verdict = "no divider current".into();
+        return row;
+    }
+    let g0 = net.small_signal_gain();
+    row.small_signal_gain = Some(g0).filter(|g| g.is_finite());
+    row.divider_amps = Some(i_div);
+    row.sensitivity = Some(net.gain_sensitivity()).filter(|s| s.is_finite());
+    let mut problems = Vec::new();
+    match net.solve_anode(d.anode_current, ws) {
+        Ok(op) => {
+            row.gain = Some(op.gain());
+            row.deviation = Some(op.gain() / g0 - 1.0);
+            let diss: f64 = op
+                .element_volts
+                .iter()
+                .zip(&op.element_amps)
+                .map(|(v, a)| v * a)
+                .sum::<f64>()
+                + op.anode_amps().powi(2) * net.anode_resistance;
+            row.dissipation_watts = Some(diss);
+            let p = d.resistor_power.get::<watt>();
+            let wv = d.resistor_working_voltage.get::<volt>();
+            let max_gap = d.tube.max_gap.map(|v| v.get::<volt>());
+            for (j, e) in d.elements.iter().enumerate() {
+                let volts = op.element_volts[j];
+                if let Element::Resistor(r) = e {
+                    let m = d.series_parts.get(j).copied().unwrap_or(1).max(1) as f64;
+                    let r = r.get::<ohm>();
+                    if volts * op.element_amps[j] > m * p {
+                        problems.push(format!("gap {} power", j + 1));
+                    }
+                    if volts > m * rated_voltage(p, r / m, wv) {
+                        problems.push(format!("gap {} volts", j + 1));
+                    }
+                }
+                if max_gap.is_some_and(|g| volts > g) {
+                    problems.push(format!("gap {} over tube limit", j + 1));
+                }
+            }
+            if d.current_limit
+                .is_some_and(|l| op.supply_amps() > l.get::<ampere>())
+            {
+                problems.push("supply current limit".into());
+            }
+            for c in &d.decoupling {
+                let v = match c.style {
+                    CapStyle::Across(g) => op.element_volts[g - 1],
+                    CapStyle::ToReturn(k) => net.supply - op.potentials[k - 1],
+                };
+                if c.rating.is_some_and(|r| v > r.get::<volt>()) {
+                    problems.push("capacitor rating".into());
+                }
+            }
+        }
+        Err(e) => problems.push(format!("solve: {e}")),
+    }
+    if row.supply_volts > d.tube.max_supply.get::<volt>() {
+        problems.push("above the tube's max supply".into());
+    }
+    if d.anode_current > d.tube.max_anode_current {
+        problems.push("anode current above rating".into());
+    }
+    row.linearity_1pct_amps = linearity_limit(&net, 0.01, ws);
+    problems.dedup();
+    row.verdict = if problems.is_empty() {
+        "ok".into()
+    } else {
+        problems.join("; ")
+    };
+    row
+}
+
+/// Run a sweep over one or two axes.
+pub fn run(design: &Design, axes: &[Axis]) -> Sweep {
+    let grid: Vec<Vec<f64>> = match axes {
+        [a] => a.values.iter().map(|x| vec![*x]).collect(),
+        [a, b] => a
+            .values
+            .iter()
+            .flat_map(|x| b.values.iter().map(move |y| vec![*x, *y]))
+            .collect(),
+        _ => Vec::new(),
+    };
+    let rows = grid
+        .par_iter()
+        .map_init(Workspace::default, |ws, v| point(design, axes, v, ws))
+        .collect();
+    Sweep {
+        axes: axes.to_vec(),
+        rows,
+    }
+}
+
+/// Check the axes against a design before running (index ranges, gain-law kind).
+pub fn check_axes(design: &Design, axes: &[Axis]) -> Result<(), String> {
+    for a in axes {
+        let mut d = design.clone();
+        set_field(&mut d, &a.path, a.values[0])?;
+    }
+    Ok(())
+}
