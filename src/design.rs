@@ -254,8 +254,6 @@ pub struct RawSupplyQuality {
 pub enum RawElement {
     /// A resistor.
     R(Value),
-    /// `count` equal resistors in series (a gap whose voltage exceeds one part's rating).
-    Series(i64, Value),
     /// A Zener diode (or stack) with its voltage and dynamic resistance.
     Zener {
         /// Breakdown voltage.
@@ -263,6 +261,8 @@ pub enum RawElement {
         /// Dynamic resistance above the knee.
         dynamic: Value,
     },
+    /// `count` equal resistors in series (a gap whose voltage exceeds one part's rating).
+    Series(i64, Value),
 }
 
 /// A decoupling capacitor.

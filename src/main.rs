@@ -248,10 +248,10 @@ fn run_spread(
     if let Some(r) = &requirements {
         inputs.push(r.as_path());
     }
-    if let Some(p) = &out.output {
-        if let Err(e) = output::check_target(p, &inputs, out.force) {
-            return fail(e, Exit::BadInput);
-        }
+    if let Some(p) = &out.output
+        && let Err(e) = output::check_target(p, &inputs, out.force)
+    {
+        return fail(e, Exit::BadInput);
     }
     if cfg.samples == 0 || cfg.samples > 10_000_000 {
         return fail("--samples: expected 1 to 10 000 000", Exit::BadInput);
@@ -455,10 +455,10 @@ fn run() -> ExitCode {
                 Ok(d) => d,
                 Err(e) => return fail(e, Exit::BadInput),
             };
-            if let Some(p) = &out.output {
-                if let Err(e) = output::check_target(p, &[design.as_path()], out.force) {
-                    return fail(e, Exit::BadInput);
-                }
+            if let Some(p) = &out.output
+                && let Err(e) = output::check_target(p, &[design.as_path()], out.force)
+            {
+                return fail(e, Exit::BadInput);
             }
             if vary.len() > 2 {
                 return fail("--vary: give one or two parameters", Exit::BadInput);

@@ -337,6 +337,17 @@ fn quantity(
     hi: f64,
 ) -> Result<f64, DesignError> {
     let x = match v {
+        Value::Number(x) if x.is_finite() && kind.needs_unit() => {
+            return Err(field_err(
+                file,
+                field,
+                format!(
+                    "expected {} with its unit, e.g. {}; a bare number has no unit here (found {x})",
+                    kind.name(),
+                    kind.typical(&x.to_string())
+                ),
+            ));
+        }
         Value::Number(x) if x.is_finite() => *x,
         Value::Number(_) => {
             return Err(field_err(
@@ -711,8 +722,11 @@ fn parts_needed(volts: f64, amps: f64, power: f64, derating: f64, working: f64) 
     by_volts.max(by_power).max(1.0) as usize
 }
 
+/// A charge per pulse (coulombs) and where it came from.
+pub type PulseCharge = Option<(f64, String)>;
+
 /// The pulse charge used for decoupling, and its origin.
-fn pulse_charge(req: &Requirements) -> Option<(f64, String)> {
+fn pulse_charge(req: &Requirements) -> PulseCharge {
     if let Some(q) = req.pulse_charge {
         return Some((q, "anode.pulse_charge as given".to_string()));
     }
@@ -772,21 +786,21 @@ pub fn size(req: &Requirements) -> Result<Sized, SizingError> {
             ),
         ));
     }
-    if let Some(mg) = max_gap {
-        if let Some((i, s)) = shares.iter().enumerate().find(|(_, s)| v_ideal * **s > mg) {
-            return Err(infeasible(
-                req,
-                "ratio",
-                format!(
-                    "gap {} ({}) would hold {} at the {} the target gain needs, above tube.limits.max_gap = {}; choose a flatter ratio",
-                    i + 1,
-                    base.gap_label(i),
-                    format_eng(v_ideal * s, "V"),
-                    format_eng(v_ideal, "V"),
-                    format_eng(mg, "V")
-                ),
-            ));
-        }
+    if let Some(mg) = max_gap
+        && let Some((i, s)) = shares.iter().enumerate().find(|(_, s)| v_ideal * **s > mg)
+    {
+        return Err(infeasible(
+            req,
+            "ratio",
+            format!(
+                "gap {} ({}) would hold {} at the {} the target gain needs, above tube.limits.max_gap = {}; choose a flatter ratio",
+                i + 1,
+                base.gap_label(i),
+                format_eng(v_ideal * s, "V"),
+                format_eng(v_ideal, "V"),
+                format_eng(mg, "V")
+            ),
+        ));
     }
     reasoning.push(format!(
         "Supply: the per-stage gain law (delta = a·V^k, a = {:.4}, k = {:.3}, collection {:.0} %) under the {} ratio gives the target gain {:.3e} at {}.",
@@ -854,8 +868,10 @@ pub fn size(req: &Requirements) -> Result<Sized, SizingError> {
                 ),
             ));
         }
-        if let Some(pmax) = req.max_dissipation {
-            if v * i_div > pmax {
+        if let Some(pmax) = req.max_dissipation
+            && v * i_div > pmax
+        {
+            {
                 return Err(infeasible(
                     req,
                     "max_dissipation",
@@ -953,8 +969,10 @@ pub fn size(req: &Requirements) -> Result<Sized, SizingError> {
             ),
             _ => r2.push("Decoupling: no capacitor family given; no capacitors sized.".to_string()),
         }
-        if let (Some(r), Some((q, _))) = (req.rate, &charge) {
-            if let Some(c) = capacitors.last() {
+        if let (Some(r), Some((q, _))) = (req.rate, &charge)
+            && let Some(c) = capacitors.last()
+        {
+            {
                 let tau = gaps[c.gap - 1].each_ohms * gaps[c.gap - 1].parts as f64 * c.farads;
                 r2.push(format!(
                     "At {} the last capacitor recharges through its gap resistor with τ = {} against {} between pulses{}; the average current ({}) is what the DC deviation above covers.",
@@ -1143,7 +1161,7 @@ fn size_capacitors(
     req: &Requirements,
     tube: &TubeModel,
     gaps: &[GapChoice],
-) -> Result<(Option<(f64, String)>, Vec<CapChoice>), SizingError> {
+) -> Result<(PulseCharge, Vec<CapChoice>), SizingError> {
     let charge = pulse_charge(req);
     let Some((series, droop)) = req.capacitors else {
         return Ok((charge, Vec::new()));

@@ -17,8 +17,8 @@
 //! operating point) at the design's average anode current: small-signal gain, gain and DC deviation
 //! at the operating point, every gap's voltage against its limit, dissipation, supply current,
 //! droop per pulse when a pulse charge is given, the supply that brings the sample back to the
-//! nominal (or target) gain. The linearity limits (±1 %) are traced on the first
-//! `linearity_samples` samples only (a full curve per sample costs a few hundred solves).
+//! nominal (or target) gain. The linearity limits (±1 %) are found on the first
+//! `linearity_samples` samples only ([`crate::sweep::linearity_crossing`], about 40 solves each).
 //!
 //! Determinism: sample `i` uses a ChaCha8 stream keyed by the seed with stream number `i`, so the
 //! result does not depend on how rayon splits the work or on the thread count.
@@ -33,7 +33,6 @@ use rayon::prelude::*;
 
 use crate::analysis::{self, Analysis, AnalysisError, rated_voltage};
 use crate::design::{CapStyle, Design, Element};
-use crate::linearity;
 use crate::network::{Network, OperatingPoint, Part, Workspace};
 use uom::si::capacitance::farad;
 use uom::si::electric_current::ampere;
@@ -304,6 +303,12 @@ fn reference_ln_sum(design: &Design) -> f64 {
         .map(|r| (v * r / total).ln())
         .sum()
 }
+
+/// The −1 % and +1 % crossings of one sample's linearity curve, amperes.
+type LinearityLimits = (Option<f64>, Option<f64>);
+
+/// A yield requirement: its wording and the test on one sample.
+type YieldCheck<'a> = (String, Box<dyn Fn(&Outcome) -> bool + 'a>);
 
 /// Per-sample outcome.
 #[derive(Debug, Clone)]
@@ -627,10 +632,10 @@ pub fn run(
         .map_init(Workspace::default, |ws, i| {
             let d = draw(i, cfg.seed, design, cfg, eff);
             let net = model.network(&d);
-            match linearity::trace_points(&net, 60, ws) {
-                Ok(l) => (l.minus_1pct, l.plus_1pct),
-                Err(_) => (None, None),
-            }
+            (
+                crate::sweep::linearity_crossing(&net, -0.01, ws),
+                crate::sweep::linearity_crossing(&net, 0.01, ws),
+            )
         })
         .collect();
     for (o, l) in outcomes.iter_mut().zip(lin) {
@@ -678,21 +683,20 @@ pub fn run(
             (*g, percentiles(&mut v))
         })
         .collect();
-    let lin_stats =
-        |pick: &dyn Fn(&(Option<f64>, Option<f64>)) -> Option<f64>| -> Option<(Percentiles, f64)> {
-            if lin_n == 0 {
-                return None;
-            }
-            let mut v: Vec<f64> = outcomes[..lin_n]
-                .iter()
-                .filter_map(|o| o.lin.as_ref().and_then(pick))
-                .collect();
-            if v.is_empty() {
-                return None;
-            }
-            let frac = v.len() as f64 / lin_n as f64;
-            Some((percentiles(&mut v), frac))
-        };
+    let lin_stats = |pick: &dyn Fn(&LinearityLimits) -> Option<f64>| -> Option<(Percentiles, f64)> {
+        if lin_n == 0 {
+            return None;
+        }
+        let mut v: Vec<f64> = outcomes[..lin_n]
+            .iter()
+            .filter_map(|o| o.lin.as_ref().and_then(pick))
+            .collect();
+        if v.is_empty() {
+            return None;
+        }
+        let frac = v.len() as f64 / lin_n as f64;
+        Some((percentiles(&mut v), frac))
+    };
     let minus_1pct = lin_stats(&|l| l.0);
     let plus_1pct = lin_stats(&|l| l.1);
     let mut vt: Vec<f64> = outcomes
@@ -794,7 +798,7 @@ pub fn run(
         .supply_max_volts
         .unwrap_or(design.tube.max_supply.get::<volt>())
         .min(design.tube.max_supply.get::<volt>());
-    let mut checks: Vec<(String, Box<dyn Fn(&Outcome) -> bool + '_>)> = vec![(
+    let mut checks: Vec<YieldCheck<'_>> = vec![(
         "every gap within its voltage and power ratings and the supply within its current limit"
             .into(),
         Box::new(ratings_ok),

@@ -295,10 +295,25 @@ pub struct Sweep {
     pub rows: Vec<Row>,
 }
 
-/// Anode current where |G/G0 − 1| first reaches `threshold`: a log scan in cathode current with
-/// continuation, then bisection with real solves. `None` when not reached up to 3× the divider
-/// current.
+/// Anode current where |G/G0 − 1| first reaches `threshold` (either sign); `None` when not
+/// reached up to 3× the divider current. See [`linearity_crossing`].
 pub fn linearity_limit(net: &Network, threshold: f64, ws: &mut Workspace) -> Option<f64> {
+    first_crossing(net, &|d: f64| d.abs() >= threshold, ws)
+}
+
+/// Anode current where the deviation G/G0 − 1 first reaches `target` (≥ target for a positive
+/// one, ≤ target for a negative one): a 24-point log scan in cathode current from 1e-3 to 3× the
+/// divider current over the gain, with continuation, then 14 bisections with real solves
+/// (relative bracket about 1e-4 in current).
+pub fn linearity_crossing(net: &Network, target: f64, ws: &mut Workspace) -> Option<f64> {
+    if target > 0.0 {
+        first_crossing(net, &|d: f64| d >= target, ws)
+    } else {
+        first_crossing(net, &|d: f64| d <= target, ws)
+    }
+}
+
+fn first_crossing(net: &Network, reached: &dyn Fn(f64) -> bool, ws: &mut Workspace) -> Option<f64> {
     let g0 = net.small_signal_gain();
     let (i_div, _) = net.quiescent();
     let lo = (1e-3 * i_div / g0).ln();
@@ -311,7 +326,7 @@ pub fn linearity_limit(net: &Network, threshold: f64, ws: &mut Workspace) -> Opt
             .solve_raw(x.exp(), prev.as_ref().map(|p| &p.1), ws)
             .ok()?;
         let d = op.gain() / g0 - 1.0;
-        if d.abs() >= threshold {
+        if reached(d) {
             let Some((mut a, mut opa)) = prev else {
                 return Some(op.anode_amps());
             };
@@ -322,7 +337,7 @@ pub fn linearity_limit(net: &Network, threshold: f64, ws: &mut Workspace) -> Opt
                 let Ok(m) = net.solve_raw(mid.exp(), Some(&opa), ws) else {
                     break;
                 };
-                if (m.gain() / g0 - 1.0).abs() >= threshold {
+                if reached(m.gain() / g0 - 1.0) {
                     b = mid;
                     best = m.anode_amps();
                 } else {

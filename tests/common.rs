@@ -65,6 +65,14 @@ pub const NULLABLE_KEYS: &[&str] = &[
     "rating_volts",
     "bleed_seconds",
     "shield_touch_amps",
+    // supply_quality: null when the design's supply.quality block does not give the figure
+    "ripple_volts",
+    "ripple_gain",
+    "drift",
+    "drift_gain",
+    "setting_accuracy",
+    "setting_gain",
+    "meets",
 ];
 
 /// Walk a JSON value and fail on any number that is not finite (serde_json writes NaN as null,

@@ -30,6 +30,14 @@ pub const NULLABLE_KEYS: &[&str] = &[
     "rating_volts",
     "bleed_seconds",
     "shield_touch_amps",
+    // supply_quality (given only when the design's supply.quality block gives them)
+    "ripple_volts",
+    "ripple_gain",
+    "drift",
+    "drift_gain",
+    "setting_accuracy",
+    "setting_gain",
+    "meets",
 ];
 
 /// The path of the first `null` found under a key that may not be null, if any.

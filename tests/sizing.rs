@@ -145,10 +145,10 @@ fn assert_meets(req: &sizing::Requirements, s: &sizing::Sized) -> Result<(), Str
     if (a.op.anode_amps() / req.max_average - 1.0).abs() > 1e-5 {
         return Err("report not at the max average anode current".into());
     }
-    if let Some(p) = req.max_dissipation {
-        if a.dissipation() > p {
-            return Err(format!("dissipation {} W", a.dissipation()));
-        }
+    if let Some(p) = req.max_dissipation
+        && a.dissipation() > p
+    {
+        return Err(format!("dissipation {} W", a.dissipation()));
     }
     for g in &a.gaps {
         let pr = g.power_rating.ok_or("a gap is not a resistor")?;
@@ -262,6 +262,7 @@ fn bad_requirements_are_located() {
     assert!(!out.exists());
 }
 
+#[allow(clippy::too_many_arguments)]
 fn requirements_text(
     stages: usize,
     target_decades: f64,

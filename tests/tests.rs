@@ -19,7 +19,7 @@ mod ngspice_dc;
 mod outputs;
 /// Invariants over random valid designs.
 mod properties;
-/// Plausibility warnings: triggered one by one, shown in every format, never blocking.
-mod warnings;
 /// Sizing from requirements, IEC 60063 tables, tolerance statistics, sweeps, supply quality.
 mod sizing;
+/// Plausibility warnings: triggered one by one, shown in every format, never blocking.
+mod warnings;

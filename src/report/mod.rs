@@ -7,10 +7,10 @@ pub mod figures;
 pub mod html;
 pub mod json;
 pub mod markdown;
-pub mod tables;
 pub mod spread;
 pub mod supply;
 pub mod sweep;
+pub mod tables;
 pub mod text;
 
 use crate::analysis::Analysis;
@@ -40,6 +40,6 @@ pub fn render(a: &Analysis, format: Format) -> String {
 
 /// Sections that capabilities beyond the core add, as (title, plain text), in report order.
 /// The HTML and Markdown renderers show each one; a capability adds its section here.
-pub fn extra_sections(_a: &Analysis) -> Vec<(String, String)> {
-    Vec::new()
+pub fn extra_sections(a: &Analysis) -> Vec<(String, String)> {
+    vec![(supply::TITLE.to_string(), supply::body(a))]
 }

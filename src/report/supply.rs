@@ -9,13 +9,24 @@ use crate::analysis::Analysis;
 use crate::stability;
 use crate::units::format_eng as eng;
 
+/// Title of the section.
+pub const TITLE: &str = "Supply quality (gain change = d ln G / d ln V × supply change)";
+
 /// Append the text section.
 pub fn text(out: &mut String, a: &Analysis) {
-    let s = stability::assess(&a.design, a.sensitivity);
     let _ = writeln!(
         out,
         "SUPPLY QUALITY (gain change = d ln G / d ln V × supply change)"
     );
+    out.push_str(&body(a));
+    let _ = writeln!(out);
+}
+
+/// The section's lines (shared by every format).
+pub fn body(a: &Analysis) -> String {
+    let mut text = String::new();
+    let out = &mut text;
+    let s = stability::assess(&a.design, a.sensitivity);
     if let (Some(r), Some(g)) = (s.ripple_volts, s.ripple_gain) {
         let _ = writeln!(
             out,
@@ -62,7 +73,7 @@ pub fn text(out: &mut String, a: &Analysis) {
         }
         None => {}
     }
-    let _ = writeln!(out);
+    text
 }
 
 /// The JSON value of the section.
