@@ -600,6 +600,13 @@ impl Checker<'_> {
 
 /// Read, parse and check a design file.
 pub fn load(path: &Path) -> Result<Design, DesignError> {
+    let text = read_text(path, "design")?;
+    parse_str(&text, &path.display().to_string())
+}
+
+/// Read a text input of this tool (a design, a requirements file): a regular file of at most
+/// [`MAX_FILE_BYTES`], UTF-8 (a byte-order mark is dropped). `what` names it in messages.
+pub fn read_text(path: &Path, what: &str) -> Result<String, DesignError> {
     let file = path.display().to_string();
     let io = |reason: String| DesignError::Io {
         file: file.clone(),
@@ -607,11 +614,11 @@ pub fn load(path: &Path) -> Result<Design, DesignError> {
     };
     let meta = std::fs::metadata(path).map_err(|e| io(e.to_string()))?;
     if meta.is_dir() {
-        return Err(io("it is a directory; give a .ron design file".into()));
+        return Err(io(format!("it is a directory; give a .ron {what} file")));
     }
     if meta.len() > MAX_FILE_BYTES {
         return Err(io(format!(
-            "it is {} bytes; a design file is at most {} bytes",
+            "it is {} bytes; a {what} file is at most {} bytes",
             meta.len(),
             MAX_FILE_BYTES
         )));
@@ -626,7 +633,7 @@ pub fn load(path: &Path) -> Result<Design, DesignError> {
         .map_err(|e| io(e.to_string()))?;
     if bytes.len() as u64 > MAX_FILE_BYTES {
         return Err(io(format!(
-            "it holds more than {MAX_FILE_BYTES} bytes; a design file is a page of text"
+            "it holds more than {MAX_FILE_BYTES} bytes; a {what} file is a page of text"
         )));
     }
     if bytes.starts_with(&[0xff, 0xfe]) || bytes.starts_with(&[0xfe, 0xff]) {
@@ -640,7 +647,10 @@ pub fn load(path: &Path) -> Result<Design, DesignError> {
             e.utf8_error().valid_up_to()
         ))
     })?;
-    parse_str(&text, &file)
+    Ok(match text.strip_prefix('\u{feff}') {
+        Some(rest) => rest.to_string(),
+        None => text,
+    })
 }
 
 /// Parse and check design text; `file` names it in messages.
@@ -651,7 +661,8 @@ pub fn parse_str(text: &str, file: &str) -> Result<Design, DesignError> {
     check(raw, file)
 }
 
-fn syntax_error(file: &str, text: &str, e: &ron::error::SpannedError) -> DesignError {
+/// A RON error in the words of the file (see [`parse_str`]); for every RON input of the tool.
+pub fn syntax_error(file: &str, text: &str, e: &ron::error::SpannedError) -> DesignError {
     let (line, col) = (e.span.start.line, e.span.start.col);
     let mut message = describe_ron_error(&e.code, text);
     if matches!(e.code, ron::Error::ExpectedComma) && fraction_at(text, line, col) {

@@ -274,14 +274,9 @@ fn run_spread(
     }
     if let Some(r) = &requirements {
         let file = r.display().to_string();
-        let text = match std::fs::read_to_string(r) {
+        let text = match design::read_text(r, "requirements") {
             Ok(t) => t,
-            Err(e) => {
-                return fail(
-                    format!("{file}: cannot read the requirements: {e}"),
-                    Exit::BadInput,
-                );
-            }
+            Err(e) => return fail(e, Exit::BadInput),
         };
         let req = match dynode::sizing::parse_requirements(&text, &file) {
             Ok(r) => r,
@@ -349,14 +344,9 @@ fn run_size(requirements: &Path, output: &Path, force: bool, quiet: bool) -> Exi
         return fail(e, Exit::BadInput);
     }
     let file = requirements.display().to_string();
-    let text = match std::fs::read_to_string(requirements) {
+    let text = match design::read_text(requirements, "requirements") {
         Ok(t) => t,
-        Err(e) => {
-            return fail(
-                format!("{file}: cannot read the requirements: {e}"),
-                Exit::BadInput,
-            );
-        }
+        Err(e) => return fail(e, Exit::BadInput),
     };
     let req = match sizing::parse_requirements(&text, &file) {
         Ok(r) => r,

@@ -376,12 +376,9 @@ fn quantity(
 
 /// Parse and check requirements text; `file` names it in messages.
 pub fn parse_requirements(text: &str, file: &str) -> Result<Requirements, SizingError> {
-    let raw: RawRequirements = ron::from_str(text).map_err(|e| DesignError::Syntax {
-        file: file.to_string(),
-        line: e.span.start.line,
-        col: e.span.start.col,
-        message: e.code.to_string(),
-    })?;
+    let text = text.strip_prefix('\u{feff}').unwrap_or(text);
+    let raw: RawRequirements =
+        ron::from_str(text).map_err(|e| crate::design::syntax_error(file, text, &e))?;
     let f = file;
     let stages = raw.tube.stages;
     let target_gain = match raw.target {

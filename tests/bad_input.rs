@@ -115,6 +115,10 @@ const CORPUS: &[(&str, Place, &[&str])] = &[
     ("wiring_rating_without_coupling.ron", Field("load.coupling_rating"), &["no load.coupling capacitor"]),
 ];
 
+/// Designs whose mistake shows only when solving: `sweep` solves each point of its grid and
+/// says at each why it could not (the verdict column), rather than refusing the whole sweep.
+const SOLVED_PER_POINT: &[&str] = &["magnitude_anode_current_absurd.ron"];
+
 /// Every command that reads a design, with `{design}` and `{out}` placeholders. A command that
 /// lands later adds its line here, so the whole corpus runs through it too.
 const COMMANDS: &[&[&str]] = &[
@@ -126,6 +130,15 @@ const COMMANDS: &[&[&str]] = &[
     // The figures directory must not be created for a bad design either.
     &["report", "{design}", "--plots", "{out}"],
     &["netlist", "{design}", "-o", "{out}"],
+    &["spread", "{design}", "--samples", "50", "-o", "{out}"],
+    &[
+        "sweep",
+        "{design}",
+        "--vary",
+        "supply.volts=900V..1500V:3",
+        "-o",
+        "{out}",
+    ],
 ];
 
 fn run(args: &[&str]) -> Output {
@@ -217,6 +230,19 @@ fn corpus_is_refused_with_a_located_message_by_every_command() {
         let shown = design.to_string_lossy().to_string();
         for cmd in COMMANDS {
             let o = run_command(cmd, &design, &out);
+            if cmd[0] == "sweep" && SOLVED_PER_POINT.contains(file) {
+                // A sweep tabulates an impossible operating point at each point instead.
+                let table = std::fs::read_to_string(&out).unwrap_or_default();
+                if o.status.code() != Some(0)
+                    || !table.contains("cannot be reached: the divider saturates near")
+                {
+                    failures.push(format!(
+                        "{file} with sweep: the verdicts do not give the reason"
+                    ));
+                }
+                let _ = std::fs::remove_file(&out);
+                continue;
+            }
             let wrong = refused(&o, &shown, *place, words, &out);
             if !wrong.is_empty() {
                 failures.push(format!(
@@ -553,4 +579,67 @@ fn an_unreachable_netlist_current_names_the_option() {
     assert_eq!(o.status.code(), Some(2), "{stderr}");
     assert!(stderr.contains("rooftop-paddle.ron: --anode-current: an average anode current of 5.00 mA cannot be reached"), "{stderr}");
     assert!(o.stdout.is_empty());
+}
+
+#[test]
+fn size_refuses_every_corpus_file_with_a_located_message() {
+    // `size` reads a requirements file, not a design, so the corpus is wrong for it in other
+    // words; it must still refuse each one with exit 2, the file and a place (line:col or a
+    // field), and write nothing.
+    let dir = temp_dir("size-corpus");
+    let out = dir.join("sized.ron");
+    let mut failures = Vec::new();
+    for (file, _, _) in CORPUS {
+        let design = corpus_dir().join(file);
+        let shown = design.to_string_lossy().to_string();
+        let o = run(&["size", &shown, "-o", &out.to_string_lossy()]);
+        let stderr = String::from_utf8_lossy(&o.stderr);
+        let rest = stderr
+            .strip_prefix(&format!("dynode: error: {shown}"))
+            .unwrap_or("");
+        let located = rest.starts_with(": ")
+            || rest
+                .strip_prefix(':')
+                .is_some_and(|r| r.starts_with(|c: char| c.is_ascii_digit()));
+        if o.status.code() != Some(2) || !located || out.exists() || stderr.contains("panicked") {
+            failures.push(format!("{file}: exit {:?}: {stderr}", o.status.code()));
+        }
+        let _ = std::fs::remove_file(&out);
+    }
+    assert!(failures.is_empty(), "{}", failures.join("\n"));
+}
+
+#[test]
+fn size_reads_its_requirements_with_the_same_limits() {
+    refuses_path_with(
+        "size-zero",
+        &["size", "/dev/zero", "-o", "{out}"],
+        "/dev/zero",
+        &["more than 1048576 bytes"],
+    );
+    refuses_path_with(
+        "size-dir",
+        &["size", "{dir}", "-o", "{out}"],
+        "{dir}",
+        &["it is a directory"],
+    );
+}
+
+/// As [`refuses_path`] for one command template with `{out}` and `{dir}` (the corpus folder).
+fn refuses_path_with(name: &str, template: &[&str], shown: &str, words: &[&str]) {
+    let dir = temp_dir(name);
+    let out = dir.join("out.ron");
+    let corpus = corpus_dir().to_string_lossy().to_string();
+    let args: Vec<String> = template
+        .iter()
+        .map(|a| {
+            a.replace("{out}", &out.to_string_lossy())
+                .replace("{dir}", &corpus)
+        })
+        .collect();
+    let args: Vec<&str> = args.iter().map(String::as_str).collect();
+    let o = run(&args);
+    let shown = shown.replace("{dir}", &corpus);
+    let wrong = refused(&o, &shown, File, words, &out);
+    assert!(wrong.is_empty(), "{}", wrong.join("\n"));
 }

@@ -256,7 +256,18 @@ fn near_saturation_solves_and_beyond_it_is_refused_with_the_reason() {
 
 /// Every command with a JSON output, with a `{design}` placeholder. A command that lands later
 /// adds its line here.
-const JSON_COMMANDS: &[&[&str]] = &[&["report", "{design}", "--format", "json"]];
+const JSON_COMMANDS: &[&[&str]] = &[
+    &["report", "{design}", "--format", "json"],
+    &["spread", "{design}", "--samples", "200", "--format", "json"],
+    &[
+        "sweep",
+        "{design}",
+        "--vary",
+        "supply.volts=900V..1500V:4",
+        "--format",
+        "json",
+    ],
+];
 
 #[test]
 fn no_command_prints_a_non_finite_number_in_json() {

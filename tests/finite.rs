@@ -2,23 +2,24 @@
 //! fuzz target (which includes this file by path).
 //!
 //! serde_json writes a non-finite f64 as `null`, so a NaN in the JSON report hides as a null.
-//! The check therefore allows `null` only under keys documented as "null where a figure does not
-//! exist" (DEVELOPERS.md, JSON schema); a null anywhere else is a non-finite number that slipped
+//! The check therefore allows `null` only where DEVELOPERS.md documents "null where a figure
+//! does not exist" ([`NULLABLE`]); a null anywhere else is a non-finite number that slipped
 //! through. Text reports print a non-finite figure as `n/a`, `NaN` or `inf`.
 #![allow(dead_code)]
 
 use serde_json::Value;
 
-/// Keys whose value may be `null` because the figure does not exist for some designs.
-/// Add a key here only together with its line in the JSON schema of DEVELOPERS.md.
-pub const NULLABLE_KEYS: &[&str] = &[
-    // tube_model
+/// Where a value may be `null` because the figure does not exist for some designs: a key
+/// (anywhere) or the end of a path with array indices written `[]`. Add an entry only together
+/// with its line in the JSON schemas of DEVELOPERS.md.
+pub const NULLABLE: &[&str] = &[
+    // report: tube_model
     "fit_rms_ln_gain",
-    // gaps[]
-    "power_rating_watts",
-    "rated_volts",
-    "delta",
-    // linearity
+    // report: gaps[] (Zener gaps have no resistor rating; the last gap feeds no dynode)
+    "gaps[].power_rating_watts",
+    "gaps[].rated_volts",
+    "gaps[].delta",
+    // report: linearity (a limit the curve never reaches)
     "plus_1pct_amps",
     "minus_1pct_amps",
     "plus_5pct_amps",
@@ -26,32 +27,67 @@ pub const NULLABLE_KEYS: &[&str] = &[
     "peak_over_deviation",
     "peak_over_amps",
     "stopped",
-    // safety
-    "rating_volts",
+    // report: safety
+    "capacitors[].rating_volts",
     "bleed_seconds",
     "shield_touch_amps",
-    // supply_quality (given only when the design's supply.quality block gives them)
-    "ripple_volts",
-    "ripple_gain",
-    "drift",
-    "drift_gain",
-    "setting_accuracy",
-    "setting_gain",
-    "meets",
+    // report: supply_quality (given only when the design's supply.quality block gives them)
+    "supply_quality.ripple_volts",
+    "supply_quality.ripple_gain",
+    "supply_quality.drift",
+    "supply_quality.drift_gain",
+    "supply_quality.setting_accuracy",
+    "supply_quality.setting_gain",
+    "supply_quality.meets",
+    // spread: optional inputs, limits not reached, gaps without a limit or a resistor rating
+    "inputs.pulse_charge_coulombs",
+    "minus_1pct",
+    "plus_1pct",
+    "gaps[].limit_volts",
+    "gaps[].power_rating",
+    // sweep: a figure that could not be computed at a point (the verdict says why)
+    "rows[].small_signal_gain",
+    "rows[].gain",
+    "rows[].deviation",
+    "rows[].divider_amps",
+    "rows[].sensitivity",
+    "rows[].dissipation_watts",
+    "rows[].linearity_1pct_amps",
 ];
 
-/// The path of the first `null` found under a key that may not be null, if any.
+/// Whether the value at `path` (e.g. `gaps[3].delta`) may be null.
+pub fn nullable(path: &str) -> bool {
+    let mut norm = String::new();
+    let mut in_index = false;
+    for c in path.chars() {
+        match c {
+            '[' => {
+                norm.push('[');
+                in_index = true;
+            }
+            ']' => {
+                norm.push(']');
+                in_index = false;
+            }
+            _ if in_index => {}
+            _ => norm.push(c),
+        }
+    }
+    NULLABLE
+        .iter()
+        .any(|e| norm == *e || norm.strip_suffix(e).is_some_and(|head| head.ends_with('.')))
+}
+
+/// The path of the first `null` found where a value may not be null, if any.
 pub fn json_unexpected_null(v: &Value) -> Option<String> {
-    fn walk(v: &Value, path: &mut String, key: Option<&str>) -> Option<String> {
+    fn walk(v: &Value, path: &mut String) -> Option<String> {
         match v {
-            Value::Null => match key {
-                Some(k) if NULLABLE_KEYS.contains(&k) => None,
-                _ => Some(if path.is_empty() {
-                    "(root)".to_string()
-                } else {
-                    path.clone()
-                }),
-            },
+            Value::Null if nullable(path) => None,
+            Value::Null => Some(if path.is_empty() {
+                "(root)".to_string()
+            } else {
+                path.clone()
+            }),
             Value::Number(n) => {
                 // serde_json never holds a non-finite number, but an f64 that is one is a bug.
                 if n.as_f64().is_some_and(|x| !x.is_finite()) {
@@ -64,8 +100,7 @@ pub fn json_unexpected_null(v: &Value) -> Option<String> {
                 for (i, item) in items.iter().enumerate() {
                     let len = path.len();
                     path.push_str(&format!("[{i}]"));
-                    // Elements inherit the array's key: an array of nullable figures stays nullable.
-                    if let Some(found) = walk(item, path, key) {
+                    if let Some(found) = walk(item, path) {
                         return Some(found);
                     }
                     path.truncate(len);
@@ -79,7 +114,7 @@ pub fn json_unexpected_null(v: &Value) -> Option<String> {
                         path.push('.');
                     }
                     path.push_str(k);
-                    if let Some(found) = walk(item, path, Some(k)) {
+                    if let Some(found) = walk(item, path) {
                         return Some(found);
                     }
                     path.truncate(len);
@@ -89,7 +124,7 @@ pub fn json_unexpected_null(v: &Value) -> Option<String> {
             Value::Bool(_) | Value::String(_) => None,
         }
     }
-    walk(v, &mut String::new(), None)
+    walk(v, &mut String::new())
 }
 
 /// The first word of `text` that is how a non-finite figure prints (`NaN`, `inf`, `n/a`), with
@@ -115,4 +150,18 @@ pub fn text_non_finite(text: &str) -> Option<String> {
         }
     }
     None
+}
+
+#[test]
+fn nullable_paths_match_whole_names() {
+    assert!(nullable("gaps[3].delta"));
+    assert!(nullable("linearity.plus_1pct_amps"));
+    assert!(!nullable("gain"), "the gain is never absent");
+    assert!(!nullable("gaps[0].volts"));
+    assert!(
+        !nullable("xgaps[0].delta"),
+        "a key matches whole, not as a suffix of another"
+    );
+    let v = serde_json::json!({"gain": null});
+    assert_eq!(json_unexpected_null(&v).as_deref(), Some("gain"));
 }
