@@ -150,9 +150,12 @@ enum Command {
         /// Samples on which the linearity curve is traced.
         #[arg(long, default_value_t = 200)]
         linearity_samples: usize,
-        /// Output format.
+        /// Output format (text or json).
         #[arg(short, long, value_enum, default_value_t = Format::Text)]
         format: Format,
+        /// Also write the histograms as SVG and PNG into DIR (spread-gain.png, …).
+        #[arg(long, value_name = "DIR")]
+        plots: Option<PathBuf>,
         #[command(flatten)]
         out: OutputArgs,
     },
@@ -166,9 +169,12 @@ enum Command {
         /// PATH=START..END:COUNT[:log]; give it once or twice (a grid).
         #[arg(long, value_name = "SPEC", required = true)]
         vary: Vec<String>,
-        /// Output format.
+        /// Output format (text or json).
         #[arg(short, long, value_enum, default_value_t = Format::Text)]
         format: Format,
+        /// Also write the figures as SVG and PNG into DIR (sweep-gain.png, sweep-linearity.png).
+        #[arg(long, value_name = "DIR")]
+        plots: Option<PathBuf>,
         #[command(flatten)]
         out: OutputArgs,
     },
@@ -236,6 +242,7 @@ fn run_spread(
     pulse_charge: Option<String>,
     requirements: Option<PathBuf>,
     format: Format,
+    plots: Option<PathBuf>,
     out: &OutputArgs,
 ) -> ExitCode {
     use indicatif::{ProgressBar, ProgressStyle};
@@ -325,7 +332,30 @@ fn run_spread(
     if let Err(code) = emit(&text, out, design) {
         return code;
     }
+    if let Some(dir) = &plots {
+        let figs = report::spread::figures(&s);
+        if let Err(code) = write_plots(dir, &figs, &inputs, out) {
+            return code;
+        }
+    }
     ExitCode::from(Exit::Ok as u8)
+}
+
+fn write_plots(
+    dir: &Path,
+    figs: &[dynode::plot::Figure],
+    inputs: &[&Path],
+    out: &OutputArgs,
+) -> Result<(), ExitCode> {
+    match output::write_figures(dir, figs, inputs, out.force) {
+        Ok(paths) => {
+            if !out.quiet {
+                eprintln!("dynode: wrote {} figure files in {}", paths.len(), dir.display());
+            }
+            Ok(())
+        }
+        Err(e) => Err(fail(e, Exit::BadInput)),
+    }
 }
 
 fn size_exit(e: &dynode::sizing::SizingError) -> Exit {
@@ -412,6 +442,7 @@ fn run() -> ExitCode {
             requirements,
             linearity_samples,
             format,
+            plots,
             out,
         } => {
             let cfg = dynode::spread::SpreadConfig {
@@ -433,12 +464,13 @@ fn run() -> ExitCode {
                 supply_max_volts: None,
                 linearity_samples,
             };
-            run_spread(&design, cfg, pulse_charge, requirements, format, &out)
+            run_spread(&design, cfg, pulse_charge, requirements, format, plots, &out)
         }
         Command::Sweep {
             design,
             vary,
             format,
+            plots,
             out,
         } => {
             let d = match design::load(&design) {
@@ -473,6 +505,12 @@ fn run() -> ExitCode {
             };
             if let Err(code) = emit(&text, &out, &design) {
                 return code;
+            }
+            if let Some(dir) = &plots {
+                let figs = report::sweep::figures(&s);
+                if let Err(code) = write_plots(dir, &figs, &[design.as_path()], &out) {
+                    return code;
+                }
             }
             ExitCode::from(Exit::Ok as u8)
         }

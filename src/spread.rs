@@ -189,6 +189,73 @@ pub struct YieldFigure {
     pub fraction: f64,
 }
 
+/// A histogram of one output over the samples.
+#[derive(Debug, Clone, PartialEq, serde::Serialize)]
+pub struct Histogram {
+    /// Stable name (for figure files).
+    pub name: String,
+    /// What is counted.
+    pub label: String,
+    /// Unit of the values, if any.
+    pub unit: Option<String>,
+    /// Logarithmic bins?
+    pub log: bool,
+    /// Bin centres (geometric centres for log bins).
+    pub centres: Vec<f64>,
+    /// Fraction of the samples in each bin.
+    pub fractions: Vec<f64>,
+}
+
+/// Number of histogram bins.
+pub const BINS: usize = 60;
+
+/// Histogram of `values` between their 0.1 % and 99.9 % points (the tails are left out of the
+/// picture, not of the statistics).
+pub fn histogram(name: &str, label: &str, unit: Option<&str>, log: bool, values: &[f64]) -> Histogram {
+    let mut v: Vec<f64> = values
+        .iter()
+        .copied()
+        .filter(|x| x.is_finite() && (!log || *x > 0.0))
+        .collect();
+    v.sort_by(f64::total_cmp);
+    let empty = Histogram {
+        name: name.to_string(),
+        label: label.to_string(),
+        unit: unit.map(str::to_string),
+        log,
+        centres: Vec::new(),
+        fractions: Vec::new(),
+    };
+    if v.len() < 2 {
+        return empty;
+    }
+    let at = |p: f64| v[((v.len() - 1) as f64 * p).round() as usize];
+    let t = |x: f64| if log { x.ln() } else { x };
+    let (lo, hi) = (t(at(0.001)), t(at(0.999)));
+    if !(hi > lo) {
+        return empty;
+    }
+    let w = (hi - lo) / BINS as f64;
+    let mut counts = vec![0usize; BINS];
+    for x in &v {
+        let b = ((t(*x) - lo) / w).floor();
+        if b >= 0.0 && (b as usize) < BINS {
+            counts[b as usize] += 1;
+        }
+    }
+    let n = v.len() as f64;
+    Histogram {
+        centres: (0..BINS)
+            .map(|i| {
+                let c = lo + (i as f64 + 0.5) * w;
+                if log { c.exp() } else { c }
+            })
+            .collect(),
+        fractions: counts.iter().map(|c| *c as f64 / n).collect(),
+        ..empty
+    }
+}
+
 /// The result.
 #[derive(Debug, Clone, PartialEq)]
 pub struct Spread {
@@ -233,6 +300,8 @@ pub struct Spread {
     pub influences: Vec<Influence>,
     /// Yield figures; the last is all of them together.
     pub yields: Vec<YieldFigure>,
+    /// Histograms: small-signal gain, DC deviation at the operating point, supply for the target.
+    pub histograms: Vec<Histogram>,
     /// The nominal analysis.
     pub nominal: Analysis,
 }
@@ -649,6 +718,29 @@ pub fn run(
         let mut v: Vec<f64> = ok.iter().map(|o| f(o)).filter(|x| x.is_finite()).collect();
         percentiles(&mut v)
     };
+    let histograms = vec![
+        histogram(
+            "spread-gain",
+            "small-signal gain",
+            None,
+            true,
+            &outcomes.iter().map(|o| o.g0).collect::<Vec<_>>(),
+        ),
+        histogram(
+            "spread-deviation",
+            "DC gain deviation at the operating point",
+            Some("%"),
+            false,
+            &ok.iter().map(|o| o.dev * 100.0).collect::<Vec<_>>(),
+        ),
+        histogram(
+            "spread-supply",
+            "supply for the target gain",
+            Some("V"),
+            false,
+            &outcomes.iter().map(|o| o.v_target).collect::<Vec<_>>(),
+        ),
+    ];
     let mut g0s: Vec<f64> = outcomes.iter().map(|o| o.g0).collect();
     let ln_g0: Vec<f64> = g0s.iter().map(|g| g.ln()).collect();
     let mean_g0 = g0s.iter().sum::<f64>() / g0s.len().max(1) as f64;
@@ -876,6 +968,7 @@ pub fn run(
         linearity_samples: lin_n,
         influences,
         yields,
+        histograms,
         nominal,
     })
 }

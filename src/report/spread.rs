@@ -257,3 +257,47 @@ pub fn json(s: &Spread) -> String {
     t.push('\n');
     t
 }
+
+/// The figures: one histogram per output in [`Spread::histograms`], with the 1/50/99 %
+/// percentiles marked where they are known.
+pub fn figures(s: &Spread) -> Vec<crate::plot::Figure> {
+    use crate::plot::{Axis, Figure, Marker, Style};
+    s.histograms
+        .iter()
+        .filter(|h| !h.centres.is_empty())
+        .map(|h| {
+            let x = if h.log {
+                Axis::log(&h.label, h.unit.as_deref())
+            } else {
+                Axis::linear(&h.label, h.unit.as_deref())
+            };
+            let mut f = Figure::new(
+                &h.name,
+                &format!(
+                    "{} over {} samples (seed {})",
+                    h.label, s.config.samples, s.config.seed
+                ),
+                x,
+                Axis::linear("fraction of samples per bin", None),
+            )
+            .with(
+                "samples",
+                Style::Line,
+                h.centres.iter().copied().zip(h.fractions.iter().copied()).collect(),
+            );
+            let p = match h.name.as_str() {
+                "spread-gain" => Some((s.small_signal_gain, 1.0)),
+                "spread-deviation" => Some((s.deviation, 100.0)),
+                "spread-supply" => Some((s.supply_for_target, 1.0)),
+                _ => None,
+            };
+            if let Some((p, k)) = p {
+                for (v, l) in [(p.p1, "1 %"), (p.p50, "50 %"), (p.p99, "99 %")] {
+                    f.markers.push(Marker::X(v * k, l.to_string()));
+                }
+            }
+            f.legend = crate::plot::Legend::UpperRight;
+            f
+        })
+        .collect()
+}

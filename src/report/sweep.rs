@@ -134,3 +134,80 @@ pub fn json(design: &Design, s: &Sweep) -> String {
     t.push('\n');
     t
 }
+
+/// The figures: gain (small-signal and at the operating point) and the ±1 % linearity limit
+/// against the first swept value; with a second axis, one line per value of it.
+pub fn figures(s: &Sweep) -> Vec<crate::plot::Figure> {
+    use crate::plot::{Axis, Figure, Style};
+    let Some(first) = s.axes.first() else {
+        return Vec::new();
+    };
+    let unit = |k: Kind| match k {
+        Kind::Ratio => None,
+        Kind::Resistance => Some("Ω"),
+        k => Some(k.symbol()),
+    };
+    let x = || {
+        if first.log {
+            Axis::log(&first.path, unit(first.kind))
+        } else {
+            Axis::linear(&first.path, unit(first.kind))
+        }
+    };
+    // Groups: one per value of the second axis (or a single group).
+    let groups: Vec<(String, Vec<&crate::sweep::Row>)> = match s.axes.get(1) {
+        None => vec![(String::new(), s.rows.iter().collect())],
+        Some(b) => b
+            .values
+            .iter()
+            .enumerate()
+            .map(|(j, v)| {
+                (
+                    format!("{} = {}", b.path, show(*v, b.kind)),
+                    s.rows.iter().skip(j).step_by(b.values.len()).collect(),
+                )
+            })
+            .collect(),
+    };
+    // A log axis only where the values span more than a decade (fewer ticks otherwise).
+    let y_axis = |label: &str, unit: Option<&str>, f: &dyn Fn(&crate::sweep::Row) -> Option<f64>| {
+        let v: Vec<f64> = s.rows.iter().filter_map(f).filter(|y| *y > 0.0).collect();
+        let (lo, hi) = v
+            .iter()
+            .fold((f64::INFINITY, 0.0f64), |(a, b), y| (a.min(*y), b.max(*y)));
+        if hi > 10.0 * lo {
+            Axis::log(label, unit)
+        } else {
+            Axis::linear(label, unit)
+        }
+    };
+    let mut gain = Figure::new(
+        "sweep-gain",
+        &format!("Gain against {}", first.path),
+        x(),
+        y_axis("gain", None, &|r| r.small_signal_gain),
+    );
+    let mut lin = Figure::new(
+        "sweep-linearity",
+        &format!("Anode current where the DC gain deviation reaches 1 %, against {}", first.path),
+        x(),
+        y_axis("±1 % linearity limit", Some("A"), &|r| r.linearity_1pct_amps),
+    );
+    for (label, rows) in &groups {
+        let sep = if label.is_empty() { "" } else { ", " };
+        let pts = |f: &dyn Fn(&crate::sweep::Row) -> Option<f64>| -> Vec<(f64, f64)> {
+            rows.iter()
+                .filter_map(|r| f(r).filter(|y| y.is_finite() && *y > 0.0).map(|y| (r.values[0], y)))
+                .collect()
+        };
+        gain = gain
+            .with(&format!("small-signal{sep}{label}"), Style::Line, pts(&|r| r.small_signal_gain))
+            .with(&format!("at the operating point{sep}{label}"), Style::Points, pts(&|r| r.gain));
+        lin = lin.with(
+            &format!("±1 % limit{sep}{label}"),
+            Style::Line,
+            pts(&|r| r.linearity_1pct_amps),
+        );
+    }
+    vec![gain, lin]
+}
