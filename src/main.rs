@@ -30,7 +30,7 @@ enum Exit {
     name = "dynode",
     version,
     about = "Design and check photomultiplier-tube bases: divider, gain, linearity, safety.",
-    after_help = "Example:\n  dynode report designs/rooftop-paddle.ron\n  dynode report designs/rooftop-paddle.ron --format json -o paddle.json\n\nHIGH VOLTAGE: the circuits this tool describes can kill. See SAFETY.md."
+    after_help = "Example:\n  dynode report designs/rooftop-paddle.ron\n  dynode report designs/rooftop-paddle.ron --format json -o paddle.json\n  dynode size designs/requirements/paddle-rebuild.ron -o paddle-sized.ron\n  dynode spread designs/rooftop-paddle.ron --samples 100000 --seed 7\n  dynode sweep designs/rooftop-paddle.ron --vary supply.volts=900V..1500V:13\n\nHIGH VOLTAGE: the circuits this tool describes can kill. See SAFETY.md."
 )]
 struct Cli {
     #[command(subcommand)]
@@ -48,6 +48,15 @@ struct OutputArgs {
     /// Print no messages on stderr (errors still print).
     #[arg(short, long)]
     quiet: bool,
+}
+
+/// Output formats of `spread` and `sweep` (tables, not reports).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
+enum DataFormat {
+    /// Plain text for a terminal or a lab notebook.
+    Text,
+    /// JSON, SI base units (keys in DEVELOPERS.md).
+    Json,
 }
 
 #[derive(Subcommand)]
@@ -150,9 +159,9 @@ enum Command {
         /// Samples on which the linearity curve is traced.
         #[arg(long, default_value_t = 200)]
         linearity_samples: usize,
-        /// Output format (text or json).
-        #[arg(short, long, value_enum, default_value_t = Format::Text)]
-        format: Format,
+        /// Output format.
+        #[arg(short, long, value_enum, default_value_t = DataFormat::Text)]
+        format: DataFormat,
         /// Also write the histograms as SVG and PNG into DIR (spread-gain.png, …).
         #[arg(long, value_name = "DIR")]
         plots: Option<PathBuf>,
@@ -169,9 +178,9 @@ enum Command {
         /// PATH=START..END:COUNT[:log]; give it once or twice (a grid).
         #[arg(long, value_name = "SPEC", required = true)]
         vary: Vec<String>,
-        /// Output format (text or json).
-        #[arg(short, long, value_enum, default_value_t = Format::Text)]
-        format: Format,
+        /// Output format.
+        #[arg(short, long, value_enum, default_value_t = DataFormat::Text)]
+        format: DataFormat,
         /// Also write the figures as SVG and PNG into DIR (sweep-gain.png, sweep-linearity.png).
         #[arg(long, value_name = "DIR")]
         plots: Option<PathBuf>,
@@ -241,7 +250,7 @@ fn run_spread(
     mut cfg: dynode::spread::SpreadConfig,
     pulse_charge: Option<String>,
     requirements: Option<PathBuf>,
-    format: Format,
+    format: DataFormat,
     plots: Option<PathBuf>,
     out: &OutputArgs,
 ) -> ExitCode {
@@ -326,8 +335,8 @@ fn run_spread(
         Err(e) => return fail(&e, analysis_exit(&e)),
     };
     let text = match format {
-        Format::Json => report::spread::json(&s),
-        _ => report::spread::text(&s),
+        DataFormat::Json => report::spread::json(&s),
+        DataFormat::Text => report::spread::text(&s),
     };
     if let Err(code) = emit(&text, out, design) {
         return code;
@@ -350,7 +359,11 @@ fn write_plots(
     match output::write_figures(dir, figs, inputs, out.force) {
         Ok(paths) => {
             if !out.quiet {
-                eprintln!("dynode: wrote {} figure files in {}", paths.len(), dir.display());
+                eprintln!(
+                    "dynode: wrote {} figure files in {}",
+                    paths.len(),
+                    dir.display()
+                );
             }
             Ok(())
         }
@@ -464,7 +477,15 @@ fn run() -> ExitCode {
                 supply_max_volts: None,
                 linearity_samples,
             };
-            run_spread(&design, cfg, pulse_charge, requirements, format, plots, &out)
+            run_spread(
+                &design,
+                cfg,
+                pulse_charge,
+                requirements,
+                format,
+                plots,
+                &out,
+            )
         }
         Command::Sweep {
             design,
@@ -500,8 +521,8 @@ fn run() -> ExitCode {
             }
             let s = dynode::sweep::run(&d, &axes);
             let text = match format {
-                Format::Json => report::sweep::json(&d, &s),
-                _ => report::sweep::text(&d, &s),
+                DataFormat::Json => report::sweep::json(&d, &s),
+                DataFormat::Text => report::sweep::text(&d, &s),
             };
             if let Err(code) = emit(&text, &out, &design) {
                 return code;

@@ -211,7 +211,13 @@ pub const BINS: usize = 60;
 
 /// Histogram of `values` between their 0.1 % and 99.9 % points (the tails are left out of the
 /// picture, not of the statistics).
-pub fn histogram(name: &str, label: &str, unit: Option<&str>, log: bool, values: &[f64]) -> Histogram {
+pub fn histogram(
+    name: &str,
+    label: &str,
+    unit: Option<&str>,
+    log: bool,
+    values: &[f64],
+) -> Histogram {
     let mut v: Vec<f64> = values
         .iter()
         .copied()

@@ -97,7 +97,7 @@ pub fn text(s: &Spread) -> String {
     let _ = writeln!(
         out,
         "  {:<42} {}",
-        "supply for the target gain",
+        "supply that restores the target gain",
         p3(&s.supply_for_target, &|x| eng(x, "V"))
     );
     for (gap, p) in &s.droop {
@@ -127,7 +127,7 @@ pub fn text(s: &Spread) -> String {
     if s.linearity_samples > 0 {
         let _ = writeln!(
             out,
-            "  (linearity limits traced on the first {} samples)",
+            "  (linearity limits found on the first {} samples)",
             s.linearity_samples
         );
     }
@@ -283,7 +283,11 @@ pub fn figures(s: &Spread) -> Vec<crate::plot::Figure> {
             .with(
                 "samples",
                 Style::Line,
-                h.centres.iter().copied().zip(h.fractions.iter().copied()).collect(),
+                h.centres
+                    .iter()
+                    .copied()
+                    .zip(h.fractions.iter().copied())
+                    .collect(),
             );
             let p = match h.name.as_str() {
                 "spread-gain" => Some((s.small_signal_gain, 1.0)),

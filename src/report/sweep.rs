@@ -170,17 +170,18 @@ pub fn figures(s: &Sweep) -> Vec<crate::plot::Figure> {
             .collect(),
     };
     // A log axis only where the values span more than a decade (fewer ticks otherwise).
-    let y_axis = |label: &str, unit: Option<&str>, f: &dyn Fn(&crate::sweep::Row) -> Option<f64>| {
-        let v: Vec<f64> = s.rows.iter().filter_map(f).filter(|y| *y > 0.0).collect();
-        let (lo, hi) = v
-            .iter()
-            .fold((f64::INFINITY, 0.0f64), |(a, b), y| (a.min(*y), b.max(*y)));
-        if hi > 10.0 * lo {
-            Axis::log(label, unit)
-        } else {
-            Axis::linear(label, unit)
-        }
-    };
+    let y_axis =
+        |label: &str, unit: Option<&str>, f: &dyn Fn(&crate::sweep::Row) -> Option<f64>| {
+            let v: Vec<f64> = s.rows.iter().filter_map(f).filter(|y| *y > 0.0).collect();
+            let (lo, hi) = v
+                .iter()
+                .fold((f64::INFINITY, 0.0f64), |(a, b), y| (a.min(*y), b.max(*y)));
+            if hi > 10.0 * lo {
+                Axis::log(label, unit)
+            } else {
+                Axis::linear(label, unit)
+            }
+        };
     let mut gain = Figure::new(
         "sweep-gain",
         &format!("Gain against {}", first.path),
@@ -189,20 +190,36 @@ pub fn figures(s: &Sweep) -> Vec<crate::plot::Figure> {
     );
     let mut lin = Figure::new(
         "sweep-linearity",
-        &format!("Anode current where the DC gain deviation reaches 1 %, against {}", first.path),
+        &format!(
+            "Anode current where the DC gain deviation reaches 1 %, against {}",
+            first.path
+        ),
         x(),
-        y_axis("±1 % linearity limit", Some("A"), &|r| r.linearity_1pct_amps),
+        y_axis("±1 % linearity limit", Some("A"), &|r| {
+            r.linearity_1pct_amps
+        }),
     );
     for (label, rows) in &groups {
         let sep = if label.is_empty() { "" } else { ", " };
         let pts = |f: &dyn Fn(&crate::sweep::Row) -> Option<f64>| -> Vec<(f64, f64)> {
             rows.iter()
-                .filter_map(|r| f(r).filter(|y| y.is_finite() && *y > 0.0).map(|y| (r.values[0], y)))
+                .filter_map(|r| {
+                    f(r).filter(|y| y.is_finite() && *y > 0.0)
+                        .map(|y| (r.values[0], y))
+                })
                 .collect()
         };
         gain = gain
-            .with(&format!("small-signal{sep}{label}"), Style::Line, pts(&|r| r.small_signal_gain))
-            .with(&format!("at the operating point{sep}{label}"), Style::Points, pts(&|r| r.gain));
+            .with(
+                &format!("small-signal{sep}{label}"),
+                Style::Line,
+                pts(&|r| r.small_signal_gain),
+            )
+            .with(
+                &format!("at the operating point{sep}{label}"),
+                Style::Points,
+                pts(&|r| r.gain),
+            );
         lin = lin.with(
             &format!("±1 % limit{sep}{label}"),
             Style::Line,
