@@ -238,7 +238,7 @@ pub fn histogram(
     let at = |p: f64| v[((v.len() - 1) as f64 * p).round() as usize];
     let t = |x: f64| if log { x.ln() } else { x };
     let (lo, hi) = (t(at(0.001)), t(at(0.999)));
-    if !(hi > lo) {
+    if !hi.is_finite() || !lo.is_finite() || hi <= lo {
         return empty;
     }
     let w = (hi - lo) / BINS as f64;
