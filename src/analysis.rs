@@ -107,6 +107,8 @@ pub struct Analysis {
     /// Small-signal gain against supply magnitude under the design's divider: (volts, gain),
     /// from 60 % of the supply to the tube's maximum.
     pub gain_curve: Vec<(f64, f64)>,
+    /// The pulse-train figures, when the design gives a `train` block.
+    pub train: Option<crate::pulsetrain::TrainAnalysis>,
 }
 
 impl Analysis {
@@ -128,6 +130,14 @@ pub fn rated_voltage(power: f64, resistance: f64, working: f64) -> f64 {
 
 /// Run the whole analysis.
 pub fn analyse(design: &Design) -> Result<Analysis, AnalysisError> {
+    analyse_with(design, Some(crate::pulsetrain::TrainOptions::default()))
+}
+
+/// Run the analysis; `train` = None skips the pulse-train solve (e.g. for a netlist).
+pub fn analyse_with(
+    design: &Design,
+    train: Option<crate::pulsetrain::TrainOptions>,
+) -> Result<Analysis, AnalysisError> {
     let file = design.source.clone();
     let tube = TubeModel::from_spec(&design.tube).map_err(|source| AnalysisError::Tube {
         file: file.clone(),
@@ -379,8 +389,24 @@ pub fn analyse(design: &Design) -> Result<Analysis, AnalysisError> {
         .filter(|(_, g)| g.is_finite() && *g > 0.0)
         .collect();
 
+    let train = match train {
+        None => None,
+        Some(opts) => match crate::pulsetrain::analyse(design, &network.tube, &opts) {
+            Ok(t) => t,
+            Err(e) => {
+                warnings.push(format!(
+                    "The pulse-train solve failed, so the train section is missing: {e}"
+                ));
+                None
+            }
+        },
+    };
+    if let Some(t) = &train {
+        warnings.extend(t.warnings.iter().cloned());
+    }
     Ok(Analysis {
         gain_curve,
+        train,
         design: design.clone(),
         network,
         quiescent_amps,

@@ -131,6 +131,9 @@ pub struct RawDesign {
     /// Where to evaluate the operating point.
     #[serde(default)]
     pub operating: Option<RawOperating>,
+    /// A pulse train for the time-domain solve (see [`crate::train`]).
+    #[serde(default)]
+    pub train: Option<crate::train::RawTrain>,
 }
 
 /// The tube block.
@@ -228,6 +231,9 @@ pub struct RawSupply {
     /// Ripple, drift and setting accuracy of the supply, and the gain stability wanted.
     #[serde(default)]
     pub quality: Option<RawSupplyQuality>,
+    /// Output (series) resistance of the supply, seen by the base in the time-domain solve.
+    #[serde(default)]
+    pub output_resistance: Option<Value>,
 }
 
 /// How steady the supply is, and how steady the gain must be.
@@ -485,6 +491,10 @@ pub struct Design {
     pub series_parts: Vec<usize>,
     /// Supply ripple, drift, setting accuracy and the gain stability wanted, if given.
     pub supply_quality: Option<SupplyQuality>,
+    /// Supply output resistance (time-domain solve only; the DC solve takes the supply as ideal).
+    pub supply_resistance: Option<ElectricalResistance>,
+    /// Pulse train, if the design gives one.
+    pub train: Option<crate::train::TrainSpec>,
 }
 
 impl Design {
@@ -524,12 +534,13 @@ pub const TYPICAL_COLLECTION: f64 = 0.9;
 /// Stray capacitance per gap assumed when none is given (common practice: a few pF).
 pub const TYPICAL_STRAY_FARADS: f64 = 3e-12;
 
-struct Checker<'a> {
+/// Field checks shared by the design's blocks (other modules check their own blocks with it).
+pub(crate) struct Checker<'a> {
     file: &'a str,
 }
 
 impl Checker<'_> {
-    fn fail(&self, field: impl Into<String>, message: impl Into<String>) -> DesignError {
+    pub(crate) fn fail(&self, field: impl Into<String>, message: impl Into<String>) -> DesignError {
         DesignError::Field {
             file: self.file.to_string(),
             field: field.into(),
@@ -537,7 +548,7 @@ impl Checker<'_> {
         }
     }
 
-    fn quantity(&self, field: &str, v: &Value, kind: Kind) -> Result<f64, DesignError> {
+    pub(crate) fn quantity(&self, field: &str, v: &Value, kind: Kind) -> Result<f64, DesignError> {
         match v {
             Value::Number(x) if !x.is_finite() => Err(self.fail(
                 field,
@@ -571,7 +582,7 @@ impl Checker<'_> {
     }
 
     /// A positive quantity inside a plausible range, to catch unit slips ("4.7 uF" for nF).
-    fn ranged(
+    pub(crate) fn ranged(
         &self,
         field: &str,
         v: &Value,
@@ -922,6 +933,7 @@ const FIELD_NAMES: &[&str] = &[
     "drift",
     "setting_accuracy",
     "gain_stability",
+    "output_resistance",
 ];
 
 /// Levenshtein distance, for suggestions.
@@ -943,6 +955,7 @@ fn edit_distance(a: &str, b: &str) -> usize {
 fn nearest<'a>(unknown: &str, candidates: &[&'a str]) -> Option<&'a str> {
     candidates
         .iter()
+        .chain(crate::train::FIELD_NAMES)
         .map(|n| (edit_distance(unknown, n), *n))
         .filter(|(d, n)| *d <= 3 && *d < n.len() && *n != unknown)
         .min()
@@ -1205,6 +1218,10 @@ fn check(raw: RawDesign, file: &str) -> Result<Design, DesignError> {
     let current_limit = match &s.current_limit {
         None => None,
         Some(v) => Some(c.ranged("supply.current_limit", v, Kind::Current, 1e-9, 10.0)?),
+    };
+    let supply_resistance = match &s.output_resistance {
+        None => None,
+        Some(v) => Some(c.ranged("supply.output_resistance", v, Kind::Resistance, 1e-3, 1e9)?),
     };
     let supply_capacitance = match &s.output_capacitance {
         None => None,
@@ -1529,6 +1546,11 @@ fn check(raw: RawDesign, file: &str) -> Result<Design, DesignError> {
         operating_assumed: raw.operating.is_none(),
         series_parts,
         supply_quality,
+        supply_resistance: supply_resistance.map(ElectricalResistance::new::<ohm>),
+        train: match &raw.train {
+            None => None,
+            Some(t) => Some(crate::train::check(t, &c)?),
+        },
     })
 }
 

@@ -94,6 +94,26 @@ enum Command {
         /// The shell.
         shell: clap_complete::Shell,
     },
+    /// Solve the base in time under the design's pulse train: per-pulse gain, droop, recovery,
+    /// pulse linearity, capacitor sizing and a tapered comparison.
+    #[command(
+        after_help = "Example:\n  dynode train designs/laser-burst-counter.ron\n  dynode train designs/laser-burst-counter.ron --pulses 200 --train-only --format json"
+    )]
+    Train {
+        /// The design file (RON), with a `train` block.
+        design: PathBuf,
+        /// Output format.
+        #[arg(short, long, value_enum, default_value_t = Format::Text)]
+        format: Format,
+        /// Replace the pattern's pulse count (bursts keep their number of bursts).
+        #[arg(long, value_name = "N")]
+        pulses: Option<usize>,
+        /// Solve the train only: skip the pulse-linearity scan, sizing and taper comparison.
+        #[arg(long)]
+        train_only: bool,
+        #[command(flatten)]
+        out: OutputArgs,
+    },
     /// Write a SPICE netlist of the solved network (behavioural dynode sources).
     #[command(
         after_help = "Example:\n  dynode netlist designs/rooftop-paddle.ron -o base.cir\n  ngspice -b base.cir"
@@ -104,6 +124,13 @@ enum Command {
         /// Average anode current to set the cathode current for (default: the design's).
         #[arg(long, value_name = "CURRENT")]
         anode_current: Option<String>,
+        /// Write a transient netlist of the design's pulse train (`.tran`, one `meas` per pulse)
+        /// instead of the DC operating point.
+        #[arg(long, conflicts_with = "anode_current")]
+        train: bool,
+        /// With --train: replace the pattern's pulse count.
+        #[arg(long, value_name = "N", requires = "train")]
+        pulses: Option<usize>,
         #[command(flatten)]
         out: OutputArgs,
     },
@@ -611,9 +638,70 @@ fn run() -> ExitCode {
             }
             ExitCode::from(Exit::Ok as u8)
         }
+        Command::Train {
+            design,
+            format,
+            pulses,
+            train_only,
+            out,
+        } => {
+            let d = match design::load(&design) {
+                Ok(d) => d,
+                Err(e) => return fail(e, Exit::BadInput),
+            };
+            if d.train.is_none() {
+                return fail(
+                    format!(
+                        "{}: train: the design gives no train block; add one such as train: Some((size: Charge(\"100 pC\"), shape: Gaussian(fwhm: \"10 ns\"), pattern: Periodic(count: 20, rate: \"1 MHz\")))",
+                        d.source
+                    ),
+                    Exit::BadInput,
+                );
+            }
+            if pulses.is_some_and(|p| p == 0 || p > dynode::train::MAX_PULSES) {
+                return fail(
+                    format!(
+                        "--pulses: expected a count from 1 to {}",
+                        dynode::train::MAX_PULSES
+                    ),
+                    Exit::BadInput,
+                );
+            }
+            if let Some(p) = &out.output
+                && let Err(e) = output::check_target(p, &[design.as_path()], out.force)
+            {
+                return fail(e, Exit::BadInput);
+            }
+            let opts = dynode::pulsetrain::TrainOptions { pulses, train_only };
+            let a = match analysis::analyse_with(&d, None) {
+                Ok(a) => a,
+                Err(e) => return fail(&e, analysis_exit(&e)),
+            };
+            let train = match dynode::pulsetrain::analyse(&d, &a.network.tube, &opts) {
+                Ok(t) => t,
+                Err(e) => return fail(format!("{}: {e}", d.source), Exit::SolveFailed),
+            };
+            let mut a = a;
+            if let Some(t) = &train {
+                a.warnings.extend(t.warnings.iter().cloned());
+            }
+            a.train = train;
+            let text = match format {
+                Format::Text => report::train::render_text(&a),
+                Format::Json => report::train::render_json(&a),
+                // The richer formats carry the train as a section of the full report.
+                Format::Html | Format::Markdown => report::render(&a, format),
+            };
+            if let Err(code) = emit(&text, &out, &design) {
+                return code;
+            }
+            ExitCode::from(Exit::Ok as u8)
+        }
         Command::Netlist {
             design,
             anode_current,
+            train,
+            pulses,
             out,
         } => {
             let d = match design::load(&design) {
@@ -640,10 +728,53 @@ fn run() -> ExitCode {
                     Err(e) => return fail(format!("--anode-current: {e}"), Exit::BadInput),
                 },
             };
-            let a = match analysis::analyse(&d) {
+            let a = match analysis::analyse_with(&d, None) {
                 Ok(a) => a,
                 Err(e) => return fail(&e, analysis_exit(&e)),
             };
+            if train {
+                let Some(spec) = &d.train else {
+                    return fail(
+                        format!(
+                            "{}: train: --train needs a train block in the design",
+                            d.source
+                        ),
+                        Exit::BadInput,
+                    );
+                };
+                if pulses.is_some_and(|p| p == 0 || p > dynode::train::MAX_PULSES) {
+                    return fail(
+                        format!(
+                            "--pulses: expected a count from 1 to {}",
+                            dynode::train::MAX_PULSES
+                        ),
+                        Exit::BadInput,
+                    );
+                }
+                let pattern = pulses.map_or(spec.pattern, |p| spec.pattern.with_count(p));
+                let base = dynode::transient::Base::from_design(&d, a.network.tube.clone());
+                let g0 = match base.quiescent_state() {
+                    Ok((nv, _)) => {
+                        let gaps: Vec<f64> =
+                            (1..=d.tube.stages).map(|j| nv[j] - nv[j - 1]).collect();
+                        a.network.tube.gain_for_gaps(&gaps)
+                    }
+                    Err(e) => return fail(format!("{}: {e}", d.source), Exit::SolveFailed),
+                };
+                let qk = dynode::pulsetrain::cathode_charge(spec.size, &spec.shape, g0);
+                let text = netlist::write_transient(
+                    &d,
+                    &a.network.tube,
+                    &pattern.arrivals(),
+                    &spec.shape,
+                    qk,
+                    true,
+                );
+                if let Err(code) = emit(&text, &out, &design) {
+                    return code;
+                }
+                return ExitCode::from(Exit::Ok as u8);
+            }
             let mut ws = dynode::network::Workspace::default();
             let op = match a.network.solve_anode(anode, &mut ws) {
                 Ok(op) => op,

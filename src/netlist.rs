@@ -12,6 +12,7 @@ use std::fmt::Write;
 
 use crate::design::{CapStyle, Design, Element, Polarity};
 use crate::network::ZENER_LEAK_SIEMENS;
+use crate::train::Shape;
 use crate::tube::{COLLECTION_VOLTS, SMOOTH_VOLTS, TubeModel};
 use uom::si::capacitance::farad;
 use uom::si::electric_potential::volt;
@@ -58,6 +59,35 @@ pub fn relative_expr(design: &Design, electrode: usize) -> String {
 
 /// Write the netlist text.
 pub fn write(design: &Design, tube: &TubeModel, opts: &NetlistOptions) -> String {
+    let mut s = circuit(design, tube, Source::Dc(opts.cathode_amps));
+    let n = design.tube.stages;
+    let _ = writeln!(s, ".options reltol=1e-10 vntol=1e-12 abstol=1e-18");
+    let _ = writeln!(s, ".op");
+    if opts.control_block {
+        let _ = writeln!(s, ".control");
+        let _ = writeln!(s, "set numdgt=15");
+        let _ = writeln!(s, "op");
+        for e in 1..=n + 1 {
+            let _ = writeln!(s, "print {}", relative_expr(design, e));
+        }
+        let _ = writeln!(s, "quit 0");
+        let _ = writeln!(s, ".endc");
+    }
+    let _ = writeln!(s, ".end");
+    s
+}
+
+/// How the cathode current enters the circuit.
+enum Source<'a> {
+    /// A constant, as `.param ik`.
+    Dc(f64),
+    /// A piecewise-linear voltage on node `ikn` (1 V stands for 1 A), and the supply's output
+    /// resistance and capacitance.
+    Pwl(&'a [(f64, f64)]),
+}
+
+/// The circuit: header, supply, divider, capacitors, load and tube sources.
+fn circuit(design: &Design, tube: &TubeModel, source: Source) -> String {
     let n = design.tube.stages;
     let vs = design.supply_magnitude();
     let rtn = node(design, n + 2);
@@ -90,14 +120,59 @@ pub fn write(design: &Design, tube: &TubeModel, opts: &NetlistOptions) -> String
         "* gap transmission: I_out = (1 - exp(-sp(u)/{COLLECTION_VOLTS} V)) I_in / (1 + (I_in / (P sp(u)^1.5))^4)^0.25, P = {} A/V^1.5.",
         num(tube.perveance)
     );
-    let _ = writeln!(s, ".param ik = {}", num(opts.cathode_amps));
-    let _ = writeln!(s, "* Supply: {} V magnitude, {:?}.", vs, design.polarity);
-    match design.polarity {
-        Polarity::CathodeNegative => {
-            let _ = writeln!(s, "VHV 0 k DC {}", num(vs));
+    let ik = match source {
+        Source::Dc(amps) => {
+            let _ = writeln!(s, ".param ik = {}", num(amps));
+            "ik".to_string()
         }
-        Polarity::AnodePositive => {
-            let _ = writeln!(s, "VHV hv 0 DC {}", num(vs));
+        Source::Pwl(points) => {
+            let _ = writeln!(
+                s,
+                "* Cathode current of the pulse train (1 V on ikn stands for 1 A)."
+            );
+            let _ = write!(s, "VIK ikn 0 PWL(");
+            for (i, (t, v)) in points.iter().enumerate() {
+                if i % 4 == 0 {
+                    let _ = write!(s, "\n+");
+                }
+                let _ = write!(s, " {} {}", num(*t), num(*v));
+            }
+            let _ = writeln!(s, ")");
+            "v(ikn)".to_string()
+        }
+    };
+    let _ = writeln!(s, "* Supply: {} V magnitude, {:?}.", vs, design.polarity);
+    let rs = match source {
+        Source::Pwl(_) => design.supply_resistance.map(|r| r.get::<ohm>()),
+        Source::Dc(_) => None,
+    };
+    let (plus, minus) = match design.polarity {
+        Polarity::CathodeNegative => ("0", "k"),
+        Polarity::AnodePositive => ("hv", "0"),
+    };
+    match rs {
+        None => {
+            let _ = writeln!(s, "VHV {plus} {minus} DC {}", num(vs));
+        }
+        Some(r) => {
+            // The output resistance in series with the lead that is not ground.
+            let _ = writeln!(
+                s,
+                "* Supply output resistance in series, output capacitance across the output."
+            );
+            match design.polarity {
+                Polarity::CathodeNegative => {
+                    let _ = writeln!(s, "VHV 0 ks DC {}", num(vs));
+                    let _ = writeln!(s, "RSUP ks k {}", num(r));
+                }
+                Polarity::AnodePositive => {
+                    let _ = writeln!(s, "VHV hvs 0 DC {}", num(vs));
+                    let _ = writeln!(s, "RSUP hvs hv {}", num(r));
+                }
+            }
+            if let Some(c) = design.supply_capacitance {
+                let _ = writeln!(s, "CSUP {plus} {minus} {}", num(c.get::<farad>()));
+            }
         }
     }
     let _ = writeln!(
@@ -188,7 +263,7 @@ pub fn write(design: &Design, tube: &TubeModel, opts: &NetlistOptions) -> String
         let b = node(design, j - 1);
         let gap = sp(&a, &b);
         let offered = if j == 1 {
-            "ik".to_string()
+            ik.clone()
         } else {
             let pa = node(design, j - 1);
             let pb = node(design, j - 2);
@@ -215,15 +290,111 @@ pub fn write(design: &Design, tube: &TubeModel, opts: &NetlistOptions) -> String
         );
     }
     let _ = writeln!(s, "BIP p 0 I = v(t{})", n + 1);
-    let _ = writeln!(s, ".options reltol=1e-10 vntol=1e-12 abstol=1e-18");
-    let _ = writeln!(s, ".op");
-    if opts.control_block {
+    s
+}
+
+/// The cathode current of a train as piecewise-linear points (time, amperes): exact corners
+/// for a trapezoid; a smooth shape is sampled at 64 points over its support (linear
+/// interpolation between them, an approximation the simulator then follows).
+pub fn train_points(arrivals: &[f64], shape: &Shape, cathode_charge: f64) -> Vec<(f64, f64)> {
+    let mut knots: Vec<f64> = match shape {
+        Shape::Trapezoid(..) => shape.corners(),
+        _ => (0..=64)
+            .map(|i| shape.support() * i as f64 / 64.0)
+            .collect(),
+    };
+    knots.dedup();
+    let mut times: Vec<f64> = arrivals
+        .iter()
+        .flat_map(|a| knots.iter().map(move |k| a + k))
+        .collect();
+    times.sort_by(f64::total_cmp);
+    times.dedup_by(|a, b| (*a - *b).abs() <= 1e-18);
+    let support = shape.support();
+    let mut out: Vec<(f64, f64)> = times
+        .iter()
+        .map(|t| {
+            let i: f64 = arrivals
+                .iter()
+                .filter(|a| **a <= *t && *t - **a <= support)
+                .map(|a| shape.value(t - a))
+                .sum();
+            (*t, i * cathode_charge)
+        })
+        .collect();
+    // The simulator needs strictly rising times.
+    out.dedup_by(|a, b| a.0 <= b.0);
+    out
+}
+
+/// Ground-referenced node of the pulse signal: the load behind a coupling capacitor, else the
+/// anode. For a cathode-negative supply the ground is the return rail; for an anode-positive
+/// one the cathode.
+pub fn signal_node(design: &Design) -> &'static str {
+    if design.coupling.is_some() {
+        "load"
+    } else {
+        "p"
+    }
+}
+
+/// A transient netlist of the base under a pulse train: the same circuit as [`write`], with
+/// the cathode current as a piecewise-linear source, the supply's output resistance and
+/// capacitance, a `.tran` over the train, and (with `control_block`) one `meas` per pulse of the
+/// signal's extreme in the pulse's window (`pk<i>`), and of the last divider element's voltage
+/// at the end of the train (`vlast`).
+pub fn write_transient(
+    design: &Design,
+    tube: &TubeModel,
+    arrivals: &[f64],
+    shape: &Shape,
+    cathode_charge: f64,
+    control_block: bool,
+) -> String {
+    let n = design.tube.stages;
+    let points = train_points(arrivals, shape, cathode_charge);
+    let mut s = circuit(design, tube, Source::Pwl(&points));
+    let end = arrivals.last().copied().unwrap_or(0.0) + shape.support();
+    // A step limit of half a pulse; the source's corners are breakpoints for the simulator.
+    let tmax = shape.support() / 2.0;
+    let _ = writeln!(
+        s,
+        ".options reltol=1e-6 abstol=1e-15 vntol=1e-9 chgtol=1e-20 method=gear maxord=2"
+    );
+    let _ = writeln!(s, ".tran {} {} 0 {}", num(tmax), num(end), num(tmax));
+    if control_block {
+        let sig = signal_node(design);
+        let gnd = match design.polarity {
+            Polarity::CathodeNegative => node(design, n + 2),
+            Polarity::AnodePositive => "0".to_string(),
+        };
+        let sig_expr = if gnd == "0" {
+            format!("v({sig})")
+        } else {
+            format!("v({sig},{gnd})")
+        };
         let _ = writeln!(s, ".control");
-        let _ = writeln!(s, "set numdgt=15");
-        let _ = writeln!(s, "op");
-        for e in 1..=n + 1 {
-            let _ = writeln!(s, "print {}", relative_expr(design, e));
+        let _ = writeln!(s, "set numdgt=12");
+        let _ = writeln!(s, "run");
+        for (i, a) in arrivals.iter().enumerate() {
+            let to = arrivals.get(i + 1).copied().unwrap_or(end);
+            let _ = writeln!(
+                s,
+                "meas tran pk{} MIN {sig_expr} FROM={} TO={}",
+                i + 1,
+                num(*a),
+                num(to)
+            );
         }
+        let top = node(design, n + 2);
+        let bottom = node(design, n);
+        let last = if top == "0" {
+            format!("0 - v({bottom})")
+        } else {
+            format!("v({top}) - v({bottom})")
+        };
+        let _ = writeln!(s, "let vlastgap = {last}");
+        let _ = writeln!(s, "meas tran vlast FIND vlastgap AT={}", num(end));
         let _ = writeln!(s, "quit 0");
         let _ = writeln!(s, ".endc");
     }

@@ -513,6 +513,7 @@ pub fn parse_requirements(text: &str, file: &str) -> Result<Requirements, Sizing
             current_limit: Some(raw.supply.max_current.clone()),
             output_capacitance: raw.supply.output_capacitance.clone(),
             quality: raw.supply.quality,
+            output_resistance: None,
         },
         divider: RawDivider {
             gaps: (0..=n).map(|_| RawElement::R(Value::Number(1e6))).collect(),
@@ -529,6 +530,7 @@ pub fn parse_requirements(text: &str, file: &str) -> Result<Requirements, Sizing
         operating: Some(RawOperating {
             anode_current: raw.anode.max_average.clone(),
         }),
+        train: None,
     };
     let base = design::check_raw(placeholder, f).map_err(|e| match e {
         DesignError::Field {

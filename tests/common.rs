@@ -73,6 +73,18 @@ pub const NULLABLE_KEYS: &[&str] = &[
     "setting_accuracy",
     "setting_gain",
     "meets",
+    // train (DEVELOPERS.md, "Train JSON")
+    "train",
+    "recovery_s",
+    "average_anode_amps",
+    "pct1_amps",
+    "pct5_amps",
+    "pct1_sign",
+    "pct5_sign",
+    "train_pulse_deviation",
+    "sizing",
+    "taper",
+    "pulse",
 ];
 
 /// Walk a JSON value and fail on any number that is not finite (serde_json writes NaN as null,

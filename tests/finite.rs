@@ -53,6 +53,20 @@ pub const NULLABLE: &[&str] = &[
     "rows[].sensitivity",
     "rows[].dissipation_watts",
     "rows[].linearity_1pct_amps",
+    // train (DEVELOPERS.md, "Train JSON"): no train block; limits not reached; scans not made
+    "train",
+    "train.recovery_s",
+    "train.average_anode_amps",
+    "pulse_linearity.pct1_amps",
+    "pulse_linearity.pct5_amps",
+    "pulse_linearity.pct1_sign",
+    "pulse_linearity.pct5_sign",
+    "pulse_linearity.train_pulse_deviation",
+    "train.sizing",
+    "train.taper",
+    "droop[].pulse",
+    "taper.pct1_amps[]",
+    "taper.pct5_amps[]",
 ];
 
 /// Whether the value at `path` (e.g. `gaps[3].delta`) may be null.

@@ -21,5 +21,7 @@ mod outputs;
 mod properties;
 /// Sizing from requirements, IEC 60063 tables, tolerance statistics, sweeps, supply quality.
 mod sizing;
+/// Pulse trains: ngspice transient, charge conservation, RC recovery, linear limit.
+mod train;
 /// Plausibility warnings: triggered one by one, shown in every format, never blocking.
 mod warnings;

@@ -98,6 +98,7 @@ pub fn to_value(a: &Analysis) -> Value {
             "bleed_threshold_volts": safety::SAFE_VOLTS,
             "shield_touch_amps": s.shield_touch_amps,
         },
+        "train": super::train::json(a),
         "warnings": a.warnings,
         "assumptions": a.assumptions,
     })

@@ -12,6 +12,7 @@ pub mod supply;
 pub mod sweep;
 pub mod tables;
 pub mod text;
+pub mod train;
 
 use crate::analysis::Analysis;
 
@@ -41,5 +42,9 @@ pub fn render(a: &Analysis, format: Format) -> String {
 /// Sections that capabilities beyond the core add, as (title, plain text), in report order.
 /// The HTML and Markdown renderers show each one; a capability adds its section here.
 pub fn extra_sections(a: &Analysis) -> Vec<(String, String)> {
-    vec![(supply::TITLE.to_string(), supply::body(a))]
+    let mut v = vec![(supply::TITLE.to_string(), supply::body(a))];
+    if let Some(t) = train::section_text(a) {
+        v.push(("Pulse train".to_string(), t));
+    }
+    v
 }
