@@ -559,3 +559,55 @@ fn spread_and_sweep_commands_run() {
         .unwrap();
     assert_eq!(o.status.code(), Some(2));
 }
+
+/// `--plots DIR` writes the spread histograms and the sweep figures as SVG and PNG (the PNG
+/// signature is the one fixed by the PNG specification, ISO/IEC 15948).
+#[test]
+fn spread_and_sweep_write_their_figures() {
+    let demo = crate_path("designs/rooftop-paddle.ron");
+    let dir = temp_dir("size-plots");
+    let o = bin()
+        .args([
+            "spread",
+            demo.to_str().unwrap(),
+            "--samples",
+            "2000",
+            "--linearity-samples",
+            "2",
+            "-q",
+            "-o",
+        ])
+        .arg(dir.join("spread.txt"))
+        .arg("--plots")
+        .arg(dir.join("figs"))
+        .output()
+        .unwrap();
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let o = bin()
+        .args([
+            "sweep",
+            demo.to_str().unwrap(),
+            "--vary",
+            "supply.volts=900V..1500V:7",
+            "-q",
+            "-o",
+        ])
+        .arg(dir.join("sweep.txt"))
+        .arg("--plots")
+        .arg(dir.join("figs"))
+        .output()
+        .unwrap();
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    for name in [
+        "spread-gain",
+        "spread-deviation",
+        "spread-supply",
+        "sweep-gain",
+        "sweep-linearity",
+    ] {
+        let svg = std::fs::read_to_string(dir.join("figs").join(format!("{name}.svg"))).unwrap();
+        assert!(svg.contains("<svg") && svg.contains("</svg>"), "{name}.svg");
+        let png = std::fs::read(dir.join("figs").join(format!("{name}.png"))).unwrap();
+        assert_eq!(&png[..8], b"\x89PNG\r\n\x1a\n", "{name}.png");
+    }
+}
