@@ -243,6 +243,9 @@ pub struct RawCapacitorFamily {
     /// Stray capacitance per gap (default 3 pF, common practice).
     #[serde(default)]
     pub stray: Option<Value>,
+    /// Capacitor tolerance: the droop must hold at the low end (default 0).
+    #[serde(default)]
+    pub tolerance: Option<Value>,
 }
 
 /// Top level of a requirements file.
@@ -316,6 +319,8 @@ pub struct Requirements {
     pub derating: f64,
     /// Capacitor series and allowed droop.
     pub capacitors: Option<(Series, f64)>,
+    /// Capacitor tolerance (fraction); capacitors are sized for the droop at `C (1 − tol)`.
+    pub capacitor_tolerance: f64,
     /// Largest base dissipation, W.
     pub max_dissipation: Option<f64>,
 }
@@ -467,6 +472,10 @@ pub fn parse_requirements(text: &str, file: &str) -> Result<Requirements, Sizing
         1e-4,
         1e3,
     )?;
+    let capacitor_tolerance = match raw.capacitors.as_ref().and_then(|c| c.tolerance.as_ref()) {
+        None => 0.0,
+        Some(v) => quantity(f, "capacitors.tolerance", v, Kind::Ratio, 0.0, 0.5)?,
+    };
     if let RatioPattern::Custom(w) = &raw.ratio {
         if stages >= 1 && w.len() != stages as usize + 1 {
             return Err(field_err(
@@ -574,6 +583,7 @@ pub fn parse_requirements(text: &str, file: &str) -> Result<Requirements, Sizing
         series: r.series,
         derating,
         capacitors,
+        capacitor_tolerance,
         max_dissipation,
     })
 }
@@ -956,8 +966,9 @@ pub fn size(req: &Requirements) -> Result<Sized, SizingError> {
         ));
         match (&charge, req.capacitors) {
             (Some((q, how)), Some((series, droop))) => r2.push(format!(
-                "Decoupling: charge per pulse {} ({how}); the last gap gives about Q, the one before Q/delta_n, … (physics brief §5); C ≥ Q_i / ({:.2} % × V_gap) by ΔV = Q/C, snapped up in {}, where the {} stray alone does not hold the droop; ratings at least {}× the gap voltage (common practice).",
+                "Decoupling: charge per pulse {} ({how}); the last gap gives about Q, the one before Q/delta_n, … (physics brief §5); C (1 − {:.0} % tolerance) ≥ Q_i / ({:.2} % × V_gap) by ΔV = Q/C, snapped up in {}, where the {} stray alone does not hold the droop; ratings at least {}× the gap voltage (common practice).",
                 format_eng(*q, "C"),
+                req.capacitor_tolerance * 100.0,
                 droop * 100.0,
                 series,
                 format_eng(base.stray.get::<farad>(), "F"),
@@ -1178,7 +1189,8 @@ fn size_capacitors(
         if qi / stray <= droop * v {
             break;
         }
-        let need = qi / (droop * v);
+        // Sized at the low end of the tolerance so that every part holds the droop.
+        let need = qi / (droop * v * (1.0 - req.capacitor_tolerance));
         let c = series.clean(series.snap(need, Snap::Up).unwrap_or(need));
         let rating = CAPACITOR_RATINGS
             .iter()
@@ -1319,9 +1331,13 @@ pub fn verify(
         let _ = q;
         for c in caps {
             let v = a.gaps[c.gap - 1].quiescent_volts;
-            let d = c.charge / (c.farads * v);
+            let d = c.charge / (c.farads * (1.0 - req.capacitor_tolerance) * v);
             push(
-                format!("gap {} droop per pulse", c.gap),
+                format!(
+                    "gap {} droop per pulse (capacitor at −{:.0} %)",
+                    c.gap,
+                    req.capacitor_tolerance * 100.0
+                ),
                 format!("{:.3} %", d * 100.0),
                 format!("{:.2} %", droop * 100.0),
                 d <= droop,
