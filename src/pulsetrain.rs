@@ -196,6 +196,8 @@ pub struct TrainAnalysis {
     pub peak_signal_volts: Vec<f64>,
     /// Per decoupling capacitor.
     pub droop: Vec<Droop>,
+    /// Divider element voltages (K–D1 … Dn–return) at the end of the last pulse, volts.
+    pub gap_volts_at_end: Vec<f64>,
     /// Recovery time after the train, seconds (`None`: not within `recovery_horizon`).
     pub recovery_s: Option<f64>,
     /// Horizon of the recovery search, seconds.
@@ -654,6 +656,7 @@ pub fn analyse(
         gain_ratio,
         peak_signal_volts: run.pulses.iter().map(|p| p.peak_signal_volts).collect(),
         droop,
+        gap_volts_at_end: run.elements_at_train_end.clone(),
         recovery_s: run.recovery,
         recovery_horizon: run.recovery_horizon,
         average_anode_amps,

@@ -348,6 +348,7 @@ fn to_json(t: &TrainAnalysis) -> Value {
             "pulse": d.pulse.map(|p| p + 1),
             "time_s": fin(d.time),
         })).collect::<Vec<_>>(),
+        "gap_volts_at_end": t.gap_volts_at_end.iter().map(|x| fin(*x)).collect::<Vec<_>>(),
         "recovery_s": opt_fin(t.recovery_s),
         "recovery_horizon_s": fin(t.recovery_horizon),
         "average_anode_amps": opt_fin(t.average_anode_amps),
