@@ -259,6 +259,17 @@ fn near_saturation_solves_and_beyond_it_is_refused_with_the_reason() {
 const JSON_COMMANDS: &[&[&str]] = &[
     &["report", "{design}", "--format", "json"],
     &["spread", "{design}", "--samples", "200", "--format", "json"],
+    // One sample and no linearity samples: percentiles of one value, limits absent.
+    &[
+        "spread",
+        "{design}",
+        "--samples",
+        "1",
+        "--linearity-samples",
+        "0",
+        "--format",
+        "json",
+    ],
     &[
         "sweep",
         "{design}",
