@@ -104,7 +104,56 @@ pub fn linearity(a: &Analysis) -> Figure {
     f
 }
 
+/// Gain of each pulse of the train relative to the first.
+pub fn train_gain(t: &crate::pulsetrain::TrainAnalysis) -> Figure {
+    let mut f = Figure::new(
+        "train-gain",
+        "Gain of each pulse over the train, relative to the first",
+        Axis::linear("pulse number", None),
+        Axis::linear("gain / gain of the first pulse (%)", None),
+    )
+    .with(
+        "computed, time-domain solve of the whole base",
+        Style::Points,
+        t.gain_ratio
+            .iter()
+            .enumerate()
+            .map(|(i, g)| ((i + 1) as f64, g * 100.0))
+            .collect(),
+    );
+    f.markers.push(Marker::Y(100.0, "first pulse".to_string()));
+    f
+}
+
+/// Change of each decoupling capacitor's voltage over the train (downsampled series).
+pub fn train_droop(t: &crate::pulsetrain::TrainAnalysis) -> Option<Figure> {
+    let s = &t.series;
+    if s.cap_delta_volts.is_empty() || s.t.len() < 2 {
+        return None;
+    }
+    let mut f = Figure::new(
+        "train-droop",
+        "Decoupling capacitor voltages over the train (change from before it)",
+        Axis::linear("time from the first pulse", Some("s")),
+        Axis::linear("voltage change", Some("V")),
+    );
+    for (d, dv) in t.droop.iter().zip(&s.cap_delta_volts) {
+        f = f.with(
+            &d.label,
+            Style::Line,
+            s.t.iter().copied().zip(dv.iter().copied()).collect(),
+        );
+    }
+    f.legend = crate::plot::Legend::LowerRight;
+    Some(f)
+}
+
 /// Every figure of a report, in order.
 pub fn all(a: &Analysis) -> Vec<Figure> {
-    vec![gaps(a), gain_curve(a), linearity(a)]
+    let mut v = vec![gaps(a), gain_curve(a), linearity(a)];
+    if let Some(t) = &a.train {
+        v.push(train_gain(t));
+        v.extend(train_droop(t));
+    }
+    v
 }
