@@ -280,6 +280,30 @@ const JSON_COMMANDS: &[&[&str]] = &[
     ],
 ];
 
+/// The same for designs with a `train` block: trains of one pulse and of a thousand (the
+/// 100 000-pulse case takes minutes; it is run by hand, DEVELOPERS.md "Numerical edge cases").
+const TRAIN_JSON_COMMANDS: &[&[&str]] = &[
+    &[
+        "train",
+        "{design}",
+        "--format",
+        "json",
+        "--pulses",
+        "1",
+        "--train-only",
+    ],
+    &[
+        "train",
+        "{design}",
+        "--format",
+        "json",
+        "--pulses",
+        "1000",
+        "--train-only",
+    ],
+    &["train", "{design}", "--format", "json"],
+];
+
 #[test]
 fn no_command_prints_a_non_finite_number_in_json() {
     let dir = crate::common::temp_dir("json-finite");
@@ -329,7 +353,9 @@ fn no_command_prints_a_non_finite_number_in_json() {
         designs.push(p);
     }
     for design in &designs {
-        for cmd in JSON_COMMANDS {
+        let has_train = std::fs::read_to_string(design).is_ok_and(|t| t.contains("train:"));
+        let train_cmds: &[&[&str]] = if has_train { TRAIN_JSON_COMMANDS } else { &[] };
+        for cmd in JSON_COMMANDS.iter().chain(train_cmds) {
             let args: Vec<String> = cmd
                 .iter()
                 .map(|a| a.replace("{design}", &design.to_string_lossy()))
