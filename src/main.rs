@@ -405,6 +405,7 @@ fn size_exit(e: &dynode::sizing::SizingError) -> Exit {
             Exit::BadInput
         }
         SizingError::Analysis(a) => analysis_exit(a),
+        SizingError::Train(_) => Exit::SolveFailed,
     }
 }
 

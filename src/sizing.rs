@@ -20,7 +20,8 @@
 //!    chosen IEC 60063 series, and the scale with the smallest worst-gap ratio error wins. The
 //!    supply is then re-solved for the target gain under the snapped ratio (the gain error that
 //!    snapping alone would cause is reported).
-//! 4. **Decoupling capacitors** across the last gaps for the allowed droop: during a pulse of
+//! 4. **Decoupling capacitors** across the last gaps for the allowed droop (refined by the
+//!    pulse-train solve, [`crate::pulsetrain::analyse`], when a pulse width is given): during a pulse of
 //!    charge `Q` the last gap gives about `Q`, the one before `Q/delta_n`, and so on (physics
 //!    brief §5); `ΔV = Q/C` (definition of capacitance), so `C ≥ Q_i / (droop · V_i)`, snapped up
 //!    in the capacitor series. A gap whose stray capacitance alone keeps the droop within bounds
@@ -105,6 +106,9 @@ pub enum SizingError {
         /// Why, and what to change.
         message: String,
     },
+    /// The pulse-train solve failed while refining the capacitors.
+    #[error("{0}")]
+    Train(String),
     /// The core solve failed on the sized design.
     #[error("{0}")]
     Analysis(#[from] AnalysisError),
@@ -933,7 +937,7 @@ pub fn size(req: &Requirements) -> Result<Sized, SizingError> {
                 watts: v_set * shares_now[j] * i_div,
             })
             .collect();
-        let (charge, capacitors) = size_capacitors(req, &tube, &gaps)?;
+        let (charge, mut capacitors) = size_capacitors(req, &tube, &gaps)?;
         let mut r2 = reasoning.clone();
         if attempt > 0 {
             r2.push(format!(
@@ -1019,7 +1023,46 @@ pub fn size(req: &Requirements) -> Result<Sized, SizingError> {
                 ));
             }
         }
-        let text = write_design(req, &gaps, &capacitors, v_set, &r2, &charge);
+        // With a pulse width the pulse-train solve (time domain, whole base with its strays)
+        // refines the capacitors: its needed values, over (1 − tolerance), snapped up.
+        let train = match (&charge, req.pulse_width, req.capacitors) {
+            (Some((q, _)), Some(w), Some((_, droop))) if !capacitors.is_empty() => Some(format!(
+                "    train: Some((size: Charge(\"{}\"), shape: Gaussian(fwhm: \"{}\"), pattern: Single, droop: Some({droop}))),\n",
+                exact(*q, "C"),
+                exact(w, "s")
+            )),
+            _ => None,
+        };
+        if let (Some(tb), Some((series, droop))) = (&train, req.capacitors) {
+            let text0 = write_design(req, &gaps, &capacitors, v_set, &r2, &charge, Some(tb));
+            let d0 = design::parse_str(&text0, &format!("{} (sized)", req.source))?;
+            let ta = crate::pulsetrain::analyse(&d0, &tube, &Default::default())
+                .map_err(|e| SizingError::Train(format!("{}: {e}", req.source)))?;
+            if let Some(sz) = ta.and_then(|t| t.sizing) {
+                let before: Vec<f64> = capacitors.iter().map(|c| c.farads).collect();
+                for (c, sc) in capacitors.iter_mut().zip(&sz.caps) {
+                    let need = sc.needed_farads / (1.0 - req.capacitor_tolerance);
+                    c.farads = series.clean(series.snap(need, Snap::Up).unwrap_or(need));
+                    c.rating = c.rating.max(sc.rating_volts);
+                    c.droop = droop * need * (1.0 - req.capacitor_tolerance) / c.farads;
+                }
+                r2.push(format!(
+                    "Decoupling refined by the pulse-train solve (the whole base in time, strays included, one Gaussian pulse of FWHM = the pulse width): needed {}; fitted {} (ΔV = Q/C gave {}); ratings the larger of the two rules.",
+                    sz.caps.iter().map(|c| format_eng(c.needed_farads, "F")).collect::<Vec<_>>().join(", "),
+                    capacitors.iter().map(|c| format_eng(c.farads, "F")).collect::<Vec<_>>().join(", "),
+                    before.iter().map(|c| format_eng(*c, "F")).collect::<Vec<_>>().join(", ")
+                ));
+            }
+        }
+        let text = write_design(
+            req,
+            &gaps,
+            &capacitors,
+            v_set,
+            &r2,
+            &charge,
+            train.as_deref(),
+        );
         let design = design::parse_str(&text, &format!("{} (sized)", req.source))?;
         let analysis = analysis::analyse(&design)?;
         let checks = verify(req, &analysis, &capacitors, charge.as_ref().map(|c| c.0));
@@ -1327,7 +1370,41 @@ pub fn verify(
             );
         }
     }
-    if let (Some(q), Some((_, droop))) = (charge, req.capacitors) {
+    if let (Some(_), Some((_, droop))) = (&a.design.train, req.capacitors) {
+        // The pulse-train solve on the sized design itself, at the low end of the tolerance.
+        let mut low = a.design.clone();
+        for c in &mut low.decoupling {
+            c.value *= 1.0 - req.capacitor_tolerance;
+        }
+        let opts = crate::pulsetrain::TrainOptions {
+            train_only: true,
+            ..Default::default()
+        };
+        match crate::pulsetrain::analyse(&low, &a.network.tube, &opts) {
+            Ok(Some(t)) => {
+                for d in &t.droop {
+                    let f = d.droop_volts / d.gap_volts.abs().max(1e-9);
+                    push(
+                        format!(
+                            "{} droop per pulse, time domain (capacitor at −{:.0} %)",
+                            d.label,
+                            req.capacitor_tolerance * 100.0
+                        ),
+                        format!("{:.3} %", f * 100.0),
+                        format!("{:.2} %", droop * 100.0),
+                        f <= droop,
+                    );
+                }
+            }
+            Ok(None) => {}
+            Err(e) => push(
+                "droop per pulse, time domain".into(),
+                format!("solve failed: {e}"),
+                format!("{:.2} %", droop * 100.0),
+                false,
+            ),
+        }
+    } else if let (Some(q), Some((_, droop))) = (charge, req.capacitors) {
         let _ = q;
         for c in caps {
             let v = a.gaps[c.gap - 1].quiescent_volts;
@@ -1468,6 +1545,7 @@ fn write_design(
     v_set: f64,
     reasoning: &[String],
     charge: &Option<(f64, String)>,
+    train: Option<&str>,
 ) -> String {
     let b = &req.base;
     let mut s = String::new();
@@ -1693,6 +1771,13 @@ fn write_design(
         "    operating: Some((anode_current: \"{}\")),",
         exact(req.max_average, "A")
     );
+    if let Some(t) = train {
+        let _ = writeln!(
+            s,
+            "    // The pulse the decoupling capacitors were sized for (time-domain solve)."
+        );
+        s.push_str(t);
+    }
     let _ = writeln!(s, ")");
     s
 }

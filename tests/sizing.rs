@@ -162,7 +162,23 @@ fn assert_meets(req: &sizing::Requirements, s: &sizing::Sized) -> Result<(), Str
             return Err(format!("gap {} over a rating", g.number));
         }
     }
-    if let (Some((_, droop)), Some((q, _))) = (req.capacitors, &s.pulse_charge) {
+    if let (Some((_, droop)), Some(_)) = (req.capacitors, &a.design.train) {
+        // Sized with the pulse-train solve: the time-domain droop of each decoupled gap
+        // (whole base, strays included) stays within the allowed droop.
+        let opts = dynode::pulsetrain::TrainOptions {
+            train_only: true,
+            ..Default::default()
+        };
+        let t = dynode::pulsetrain::analyse(&a.design, &a.network.tube, &opts)
+            .map_err(|e| e.to_string())?
+            .ok_or("no train analysis")?;
+        for d in &t.droop {
+            let f = d.droop_volts / d.gap_volts.abs();
+            if f > droop {
+                return Err(format!("{} droops {:.3} %", d.label, f * 100.0));
+            }
+        }
+    } else if let (Some((_, droop)), Some((q, _))) = (req.capacitors, &s.pulse_charge) {
         // ΔV = Q/C (definition of capacitance) with the last gap giving Q, the one before Q/δn …
         let n = a.design.tube.stages;
         let mut qi = *q;
