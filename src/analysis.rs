@@ -109,6 +109,8 @@ pub struct Analysis {
     pub gain_curve: Vec<(f64, f64)>,
     /// The pulse-train figures, when the design gives a `train` block.
     pub train: Option<crate::pulsetrain::TrainAnalysis>,
+    /// The signal budget (light → pulse at the load), when the design has a light block.
+    pub signal: Option<crate::signal::SignalBudget>,
 }
 
 impl Analysis {
@@ -388,6 +390,20 @@ pub fn analyse_with(
         })
         .filter(|(_, g)| g.is_finite() && *g > 0.0)
         .collect();
+    let signal = crate::signal::budget(
+        design,
+        &crate::signal::Chain {
+            gain: op.gain(),
+            collection: t.collection,
+            excess_noise: t.excess_noise_factor(&tube_gaps),
+            divider_amps: quiescent_amps,
+            max_anode_amps: max_ia,
+        },
+    );
+    if let Some(s) = &signal {
+        warnings.extend(s.warnings.iter().cloned());
+        assumptions.extend(s.assumptions.iter().cloned());
+    }
 
     let train = match train {
         None => None,
@@ -418,5 +434,6 @@ pub fn analyse_with(
         safety,
         warnings,
         assumptions,
+        signal,
     })
 }

@@ -23,6 +23,9 @@ use uom::si::electric_potential::volt;
 use uom::si::electrical_resistance::ohm;
 use uom::si::power::watt;
 
+mod signal_fields;
+pub use signal_fields::*;
+
 /// Largest design file read, in bytes: a design is a page of text, not a data dump.
 pub const MAX_FILE_BYTES: u64 = 1 << 20;
 
@@ -134,6 +137,12 @@ pub struct RawDesign {
     /// A pulse train for the time-domain solve (see [`crate::train`]).
     #[serde(default)]
     pub train: Option<crate::train::RawTrain>,
+    /// The light source (signal budget).
+    #[serde(default)]
+    pub light: Option<RawLight>,
+    /// The instrument reading the pulses (signal budget).
+    #[serde(default)]
+    pub readout: Option<RawReadout>,
 }
 
 /// The tube block.
@@ -155,6 +164,15 @@ pub struct RawTube {
     /// The pulse-linearity figure that calibrates the space-charge limit.
     #[serde(default)]
     pub pulse_linearity: Option<RawPulseLinearity>,
+    /// Spectral response of the photocathode (signal budget).
+    #[serde(default)]
+    pub cathode: Option<RawCathode>,
+    /// 10–90 % rise of the single-electron response (signal budget).
+    #[serde(default)]
+    pub single_electron_rise: Option<Value>,
+    /// Transit-time spread, FWHM (signal budget).
+    #[serde(default)]
+    pub transit_spread: Option<Value>,
 }
 
 /// The gain law as given.
@@ -495,6 +513,8 @@ pub struct Design {
     pub supply_resistance: Option<ElectricalResistance>,
     /// Pulse train, if the design gives one.
     pub train: Option<crate::train::TrainSpec>,
+    /// Cathode response, tube timing, light and readout (signal budget).
+    pub signal: SignalSpec,
 }
 
 impl Design {
@@ -718,6 +738,13 @@ fn place_name(type_name: &str) -> String {
         "RawElement" => "a divider element".to_string(),
         "RawCapacitor" => "a decoupling capacitor".to_string(),
         "Polarity" => "`supply.polarity`".to_string(),
+        "RawSource" => "`light.source`".to_string(),
+        "RawAmount" => "`light.source.pulse`".to_string(),
+        "RawEmission" => "`light.source.emission`".to_string(),
+        "RawBackground" => "`light.background`".to_string(),
+        "RawRange" => "`readout.most_sensitive`".to_string(),
+        "RawCable" => "`readout.cable`".to_string(),
+        "RawCathode" => "`tube.cathode`".to_string(),
         other => match other.strip_prefix("Raw") {
             // RawPulseLinearity -> pulse_linearity; new blocks follow the same rule.
             Some(rest) => {
@@ -934,6 +961,44 @@ const FIELD_NAMES: &[&str] = &[
     "setting_accuracy",
     "gain_stability",
     "output_resistance",
+    // signal budget
+    "light",
+    "readout",
+    "cathode",
+    "single_electron_rise",
+    "transit_spread",
+    "window",
+    "unit",
+    "source",
+    "rate",
+    "filter",
+    "background",
+    "wavelength",
+    "pulse",
+    "width",
+    "shape",
+    "centre",
+    "fwhm",
+    "emission",
+    "yield_per_mev",
+    "deposited_mev",
+    "decay",
+    "rise",
+    "per_second",
+    "bandwidth",
+    "response",
+    "most_sensitive",
+    "divisions",
+    "largest_full_scale",
+    "input_resistance",
+    "input_capacitance",
+    "noise",
+    "rise_need",
+    "threshold",
+    "cable",
+    "length",
+    "impedance",
+    "velocity",
 ];
 
 /// Levenshtein distance, for suggestions.
@@ -1516,6 +1581,8 @@ fn check(raw: RawDesign, file: &str) -> Result<Design, DesignError> {
         ));
     }
 
+    let signal = check_signal(&c, &raw)?;
+
     Ok(Design {
         source: file.to_string(),
         name: raw.name,
@@ -1551,6 +1618,7 @@ fn check(raw: RawDesign, file: &str) -> Result<Design, DesignError> {
             None => None,
             Some(t) => Some(crate::train::check(t, &c)?),
         },
+        signal,
     })
 }
 

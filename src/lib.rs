@@ -12,8 +12,10 @@
 #![allow(clippy::needless_range_loop)]
 
 pub mod analysis;
+pub mod cathode;
 pub mod design;
 pub mod eseries;
+pub mod light;
 pub mod linearity;
 pub mod netlist;
 pub mod network;
@@ -28,5 +30,7 @@ pub mod stability;
 pub mod sweep;
 pub mod train;
 pub mod transient;
+pub mod signal;
 pub mod tube;
 pub mod units;
+pub mod waveform;

@@ -544,6 +544,8 @@ pub fn parse_requirements(text: &str, file: &str) -> Result<Requirements, Sizing
             anode_current: raw.anode.max_average.clone(),
         }),
         train: None,
+        light: None,
+        readout: None,
     };
     let base = design::check_raw(placeholder, f).map_err(|e| match e {
         DesignError::Field {

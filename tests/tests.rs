@@ -23,5 +23,7 @@ mod properties;
 mod sizing;
 /// Pulse trains: ngspice transient, charge conservation, RC recovery, linear limit.
 mod train;
+/// Signal budget: QE, pulse charge and amplitude, the pulse at the load, noise, reflections.
+mod signal;
 /// Plausibility warnings: triggered one by one, shown in every format, never blocking.
 mod warnings;

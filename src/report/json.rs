@@ -23,7 +23,7 @@ pub fn to_value(a: &Analysis) -> Value {
     let s = &a.safety;
     let mut cautions: Vec<String> = CAUTIONS.iter().map(|c| c.to_string()).collect();
     cautions.extend(s.specific.iter().cloned());
-    json!({
+    let mut v = json!({
         "schema_version": SCHEMA_VERSION,
         "name": d.name,
         "design_file": d.source,
@@ -101,7 +101,9 @@ pub fn to_value(a: &Analysis) -> Value {
         "train": super::train::json(a),
         "warnings": a.warnings,
         "assumptions": a.assumptions,
-    })
+    });
+    super::signal::add_json(&mut v, a);
+    v
 }
 
 /// Render the JSON report as pretty text with a trailing newline.

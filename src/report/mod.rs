@@ -10,6 +10,7 @@ pub mod markdown;
 pub mod spread;
 pub mod supply;
 pub mod sweep;
+pub mod signal;
 pub mod tables;
 pub mod text;
 pub mod train;

@@ -365,6 +365,8 @@ pub fn render(a: &Analysis) -> String {
     let _ = writeln!(out);
 
     super::train::text(&mut out, a);
+    super::signal::render_text(&mut out, a);
+
     let _ = writeln!(out, "WARNINGS");
     if a.warnings.is_empty() {
         let _ = writeln!(out, "  none");

@@ -1,0 +1,490 @@
+//! The signal-budget sections of the reports: light → photoelectrons → pulse at the load →
+//! readability, timing, background, the photodiode alternative and the load sweep.
+//!
+//! Text and JSON renderings of [`crate::signal::SignalBudget`]; the JSON keys are documented in
+//! DEVELOPERS.md ("JSON schema"). Numbers are magnitudes: the anode pulse itself is
+//! negative-going.
+
+use std::fmt::Write;
+
+use serde_json::{Value, json};
+
+use super::text::wrap;
+use crate::analysis::Analysis;
+use crate::signal::{SignalBudget, Verdict};
+use crate::units::format_eng as eng;
+use crate::waveform::PulseFigures;
+
+fn opt_s(x: Option<f64>) -> String {
+    x.map_or_else(|| "beyond the window".to_string(), |v| eng(v, "s"))
+}
+
+/// A count with three significant figures: 1600, 336, 11.5, 0.500, 2.34e-3, 5.54e9.
+fn sci(x: f64) -> String {
+    let a = x.abs();
+    if x == 0.0 {
+        "0".to_string()
+    } else if (100.0..1e5).contains(&a) {
+        format!("{x:.0}")
+    } else if (10.0..100.0).contains(&a) {
+        format!("{x:.1}")
+    } else if (1.0..10.0).contains(&a) {
+        format!("{x:.2}")
+    } else if (0.01..1.0).contains(&a) {
+        format!("{x:.3}")
+    } else {
+        format!("{x:.2e}")
+    }
+}
+
+/// Append the signal sections to a text report.
+pub fn render_text(out: &mut String, a: &Analysis) {
+    let Some(s) = &a.signal else {
+        let _ = writeln!(out, "SIGNAL BUDGET");
+        wrap(
+            out,
+            "  ",
+            "No light block in the design: add `light: Some((...))` (and `readout: Some((...))`) to get photoelectrons, the pulse at the load, a verdict and a load sweep. See DEVELOPERS.md.",
+        );
+        let _ = writeln!(out);
+        return;
+    };
+    let d = &a.design;
+    let l = d.signal.light.as_ref();
+    let _ = writeln!(out, "SIGNAL BUDGET (light → photoelectrons → charge)");
+    wrap(out, "  light                 ", &s.light);
+    if let Some(l) = l {
+        let _ = writeln!(
+            out,
+            "  optical path          coupling {:.1} %{}{}",
+            l.coupling * 100.0,
+            if l.filter.is_some() {
+                ", filter table applied"
+            } else {
+                ""
+            },
+            l.rate
+                .map_or_else(String::new, |r| format!("; rate {}", eng(r, "Hz")))
+        );
+    }
+    wrap(out, "  cathode               ", &s.cathode);
+    wrap(
+        out,
+        "                        ",
+        &format!("({})", d.signal.cathode.provenance),
+    );
+    let _ = writeln!(
+        out,
+        "  photons at the cathode {} per pulse, photon-weighted QE {:.2} %",
+        sci(s.photons_at_cathode),
+        s.mean_qe * 100.0
+    );
+    let _ = writeln!(
+        out,
+        "  photoelectrons at D1  {} per pulse (collection {:.0} %); P(≥ 1 pe) = {:.2} %",
+        sci(s.photoelectrons),
+        a.network.tube.collection * 100.0,
+        s.p_at_least_one * 100.0
+    );
+    let _ = writeln!(
+        out,
+        "  dynode multiplication {:.3e} (gain {:.3e} at the operating point)",
+        s.multiplication,
+        a.gain()
+    );
+    let _ = writeln!(
+        out,
+        "  charge per pulse      {}; peak anode current {}",
+        eng(s.charge, "C"),
+        eng(s.peak_anode_amps, "A")
+    );
+    let _ = writeln!(
+        out,
+        "  one photoelectron     {} at the anode, {} peak at the load",
+        eng(s.single_pe_charge, "C"),
+        eng(s.single_pe_volts, "V")
+    );
+    let _ = writeln!(
+        out,
+        "  amplitude spread      ±{:.2} % rms pulse to pulse (√(F/N), F = {:.3} from the stage gains)",
+        s.amplitude_spread * 100.0,
+        s.excess_noise
+    );
+    let _ = writeln!(out);
+
+    let c = &s.circuit;
+    let _ = writeln!(
+        out,
+        "PULSE AT THE LOAD (computed in time; magnitudes, the pulse is negative-going)"
+    );
+    let mut circuit = format!(
+        "load {} effective, {} at the anode",
+        eng(c.load_resistance, "Ω"),
+        eng(c.anode_capacitance, "F")
+    );
+    if c.load_capacitance > 0.0 {
+        let _ = write!(
+            circuit,
+            ", {} at the instrument input",
+            eng(c.load_capacitance, "F")
+        );
+    }
+    if let Some(cc) = c.coupling {
+        let _ = write!(circuit, ", coupling capacitor {}", eng(cc, "F"));
+    }
+    if let Some(r) = c.anode_resistance {
+        let _ = write!(circuit, ", anode resistor {}", eng(r, "Ω"));
+    }
+    let _ = write!(circuit, "; RC = {}", eng(c.time_constant(), "s"));
+    wrap(out, "  circuit       ", &circuit);
+    let p = &s.pulse;
+    let e = &s.estimates;
+    let _ = writeln!(
+        out,
+        "  peak          {:<12} estimates: I·R = {} (short-pulse limit), Q/C = {} (integrating limit)",
+        eng(p.peak, "V"),
+        eng(e.i_times_r, "V"),
+        eng(e.q_over_c, "V")
+    );
+    let _ = writeln!(
+        out,
+        "  rise 10–90 %  {:<12} estimate: √(current² + (2.197 RC)²) = {} (current alone {}, 2.197 RC = {})",
+        opt_s(p.rise),
+        eng(e.rss_rise, "s"),
+        opt_s(e.current_rise),
+        eng(e.rc_rise, "s")
+    );
+    let _ = writeln!(out, "  fall 90–10 %  {}", opt_s(p.fall));
+    let _ = writeln!(out, "  FWHM          {}", opt_s(p.fwhm));
+    let _ = writeln!(
+        out,
+        "  undershoot    {} ({:.1} % of the peak){}",
+        eng(p.undershoot, "V"),
+        if p.peak > 0.0 {
+            p.undershoot / p.peak * 100.0
+        } else {
+            0.0
+        },
+        c.high_pass_time_constant()
+            .map_or_else(String::new, |t| format!(
+                "; coupling high-pass (R_a + R_L)·C_c = {}",
+                eng(t, "s")
+            ))
+    );
+    if let (Some(ir), Some(model)) = (e.instrument_rise, e.instrument_model) {
+        let _ = writeln!(
+            out,
+            "  as displayed  rise {} (estimate: root-sum-of-squares with the instrument's {}; {})",
+            opt_s(s.readable.as_ref().and_then(|r| r.displayed_rise)),
+            eng(ir, "s"),
+            model
+        );
+    }
+    if let Some(ec) = &s.echoes {
+        wrap(
+            out,
+            "  cable         ",
+            &format!(
+                "{} one way; Γ = (R−Z0)/(R+Z0) is {:+.3} at the load and {:+.3} at the base: echoes every {} at {:.1} % of the pulse each round trip",
+                eng(ec.delay, "s"),
+                ec.gamma_load + 0.0,
+                ec.gamma_base + 0.0,
+                eng(ec.spacing, "s"),
+                ec.first_echo * 100.0 + 0.0
+            ),
+        );
+    }
+    let _ = writeln!(out);
+
+    if let Some(r) = &s.readable {
+        let _ = writeln!(out, "READOUT: {}", r.verdict.as_str().to_uppercase());
+        for why in &r.reasons {
+            wrap(out, "  * ", why);
+        }
+        let _ = writeln!(out);
+    } else {
+        let _ = writeln!(out, "READOUT");
+        wrap(
+            out,
+            "  ",
+            "No readout block: give readout (bandwidth, most sensitive range, input, noise) for a verdict.",
+        );
+        let _ = writeln!(out);
+    }
+
+    if let Some(t) = &s.timing {
+        let _ = writeln!(
+            out,
+            "TIMING (leading edge at a {} threshold)",
+            eng(t.threshold, "V")
+        );
+        let _ = writeln!(
+            out,
+            "  noise jitter        {} (baseline noise / slope at the threshold)",
+            opt_s(t.noise_jitter).replace("beyond the window", "needs a readout")
+        );
+        let _ = writeln!(
+            out,
+            "  photon statistics   {} (estimate: √(σ_TTS² + σ_light²) / √N_pe)",
+            eng(t.photon_jitter, "s")
+        );
+        if let Some(j) = t.total_jitter {
+            let _ = writeln!(out, "  total               {} rms", eng(j, "s"));
+        }
+        let _ = writeln!(
+            out,
+            "  amplitude walk      {} between pulses of {} and {} (mean ± 2σ)",
+            t.walk.map_or_else(
+                || "—: the smallest pulse stays below the threshold".to_string(),
+                |w| eng(w, "s")
+            ),
+            eng(t.walk_range.0, "V"),
+            eng(t.walk_range.1, "V")
+        );
+        let _ = writeln!(out);
+    }
+
+    if s.average_anode_amps.is_some() || s.background.is_some() {
+        let _ = writeln!(out, "AVERAGE CURRENT AND BACKGROUND LIGHT");
+        if let (Some(avg), Some(l)) = (s.average_anode_amps, l) {
+            let _ = writeln!(
+                out,
+                "  pulses at {} average {} of anode current ({:.2} % of the divider current, {:.2} % of the tube's limit)",
+                eng(l.rate.unwrap_or(0.0), "Hz"),
+                eng(avg, "A"),
+                avg / a.quiescent_amps * 100.0,
+                avg / d
+                    .tube
+                    .max_anode_current
+                    .get::<uom::si::electric_current::ampere>()
+                    * 100.0
+            );
+        }
+        if let Some(b) = &s.background {
+            wrap(
+                out,
+                "  ",
+                &format!(
+                    "steady light of {} photons/s at {:.0} nm on the cathode gives {} of cathode current; on this energised tube it would draw {} at the anode — {:.2}× the divider current and {:.2}× its limit",
+                    sci(b.photons_per_second),
+                    b.nm,
+                    eng(b.cathode_amps, "A"),
+                    eng(b.anode_amps, "A"),
+                    b.over_divider,
+                    b.over_rating
+                ),
+            );
+        }
+        let _ = writeln!(out);
+    }
+
+    if let Some(pd) = &s.photodiode {
+        let _ = writeln!(
+            out,
+            "PHOTODIODE ALTERNATIVE (silicon PIN, curve from memory; {} diode + input, amplifier {:.0} nV/√Hz assumed)",
+            eng(crate::signal::PHOTODIODE_CAPACITANCE, "F"),
+            crate::signal::AMPLIFIER_NOISE * 1e9
+        );
+        let _ = writeln!(
+            out,
+            "  responsivity {:.3} A/W; charge {} ({} electrons); peak photocurrent {}",
+            pd.responsivity,
+            eng(pd.charge, "C"),
+            sci(pd.charge / crate::cathode::ELEMENTARY_CHARGE),
+            eng(pd.peak_amps, "A")
+        );
+        let _ = writeln!(
+            out,
+            "  same amplitude: feedback {}; same rise: {} bandwidth, gain-bandwidth {}; noise {} rms",
+            eng(pd.feedback, "Ω"),
+            eng(pd.bandwidth, "Hz"),
+            eng(pd.gbw, "Hz"),
+            eng(pd.noise, "V")
+        );
+        wrap(out, "  ", &pd.sentence);
+        let _ = writeln!(out);
+    }
+
+    let sw = &s.sweep;
+    let _ = writeln!(
+        out,
+        "LOAD SWEEP ({} loads, 50 Ω to 1 MΩ; the pulse computed at each)",
+        sw.rows.len()
+    );
+    if let Some(n) = &sw.note {
+        wrap(out, "  note: ", n);
+    }
+    let _ = writeln!(
+        out,
+        "  {:>9} {:>10} {:>10} {:>10} {:>10} {:>8} {:>6}  verdict",
+        "load", "peak", "rise", "displayed", "FWHM", "S/N", "echo"
+    );
+    for r in &sw.rows {
+        let _ = writeln!(
+            out,
+            "  {:>9} {:>10} {:>10} {:>10} {:>10} {:>8} {:>6}  {}{}",
+            eng(r.load, "Ω"),
+            eng(r.pulse.peak, "V"),
+            r.pulse.rise.map_or("—".to_string(), |x| eng(x, "s")),
+            r.displayed_rise.map_or("—".to_string(), |x| eng(x, "s")),
+            r.pulse.fwhm.map_or("—".to_string(), |x| eng(x, "s")),
+            r.snr.map_or("—".to_string(), |x| sci(x.min(99999.0))),
+            r.echo
+                .map_or("—".to_string(), |x| format!("{:+.0}%", x * 100.0 + 0.0)),
+            r.verdict.map_or("—", Verdict::as_str),
+            match r.meets_rise {
+                Some(false) => " (too slow)",
+                _ => "",
+            }
+        );
+    }
+    wrap(out, "  window: ", &sw.sentence);
+    let _ = writeln!(out);
+}
+
+fn pulse_json(p: &PulseFigures) -> Value {
+    json!({
+        "peak_volts": p.peak,
+        "t_peak_s": p.t_peak,
+        "rise_10_90_s": p.rise,
+        "fall_90_10_s": p.fall,
+        "fwhm_s": p.fwhm,
+        "undershoot_volts": p.undershoot,
+    })
+}
+
+fn budget_json(s: &SignalBudget) -> Value {
+    let e = &s.estimates;
+    let wf = s.waveform.decimated(400);
+    json!({
+        "light": s.light,
+        "cathode": s.cathode,
+        "photons_at_cathode": s.photons_at_cathode,
+        "mean_qe": s.mean_qe,
+        "dynode_multiplication": s.multiplication,
+        "charge_coulombs": s.charge,
+        "peak_anode_amps": s.peak_anode_amps,
+        "single_pe_charge_coulombs": s.single_pe_charge,
+        "single_pe_peak_volts": s.single_pe_volts,
+        "p_at_least_one_pe": s.p_at_least_one,
+        "excess_noise_factor": s.excess_noise,
+        "amplitude_spread": s.amplitude_spread,
+        "estimates": {
+            "i_times_r_volts": e.i_times_r,
+            "q_over_c_volts": e.q_over_c,
+            "rc_rise_s": e.rc_rise,
+            "current_rise_s": e.current_rise,
+            "rss_rise_s": e.rss_rise,
+            "instrument_rise_s": e.instrument_rise,
+            "instrument_model": e.instrument_model,
+        },
+        "echoes": s.echoes.map(|c| json!({
+            "delay_s": c.delay,
+            "gamma_load": c.gamma_load,
+            "gamma_base": c.gamma_base,
+            "spacing_s": c.spacing,
+            "first_echo": c.first_echo,
+        })),
+        "waveform": { "t_s": wf.t, "volts": wf.v },
+        "timing": s.timing.map(|t| json!({
+            "threshold_volts": t.threshold,
+            "noise_jitter_s": t.noise_jitter,
+            "photon_jitter_s": t.photon_jitter,
+            "total_jitter_s": t.total_jitter,
+            "walk_s": t.walk,
+            "walk_range_volts": [t.walk_range.0, t.walk_range.1],
+        })),
+        "average_anode_amps": s.average_anode_amps,
+        "background": s.background.map(|b| json!({
+            "photons_per_second": b.photons_per_second,
+            "wavelength_nm": b.nm,
+            "cathode_amps": b.cathode_amps,
+            "anode_amps": b.anode_amps,
+            "over_divider_current": b.over_divider,
+            "over_rating": b.over_rating,
+        })),
+        "photodiode": s.photodiode.as_ref().map(|p| json!({
+            "responsivity_amps_per_watt": p.responsivity,
+            "charge_coulombs": p.charge,
+            "peak_amps": p.peak_amps,
+            "feedback_ohms": p.feedback,
+            "bandwidth_hz": p.bandwidth,
+            "gbw_hz": p.gbw,
+            "noise_volts": p.noise,
+            "snr": p.snr,
+            "practical": p.practical,
+            "sentence": p.sentence,
+        })),
+        "load_window_ohms": s.sweep.window.map(|(a, b)| vec![a, b]),
+        "load_window": s.sweep.sentence,
+        "load_sweep_note": s.sweep.note,
+    })
+}
+
+/// Insert the signal keys into a JSON report object (`null` where there is no light block).
+pub fn add_json(v: &mut Value, a: &Analysis) {
+    let Some(obj) = v.as_object_mut() else {
+        return;
+    };
+    let s = a.signal.as_ref();
+    obj.insert(
+        "photoelectrons_per_pulse".into(),
+        s.map_or(Value::Null, |s| json!(s.photoelectrons)),
+    );
+    obj.insert(
+        "pulse".into(),
+        s.map_or(Value::Null, |s| {
+            let mut p = pulse_json(&s.pulse);
+            if let Some(m) = p.as_object_mut() {
+                m.insert(
+                    "displayed_rise_s".into(),
+                    json!(s.readable.as_ref().and_then(|r| r.displayed_rise)),
+                );
+            }
+            p
+        }),
+    );
+    obj.insert(
+        "readable".into(),
+        s.and_then(|s| s.readable.as_ref())
+            .map_or(Value::Null, |r| {
+                json!({
+                    "verdict": r.verdict.as_str(),
+                    "reasons": r.reasons,
+                    "snr": r.snr,
+                    "noise_volts": {
+                        "instrument": r.noise.instrument,
+                        "johnson": r.noise.johnson,
+                        "total": r.noise.total,
+                    },
+                })
+            }),
+    );
+    obj.insert(
+        "load_sweep".into(),
+        s.map_or(Value::Array(vec![]), |s| {
+            Value::Array(
+                s.sweep
+                    .rows
+                    .iter()
+                    .map(|r| {
+                        json!({
+                            "load_ohms": r.load,
+                            "effective_ohms": r.effective,
+                            "peak_volts": r.pulse.peak,
+                            "rise_10_90_s": r.pulse.rise,
+                            "displayed_rise_s": r.displayed_rise,
+                            "fwhm_s": r.pulse.fwhm,
+                            "undershoot_volts": r.pulse.undershoot,
+                            "snr": r.snr,
+                            "verdict": r.verdict.map(Verdict::as_str),
+                            "meets_rise_need": r.meets_rise,
+                            "first_echo": r.echo,
+                        })
+                    })
+                    .collect(),
+            )
+        }),
+    );
+    obj.insert("signal".into(), s.map_or(Value::Null, budget_json));
+}

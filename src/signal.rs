@@ -1,0 +1,1115 @@
+//! The signal budget: light → photoelectrons → charge → the pulse at the load → readable or not.
+//!
+//! Equations and sources (physics brief §6–8):
+//! - photoelectrons collected at D1 per pulse `N_pe = Σ N_ph p(λ) QE(λ) T(λ) · coupling · η_1`;
+//!   charge `Q = N_pe · M · e` with `M = G / η_1` the multiplication of the dynodes (S. N. Ahmed,
+//!   *Physics and Engineering of Radiation Detection*, §6.5, for `Q = N G e`);
+//! - Poisson statistics: `P(≥ 1 pe) = 1 − exp(−N_pe)`; relative amplitude spread `√(F / N_pe)`
+//!   with the chain's excess noise factor `F = 1 + 1/δ1 + 1/(δ1 δ2) + …` from the actual stage
+//!   voltages (textbook theory, from memory);
+//! - anode current = light shape ⊗ transit-time spread ⊗ single-electron response; the last two
+//!   are taken as Gaussians (the single-electron response's 10–90 % leading edge of a Gaussian
+//!   pulse is 1.6869 σ; a FWHM is 2.3548 σ): a modelling choice of this tool;
+//! - the pulse at the load is computed numerically in [`crate::waveform`]; beside it the analytic
+//!   *estimates*: `I_peak · R` (short-pulse limit), `Q / C` (integrating limit), `2.197 R C`
+//!   (first-order rise, `RC ln 9`), and root-sum-of-squares of rise times (exact only for Gaussian
+//!   cascades: an estimate), the instrument adding `0.3497 / BW` (single pole, `ln 9 / 2π`) or
+//!   `0.3396 / BW` (Gaussian);
+//! - noise: the instrument's own, Johnson–Nyquist `√(4 k T R B)` of the load integrated over the
+//!   load pole and the instrument's response (T = 290 K, the standard reference temperature), and
+//!   the photoelectron statistics of the amplitude;
+//! - timing: leading-edge jitter `σ_v / (dv/dt)` at the threshold plus the photon-statistics
+//!   spread `√(σ_TTS² + σ_light²) / √N_pe` (an estimate); walk between the smallest and largest
+//!   expected pulse (mean ± 2 σ of the amplitude) measured on the computed waveform;
+//! - a PIN photodiode with a transimpedance amplifier: closed-loop bandwidth
+//!   `≈ √(GBW / (2π R_f C_in))` (physics brief §8), so `GBW = 2π R_f C_in BW²`.
+//!
+//! No IO; every figure is finite or absent, never NaN.
+
+use crate::cathode::{self, BOLTZMANN, Cathode, ELEMENTARY_CHARGE};
+use crate::design::{Design, InstrumentResponse, ReadoutSpec};
+use crate::light::{self, FWHM_PER_SIGMA, Shape, Spectrum};
+use crate::units::format_eng as eng;
+use crate::waveform::{self, CurrentPulse, LoadCircuit, PulseFigures, Waveform};
+use uom::si::capacitance::farad;
+use uom::si::electrical_resistance::ohm;
+
+/// Noise reference temperature, K (the standard 290 K of noise-figure definitions).
+pub const NOISE_TEMPERATURE: f64 = 290.0;
+/// 10–90 % leading edge of a Gaussian pulse over its σ: `√(2 ln 10) − √(2 ln (10/9))`.
+pub const GAUSS_RISE_PER_SIGMA: f64 = 1.686_922_4;
+/// Rise × bandwidth of a single pole, `ln 9 / 2π`.
+pub const RISE_BW_SINGLE_POLE: f64 = 0.349_699;
+/// Rise × bandwidth of a Gaussian response (computed; the value in the project's reference checks).
+pub const RISE_BW_GAUSSIAN: f64 = 0.3396;
+/// Default timing threshold as a fraction of the mean pulse (a choice of this tool).
+pub const DEFAULT_THRESHOLD_FRACTION: f64 = 0.2;
+/// Photodiode capacitance assumed for the alternative (a small-area PIN diode under bias plus
+/// the amplifier input, from memory).
+pub const PHOTODIODE_CAPACITANCE: f64 = 10e-12;
+/// Amplifier input voltage noise assumed for the alternative, V/√Hz (a fast low-noise op-amp,
+/// from memory).
+pub const AMPLIFIER_NOISE: f64 = 3e-9;
+/// Largest gain-bandwidth product counted as practical for the alternative (fast op-amps reach a
+/// few GHz; from memory).
+pub const PRACTICAL_GBW: f64 = 5e9;
+/// Points of the load sweep in reports.
+pub const SWEEP_POINTS: usize = 25;
+
+/// What the multiplier chain contributes, from the solved operating point.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Chain {
+    /// Gain at the operating point, anode electrons per photoelectron leaving the cathode.
+    pub gain: f64,
+    /// Cathode–D1 collection efficiency.
+    pub collection: f64,
+    /// Excess noise factor of the dynode chain at the operating point.
+    pub excess_noise: f64,
+    /// Divider current with no tube current, A.
+    pub divider_amps: f64,
+    /// The tube's average anode current rating, A.
+    pub max_anode_amps: f64,
+}
+
+/// The verdict on a pulse at an instrument.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord)]
+pub enum Verdict {
+    /// Clearly readable.
+    Readable,
+    /// Readable with care.
+    Marginal,
+    /// Not readable on this instrument.
+    NotReadable,
+    /// Too large for the instrument.
+    Overloads,
+}
+
+impl Verdict {
+    /// Words for reports and JSON.
+    pub fn as_str(self) -> &'static str {
+        match self {
+            Verdict::Readable => "readable",
+            Verdict::Marginal => "marginal",
+            Verdict::NotReadable => "not readable",
+            Verdict::Overloads => "overloads",
+        }
+    }
+}
+
+/// Noise at the instrument.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Noise {
+    /// Instrument's own, V rms.
+    pub instrument: f64,
+    /// Johnson–Nyquist of the load over the bandwidth, V rms.
+    pub johnson: f64,
+    /// Baseline total, V rms.
+    pub total: f64,
+}
+
+/// The verdict with its reasons.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Readability {
+    /// Worst of the rules.
+    pub verdict: Verdict,
+    /// Reasons in words, one per rule that was not plainly met (or the good news).
+    pub reasons: Vec<String>,
+    /// Peak over baseline noise.
+    pub snr: f64,
+    /// Rise as the instrument shows it (root-sum-of-squares estimate), s.
+    pub displayed_rise: Option<f64>,
+    /// Noise figures.
+    pub noise: Noise,
+}
+
+/// Analytic estimates beside the computed pulse.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Estimates {
+    /// Short-pulse limit `I_peak · R`, V.
+    pub i_times_r: f64,
+    /// Integrating limit `Q / C`, V.
+    pub q_over_c: f64,
+    /// First-order rise of the load `2.197 R C`, s.
+    pub rc_rise: f64,
+    /// Rise of the anode current alone (measured on the current pulse), s.
+    pub current_rise: Option<f64>,
+    /// Root-sum-of-squares of the current's rise and the load's, s.
+    pub rss_rise: f64,
+    /// The instrument's own rise (0.3497/BW or 0.3396/BW), s.
+    pub instrument_rise: Option<f64>,
+    /// Which rise × bandwidth product was used.
+    pub instrument_model: Option<&'static str>,
+}
+
+/// The cable's reflections.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Echoes {
+    /// Cable delay one way, s.
+    pub delay: f64,
+    /// Γ at the load end.
+    pub gamma_load: f64,
+    /// Γ at the base end.
+    pub gamma_base: f64,
+    /// Spacing of echoes at the load, s (`2 T`).
+    pub spacing: f64,
+    /// Relative size of the first echo, `Γ_load · Γ_base`.
+    pub first_echo: f64,
+}
+
+/// Timing figures.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Timing {
+    /// Threshold, V.
+    pub threshold: f64,
+    /// Noise-driven jitter `σ_v / slope`, s.
+    pub noise_jitter: Option<f64>,
+    /// Photon-statistics spread, s.
+    pub photon_jitter: f64,
+    /// Both in quadrature, s.
+    pub total_jitter: Option<f64>,
+    /// Walk between the smallest and largest expected pulse, s.
+    pub walk: Option<f64>,
+    /// Smallest and largest expected pulse used, V.
+    pub walk_range: (f64, f64),
+}
+
+/// Steady light against the divider and the rating.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct BackgroundFigures {
+    /// Photons per second on the cathode.
+    pub photons_per_second: f64,
+    /// Wavelength, nm.
+    pub nm: f64,
+    /// Cathode current, A.
+    pub cathode_amps: f64,
+    /// Anode current the light asks for at this gain, A.
+    pub anode_amps: f64,
+    /// Over the divider current.
+    pub over_divider: f64,
+    /// Over the tube's average-current rating.
+    pub over_rating: f64,
+}
+
+/// The photodiode alternative.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Photodiode {
+    /// Photon-weighted responsivity, A/W.
+    pub responsivity: f64,
+    /// Charge per pulse, C.
+    pub charge: f64,
+    /// Peak photocurrent, A.
+    pub peak_amps: f64,
+    /// Feedback resistor for the same peak voltage, ohms.
+    pub feedback: f64,
+    /// Bandwidth needed for the same rise, Hz.
+    pub bandwidth: f64,
+    /// Gain-bandwidth product needed, Hz.
+    pub gbw: f64,
+    /// Output noise (feedback resistor + amplifier), V rms.
+    pub noise: f64,
+    /// Peak over noise.
+    pub snr: f64,
+    /// Whether it is practical, with the reason.
+    pub practical: bool,
+    /// The plain sentence.
+    pub sentence: String,
+}
+
+/// One row of the load sweep.
+#[derive(Debug, Clone, PartialEq)]
+pub struct SweepRow {
+    /// Load resistor, ohms.
+    pub load: f64,
+    /// Effective resistance at the load end (with the instrument input), ohms.
+    pub effective: f64,
+    /// Figures measured on the computed pulse.
+    pub pulse: PulseFigures,
+    /// Rise as shown by the instrument (estimate), s.
+    pub displayed_rise: Option<f64>,
+    /// Peak over baseline noise.
+    pub snr: Option<f64>,
+    /// Verdict.
+    pub verdict: Option<Verdict>,
+    /// Whether the rise meets the need.
+    pub meets_rise: Option<bool>,
+    /// Relative size of the first cable echo, `Γ_load · Γ_base`.
+    pub echo: Option<f64>,
+}
+
+/// The load sweep and the window of good loads.
+#[derive(Debug, Clone, PartialEq)]
+pub struct LoadSweep {
+    /// Rows, rising load.
+    pub rows: Vec<SweepRow>,
+    /// Loads that meet the rise need (and are readable when a readout is given): lowest and
+    /// highest, ohms.
+    pub window: Option<(f64, f64)>,
+    /// The window in words.
+    pub sentence: String,
+    /// What the sweep assumed about the instrument input.
+    pub note: Option<String>,
+}
+
+/// Everything the signal sections show.
+#[derive(Debug, Clone, PartialEq)]
+pub struct SignalBudget {
+    /// The cathode's label.
+    pub cathode: String,
+    /// The light's label.
+    pub light: String,
+    /// Photons reaching the cathode per pulse.
+    pub photons_at_cathode: f64,
+    /// Photon-weighted QE (window included).
+    pub mean_qe: f64,
+    /// Photoelectrons collected at D1 per pulse.
+    pub photoelectrons: f64,
+    /// Multiplication of the dynodes `G / η`.
+    pub multiplication: f64,
+    /// Charge per pulse, C.
+    pub charge: f64,
+    /// Peak anode current, A.
+    pub peak_anode_amps: f64,
+    /// Charge of one photoelectron's pulse, C.
+    pub single_pe_charge: f64,
+    /// Peak at the load of one photoelectron, V.
+    pub single_pe_volts: f64,
+    /// P(≥ 1 pe).
+    pub p_at_least_one: f64,
+    /// Excess noise factor used.
+    pub excess_noise: f64,
+    /// Relative amplitude spread `√(F / N_pe)`.
+    pub amplitude_spread: f64,
+    /// The circuit used.
+    pub circuit: LoadCircuit,
+    /// The anode current pulse.
+    pub current: CurrentPulse,
+    /// The pulse at the load.
+    pub waveform: Waveform,
+    /// Its figures.
+    pub pulse: PulseFigures,
+    /// Estimates beside them.
+    pub estimates: Estimates,
+    /// Cable echoes.
+    pub echoes: Option<Echoes>,
+    /// Readability (with a readout).
+    pub readable: Option<Readability>,
+    /// Timing.
+    pub timing: Option<Timing>,
+    /// Average anode current from the pulses at the rate, A.
+    pub average_anode_amps: Option<f64>,
+    /// Background light.
+    pub background: Option<BackgroundFigures>,
+    /// The photodiode alternative.
+    pub photodiode: Option<Photodiode>,
+    /// The load sweep.
+    pub sweep: LoadSweep,
+    /// Warnings for the report's list.
+    pub warnings: Vec<String>,
+    /// Assumptions.
+    pub assumptions: Vec<String>,
+}
+
+/// The cable's echoes for a load circuit, if it has a cable.
+pub fn echoes(c: &LoadCircuit) -> Option<Echoes> {
+    c.cable.map(|line| {
+        let gl = c.load_reflection().unwrap_or(0.0);
+        let gb = c.source_reflection().unwrap_or(1.0);
+        Echoes {
+            delay: line.delay,
+            gamma_load: gl,
+            gamma_base: gb,
+            spacing: 2.0 * line.delay,
+            first_echo: gl * gb,
+        }
+    })
+}
+
+/// σ of the Gaussian standing for the single-electron response.
+pub fn ser_sigma(rise: f64) -> f64 {
+    rise / GAUSS_RISE_PER_SIGMA
+}
+
+/// Johnson–Nyquist noise density `√(4 k T R)`, V/√Hz.
+pub fn johnson_density(r: f64, kelvin: f64) -> f64 {
+    (4.0 * BOLTZMANN * kelvin * r).sqrt()
+}
+
+/// Johnson noise of `r` shunted by `c`, seen through the instrument's response of bandwidth
+/// `bw`, V rms: `√(4kTR ∫ |H_RC|² |H_inst|² df)`, integrated numerically.
+pub fn johnson_rms(r: f64, c: f64, bw: f64, response: InstrumentResponse) -> f64 {
+    let fc = if c > 0.0 {
+        1.0 / (2.0 * std::f64::consts::PI * r * c)
+    } else {
+        f64::INFINITY
+    };
+    // Integrate over ln f from bw·1e-6 to bw·1e3 (the rest is below 1e-6 of the total).
+    let n = 2000;
+    let (lo, hi) = ((bw * 1e-6).ln(), (bw * 1e3).ln());
+    let h = (hi - lo) / n as f64;
+    let mut s = 0.0;
+    for i in 0..=n {
+        let f = (lo + i as f64 * h).exp();
+        let x = f / bw;
+        let inst = match response {
+            InstrumentResponse::SinglePole => 1.0 / (1.0 + x * x),
+            InstrumentResponse::Gaussian => (-std::f64::consts::LN_2 * x * x).exp(),
+        };
+        let rc = 1.0 / (1.0 + (f / fc).powi(2));
+        let w = if i == 0 || i == n { 0.5 } else { 1.0 };
+        s += w * inst * rc * f * h;
+    }
+    // Add the tiny part below the lower limit (flat response there).
+    s += bw * 1e-6;
+    (4.0 * BOLTZMANN * NOISE_TEMPERATURE * r * s).sqrt()
+}
+
+/// Rise × bandwidth product of an instrument response and its name.
+pub fn rise_bandwidth(response: InstrumentResponse) -> (f64, &'static str) {
+    match response {
+        InstrumentResponse::SinglePole => (
+            RISE_BW_SINGLE_POLE,
+            "single-pole response assumed: 0.35/BW (ln 9 / 2π)",
+        ),
+        InstrumentResponse::Gaussian => (RISE_BW_GAUSSIAN, "Gaussian response assumed: 0.34/BW"),
+    }
+}
+
+/// The load circuit of a design with load resistor `load` (ohms).
+pub fn circuit(design: &Design, load: f64) -> LoadCircuit {
+    let r = design.signal.readout.as_ref();
+    let (rin, cin) = r.map_or((f64::INFINITY, 0.0), |r| {
+        (r.input_resistance, r.input_capacitance)
+    });
+    LoadCircuit {
+        anode_capacitance: design.load_capacitance.get::<farad>(),
+        anode_resistance: design.anode_resistor.map(|x| x.get::<ohm>()),
+        coupling: design.coupling.map(|c| c.0.get::<farad>()),
+        cable: r.and_then(|r| r.cable).map(|c| waveform::Line {
+            delay: c.delay(),
+            impedance: c.impedance,
+        }),
+        load_resistance: parallel(load, rin),
+        load_capacitance: cin,
+    }
+}
+
+fn parallel(a: f64, b: f64) -> f64 {
+    if b.is_infinite() { a } else { a * b / (a + b) }
+}
+
+fn rss(parts: &[f64]) -> f64 {
+    parts.iter().map(|x| x * x).sum::<f64>().sqrt()
+}
+
+/// Judge a pulse of `peak` volts with baseline noise `noise` on a readout.
+pub fn judge(
+    peak: f64,
+    noise: Noise,
+    displayed_rise: Option<f64>,
+    r: &ReadoutSpec,
+    photoelectrons: Option<f64>,
+    echo: Option<Echoes>,
+) -> Readability {
+    let mut worst = Verdict::Readable;
+    let mut reasons = Vec::new();
+    let mut bump = |v: Verdict, why: String, reasons: &mut Vec<String>| {
+        worst = worst.max(v);
+        reasons.push(why);
+    };
+    let snr = if noise.total > 0.0 {
+        peak / noise.total
+    } else {
+        f64::MAX
+    };
+    if peak > r.largest_full_scale {
+        bump(
+            Verdict::Overloads,
+            format!(
+                "peak {} exceeds the largest range's full scale of {}: attenuate or lower the gain",
+                eng(peak, "V"),
+                eng(r.largest_full_scale, "V")
+            ),
+            &mut reasons,
+        );
+    }
+    match r.division_volts {
+        Some(div) => {
+            let n = peak / div;
+            let words = format!(
+                "peak {} is {n:.1} divisions at the most sensitive range ({}/div)",
+                eng(peak, "V"),
+                eng(div, "V")
+            );
+            if n < 0.5 {
+                bump(
+                    Verdict::NotReadable,
+                    format!("{words}: below half a division"),
+                    &mut reasons,
+                );
+            } else if n < 2.0 {
+                bump(
+                    Verdict::Marginal,
+                    format!("{words}: below 2 divisions"),
+                    &mut reasons,
+                );
+            } else if n > r.divisions as f64 && peak <= r.largest_full_scale {
+                reasons.push(format!(
+                    "{words}: off screen there, use about {}/div",
+                    eng(peak / (0.75 * r.divisions as f64), "V")
+                ));
+            } else {
+                reasons.push(words);
+            }
+        }
+        None => {
+            let f = peak / r.sensitive_full_scale;
+            let words = format!(
+                "peak {} is {:.1} % of the most sensitive full scale ({})",
+                eng(peak, "V"),
+                f * 100.0,
+                eng(r.sensitive_full_scale, "V")
+            );
+            if f < 0.025 {
+                bump(
+                    Verdict::NotReadable,
+                    format!("{words}: below 2.5 %"),
+                    &mut reasons,
+                );
+            } else if f < 0.10 {
+                bump(
+                    Verdict::Marginal,
+                    format!("{words}: below 10 %"),
+                    &mut reasons,
+                );
+            } else if f > 1.0 && peak <= r.largest_full_scale {
+                reasons.push(format!(
+                    "{words}: use a range of at least {} full scale",
+                    eng(peak / 0.75, "V")
+                ));
+            } else {
+                reasons.push(words);
+            }
+        }
+    }
+    let snr_words = format!(
+        "peak over baseline noise {:.1} (noise {} rms: instrument {}, load resistor {})",
+        snr.min(1e9),
+        eng(noise.total, "V"),
+        eng(noise.instrument, "V"),
+        eng(noise.johnson, "V")
+    );
+    if snr < 3.0 {
+        bump(
+            Verdict::NotReadable,
+            format!("{snr_words}: below 3"),
+            &mut reasons,
+        );
+    } else if snr < 10.0 {
+        bump(
+            Verdict::Marginal,
+            format!("{snr_words}: below 10"),
+            &mut reasons,
+        );
+    } else {
+        reasons.push(snr_words);
+    }
+    if let (Some(need), Some(rise)) = (r.rise_need, displayed_rise) {
+        if rise > need {
+            bump(
+                Verdict::Marginal,
+                format!(
+                    "rise {} as displayed (estimate) is slower than the {} needed",
+                    eng(rise, "s"),
+                    eng(need, "s")
+                ),
+                &mut reasons,
+            );
+        } else {
+            reasons.push(format!(
+                "rise {} as displayed (estimate) meets the {} needed",
+                eng(rise, "s"),
+                eng(need, "s")
+            ));
+        }
+    }
+    if let Some(e) = echo
+        && e.first_echo.abs() > 0.1
+    {
+        bump(
+            Verdict::Marginal,
+            format!(
+                "the cable is mismatched (Γ = {:+.2} at the load, {:+.2} at the base): echoes of {:.0} % every {} follow each pulse; terminate the cable in its impedance",
+                e.gamma_load,
+                e.gamma_base,
+                e.first_echo.abs() * 100.0,
+                eng(e.spacing, "s")
+            ),
+            &mut reasons,
+        );
+    }
+    if let Some(n) = photoelectrons {
+        let p0 = (-n).exp();
+        if p0 > 0.5 {
+            bump(
+                Verdict::Marginal,
+                format!(
+                    "with {n:.2} photoelectrons per pulse, {:.0} % of pulses give none: count single photoelectrons rather than read amplitudes",
+                    p0 * 100.0
+                ),
+                &mut reasons,
+            );
+        }
+    }
+    Readability {
+        verdict: worst,
+        reasons,
+        snr: snr.min(1e12),
+        displayed_rise,
+        noise,
+    }
+}
+
+/// Baseline noise at the instrument for a load circuit.
+pub fn noise(c: &LoadCircuit, r: &ReadoutSpec) -> Noise {
+    let johnson = johnson_rms(
+        c.pulse_resistance(),
+        c.total_capacitance(),
+        r.bandwidth,
+        r.response,
+    );
+    Noise {
+        instrument: r.noise_rms,
+        johnson,
+        total: rss(&[r.noise_rms, johnson]),
+    }
+}
+
+/// The load sweep: `n` log-spaced loads from 50 Ω to 1 MΩ for a pulse of `current`.
+pub fn load_sweep(
+    design: &Design,
+    current: &CurrentPulse,
+    n: usize,
+    photoelectrons: Option<f64>,
+) -> LoadSweep {
+    let r = design.signal.readout.as_ref();
+    // A 50 ohm instrument input makes a high load meaningless: sweep with its high-impedance
+    // setting instead, and say so.
+    let mut note = None;
+    let mut d2;
+    let design = match r {
+        Some(ro) if ro.input_resistance < 1e4 => {
+            d2 = design.clone();
+            if let Some(x) = d2.signal.readout.as_mut() {
+                x.input_resistance = 1e6;
+                if x.input_capacitance == 0.0 {
+                    x.input_capacitance = 15e-12;
+                }
+            }
+            note = Some(format!(
+                "the instrument input is {}: the sweep assumes its high-impedance setting (1 MΩ with {})",
+                eng(ro.input_resistance, "Ω"),
+                eng(
+                    d2.signal
+                        .readout
+                        .as_ref()
+                        .map_or(15e-12, |x| x.input_capacitance),
+                    "F"
+                )
+            ));
+            &d2
+        }
+        _ => design,
+    };
+    let r = design.signal.readout.as_ref();
+    let current_rise = current.as_waveform().measure().rise;
+    let (lo, hi) = (50f64.ln(), 1e6f64.ln());
+    let rows: Vec<SweepRow> = (0..n)
+        .map(|i| {
+            let load = (lo + (hi - lo) * i as f64 / (n.max(2) - 1) as f64).exp();
+            let c = circuit(design, load);
+            let w = waveform::simulate(&c, current, 0.0);
+            let f = w.measure();
+            let inst = r.map(|r| rise_bandwidth(r.response).0 / r.bandwidth);
+            let displayed = f.rise.map(|x| rss(&[x, inst.unwrap_or(0.0)]));
+            let (snr, verdict) = match r {
+                Some(ro) => {
+                    let j = judge(
+                        f.peak,
+                        noise(&c, ro),
+                        displayed,
+                        ro,
+                        photoelectrons,
+                        echoes(&c),
+                    );
+                    (Some(j.snr), Some(j.verdict))
+                }
+                None => (None, None),
+            };
+            let need = r.and_then(|r| r.rise_need);
+            let _ = current_rise;
+            SweepRow {
+                load,
+                effective: c.load_resistance,
+                pulse: f,
+                displayed_rise: displayed,
+                snr,
+                verdict,
+                meets_rise: need.zip(displayed).map(|(n, d)| d <= n),
+                echo: echoes(&c).map(|e| e.first_echo),
+            }
+        })
+        .collect();
+    let need = r.and_then(|r| r.rise_need);
+    let good = |row: &SweepRow| {
+        row.meets_rise.unwrap_or(true) && row.verdict.is_none_or(|v| v == Verdict::Readable)
+    };
+    let window = {
+        let g: Vec<&SweepRow> = rows.iter().filter(|x| good(x)).collect();
+        g.first().zip(g.last()).map(|(a, b)| (a.load, b.load))
+    };
+    let fast: Vec<&SweepRow> = rows
+        .iter()
+        .filter(|x| x.meets_rise.unwrap_or(false))
+        .collect();
+    let sentence = match (need, window) {
+        (Some(n), Some((a, b))) if a == b => format!(
+            "only {} of the loads tried gives a displayed rise within the {} needed and a readable pulse",
+            eng(a, "Ω"),
+            eng(n, "s")
+        ),
+        (Some(n), Some((a, b))) => format!(
+            "loads from {} to {} give a displayed rise within the {} needed and a readable pulse",
+            eng(a, "Ω"),
+            eng(b, "Ω"),
+            eng(n, "s")
+        ),
+        (Some(n), None) => match fast.last() {
+            Some(f) => format!(
+                "loads up to {} meet the {} rise need, but none of them gives a readable pulse: more light, more gain or a more sensitive range is needed",
+                eng(f.load, "Ω"),
+                eng(n, "s")
+            ),
+            None => format!(
+                "no load from 50 Ω to 1 MΩ meets the {} rise need: the tube, light pulse or instrument is too slow",
+                eng(n, "s")
+            ),
+        },
+        (None, Some((a, b))) => format!(
+            "loads from {} to {} give a readable pulse (give readout.rise_need to narrow the window)",
+            eng(a, "Ω"),
+            eng(b, "Ω")
+        ),
+        (None, None) if r.is_some() => {
+            "no load from 50 Ω to 1 MΩ gives a readable pulse".to_string()
+        }
+        (None, None) => "give a readout block to judge the loads".to_string(),
+    };
+    LoadSweep {
+        rows,
+        window,
+        sentence,
+        note,
+    }
+}
+
+/// Photon-statistics spread of a light shape (σ), seconds: an estimate.
+fn light_sigma(shape: &Shape) -> f64 {
+    match *shape {
+        Shape::Gaussian { fwhm } => fwhm / FWHM_PER_SIGMA,
+        Shape::Rectangular { width } => width / 12f64.sqrt(),
+        Shape::Exponential { rise, decay } => (rise * rise + decay * decay).sqrt(),
+    }
+}
+
+/// Build the signal budget of a design; `None` when the design has no light block.
+pub fn budget(design: &Design, chain: &Chain) -> Option<SignalBudget> {
+    let s = &design.signal;
+    let l = s.light.as_ref()?;
+    let mut warnings = Vec::new();
+    let mut assumptions = Vec::new();
+    if s.cathode_assumed {
+        assumptions.push(
+            "cathode: built-in bialkali behind borosilicate glass (approximate typical curve, from memory; give tube.cathode)".to_string(),
+        );
+    }
+    if s.timing.rise_assumed {
+        assumptions.push(format!(
+            "single-electron rise {} 10–90 % (from memory; give tube.single_electron_rise)",
+            eng(s.timing.ser_rise, "s")
+        ));
+    }
+    if s.timing.spread_assumed {
+        assumptions.push(format!(
+            "transit-time spread {} FWHM (from memory; give tube.transit_spread)",
+            eng(s.timing.tts_fwhm, "s")
+        ));
+    }
+    let conv = light::convert(
+        &l.spectrum,
+        l.photons,
+        l.coupling,
+        l.filter.as_ref(),
+        &s.cathode,
+    );
+    if conv.out_of_range > 0.0 {
+        warnings.push(format!(
+            "{:.0} % of the light lies outside the cathode curve's wavelength range ({:.0}–{:.0} nm): counted as zero response.",
+            conv.out_of_range * 100.0,
+            s.cathode.range().0,
+            s.cathode.range().1
+        ));
+    }
+    let npe = conv.emitted * chain.collection;
+    let mult = chain.gain / chain.collection;
+    let charge = npe * mult * ELEMENTARY_CHARGE;
+    let sigma_ser = ser_sigma(s.timing.ser_rise);
+    let sigma_tts = s.timing.tts_fwhm / FWHM_PER_SIGMA;
+    let sigma = (sigma_ser * sigma_ser + sigma_tts * sigma_tts).sqrt();
+    let current = waveform::convolved_pulse(&l.shape, sigma, charge.max(1e-30));
+    let c = circuit(design, design.load_resistance.get::<ohm>());
+    let w = waveform::simulate(&c, &current, 0.0);
+    let mut pulse = w.measure();
+    if charge <= 0.0 {
+        pulse.peak = 0.0;
+    }
+    let single = waveform::gaussian_pulse(sigma_ser, mult * ELEMENTARY_CHARGE);
+    let single_volts = waveform::simulate(&c, &single, 0.0).measure().peak;
+    let r = s.readout.as_ref();
+    let current_fig = current.as_waveform().measure();
+    let rc_rise = 9f64.ln() * c.time_constant();
+    let inst = r.map(|r| rise_bandwidth(r.response));
+    let estimates = Estimates {
+        i_times_r: current_fig.peak * c.pulse_resistance(),
+        q_over_c: charge / c.total_capacitance(),
+        rc_rise,
+        current_rise: current_fig.rise,
+        rss_rise: rss(&[current_fig.rise.unwrap_or(0.0), rc_rise]),
+        instrument_rise: inst.zip(r).map(|((k, _), r)| k / r.bandwidth),
+        instrument_model: inst.map(|(_, m)| m),
+    };
+    let echoes = echoes(&c);
+    let f = chain.excess_noise;
+    let spread = if npe > 0.0 { (f / npe).sqrt() } else { 0.0 };
+    let displayed = pulse
+        .rise
+        .map(|x| rss(&[x, estimates.instrument_rise.unwrap_or(0.0)]));
+    let readable = r.map(|ro| {
+        let mut j = judge(pulse.peak, noise(&c, ro), displayed, ro, Some(npe), echoes);
+        if spread > 0.3 {
+            j.reasons.push(format!(
+                "pulse heights spread ±{:.0} % rms from photoelectron statistics (√(F/N) with F = {f:.3})",
+                spread * 100.0
+            ));
+        }
+        j
+    });
+    // Timing.
+    let timing = if pulse.peak > 0.0 {
+        let threshold = r
+            .and_then(|r| r.threshold)
+            .unwrap_or(DEFAULT_THRESHOLD_FRACTION * pulse.peak);
+        let noise_total = readable.as_ref().map(|x| x.noise.total);
+        let slope = w.slope_at_first_crossing(threshold);
+        let noise_jitter = noise_total.zip(slope).map(|(n, s)| n / s);
+        let photon_jitter =
+            (sigma_tts * sigma_tts + light_sigma(&l.shape).powi(2)).sqrt() / npe.max(1.0).sqrt();
+        let lo = (pulse.peak * (1.0 - 2.0 * spread)).max(single_volts);
+        let hi = pulse.peak * (1.0 + 2.0 * spread);
+        // The waveform is linear in the charge: a pulse of height A crosses `th` where the
+        // computed pulse crosses `th · peak / A`.
+        let cross = |a: f64| {
+            let level = threshold * pulse.peak / a;
+            (level < pulse.peak)
+                .then(|| w.first_crossing(level))
+                .flatten()
+        };
+        let walk = cross(lo).zip(cross(hi)).map(|(a, b)| a - b);
+        Some(Timing {
+            threshold,
+            noise_jitter,
+            photon_jitter,
+            total_jitter: noise_jitter.map(|n| rss(&[n, photon_jitter])),
+            walk,
+            walk_range: (lo, hi),
+        })
+    } else {
+        None
+    };
+    if let Some((i_fig, dev, _)) = design.tube.pulse_linearity {
+        let i_fig = i_fig.get::<uom::si::electric_current::ampere>();
+        if current_fig.peak > 0.5 * i_fig {
+            warnings.push(format!(
+                "The peak anode current {} is {:.0} % of the tube's pulse-linearity figure ({} at {:.0} % deviation): expect the pulse gain to move; see the linearity section.",
+                eng(current_fig.peak, "A"),
+                current_fig.peak / i_fig * 100.0,
+                eng(i_fig, "A"),
+                dev * 100.0
+            ));
+        }
+    }
+    let average = l.rate.map(|rate| charge * rate);
+    if let Some(avg) = average
+        && avg > chain.max_anode_amps
+    {
+        warnings.push(format!(
+            "The pulses at {} average {} of anode current, above the tube's rating of {}.",
+            eng(l.rate.unwrap_or(0.0), "Hz"),
+            eng(avg, "A"),
+            eng(chain.max_anode_amps, "A")
+        ));
+    }
+    let background = l.background.map(|b| {
+        let qe = s.cathode.qe(b.nm);
+        let cathode_amps = b.photons_per_second * qe * ELEMENTARY_CHARGE;
+        let anode = cathode_amps * chain.gain;
+        BackgroundFigures {
+            photons_per_second: b.photons_per_second,
+            nm: b.nm,
+            cathode_amps,
+            anode_amps: anode,
+            over_divider: anode / chain.divider_amps,
+            over_rating: anode / chain.max_anode_amps,
+        }
+    });
+    if let Some(b) = background
+        && b.over_rating > 1.0
+    {
+        warnings.push(format!(
+                "Steady light on this energised tube would ask for {} of anode current, {:.0}× its limit and {:.1}× the divider current: the gain collapses and the cathode can be damaged. Keep light off the tube while the high voltage is on.",
+                eng(b.anode_amps, "A"),
+                b.over_rating,
+                b.over_divider
+            ));
+    }
+    let photodiode = photodiode_alternative(
+        &l.spectrum,
+        conv.photons_at_cathode,
+        &l.shape,
+        pulse.peak,
+        displayed.or(pulse.rise).unwrap_or(1e-9),
+    );
+    let sweep = load_sweep(design, &current, SWEEP_POINTS, Some(npe));
+    Some(SignalBudget {
+        cathode: s.cathode.label.clone(),
+        light: l.label.clone(),
+        photons_at_cathode: conv.photons_at_cathode,
+        mean_qe: conv.mean_qe,
+        photoelectrons: npe,
+        multiplication: mult,
+        charge,
+        peak_anode_amps: current_fig.peak,
+        single_pe_charge: mult * ELEMENTARY_CHARGE,
+        single_pe_volts: single_volts,
+        p_at_least_one: 1.0 - (-npe).exp(),
+        excess_noise: f,
+        amplitude_spread: spread,
+        circuit: c,
+        current,
+        waveform: w,
+        pulse,
+        estimates,
+        echoes,
+        readable,
+        timing,
+        average_anode_amps: average,
+        background,
+        photodiode,
+        sweep,
+        warnings,
+        assumptions,
+    })
+}
+
+/// A PIN photodiode and transimpedance amplifier giving the same peak voltage and rise.
+pub fn photodiode_alternative(
+    spectrum: &Spectrum,
+    photons_at_detector: f64,
+    shape: &Shape,
+    peak_volts: f64,
+    rise: f64,
+) -> Option<Photodiode> {
+    let si = cathode::silicon_photodiode()?;
+    let mut electrons = 0.0;
+    let mut energy = 0.0;
+    for (nm, p) in spectrum.weights() {
+        let qe = cathode::qe_from_sensitivity(si.curve.at_or_zero(nm), nm);
+        electrons += photons_at_detector * p * qe;
+        energy += photons_at_detector * p * cathode::photon_energy(nm);
+    }
+    let charge = electrons * ELEMENTARY_CHARGE;
+    if !(charge > 0.0 && peak_volts > 0.0) {
+        return None;
+    }
+    let peak_amps = charge / shape.area_per_peak();
+    let feedback = peak_volts / peak_amps;
+    let bandwidth = RISE_BW_SINGLE_POLE / rise;
+    let gbw =
+        2.0 * std::f64::consts::PI * feedback * PHOTODIODE_CAPACITANCE * bandwidth * bandwidth;
+    let enbw = std::f64::consts::FRAC_PI_2 * bandwidth;
+    let v_rf = johnson_density(feedback, NOISE_TEMPERATURE) * enbw.sqrt();
+    let cf = 1.0 / (2.0 * std::f64::consts::PI * feedback * bandwidth);
+    let v_en = AMPLIFIER_NOISE * (1.0 + PHOTODIODE_CAPACITANCE / cf) * enbw.sqrt();
+    let noise = rss(&[v_rf, v_en]);
+    let snr = peak_volts / noise;
+    let practical = gbw <= PRACTICAL_GBW && snr >= 10.0;
+    let sentence = if practical {
+        format!(
+            "practical: a {} feedback resistor and an amplifier of {} gain-bandwidth give the same pulse with a peak-to-noise of {:.0}",
+            eng(feedback, "Ω"),
+            eng(gbw, "Hz"),
+            snr
+        )
+    } else if gbw > PRACTICAL_GBW && snr < 10.0 {
+        format!(
+            "not practical: it would need {} of gain-bandwidth (fast amplifiers give a few GHz) and still reach only {:.1} peak-to-noise; the tube's gain is what makes this light readable",
+            eng(gbw, "Hz"),
+            snr
+        )
+    } else if gbw > PRACTICAL_GBW {
+        format!(
+            "not practical: the {} feedback resistor at this rise time needs {} of gain-bandwidth (fast amplifiers give a few GHz)",
+            eng(feedback, "Ω"),
+            eng(gbw, "Hz")
+        )
+    } else {
+        format!(
+            "not practical: the photocurrent is too small; peak-to-noise would be {:.1}",
+            snr
+        )
+    };
+    let _ = energy;
+    Some(Photodiode {
+        responsivity: charge / (energy.max(1e-300)),
+        charge,
+        peak_amps,
+        feedback,
+        bandwidth,
+        gbw,
+        noise,
+        snr,
+        practical,
+        sentence,
+    })
+}
+
+/// One cell of the light-and-cathode comparison.
+#[derive(Debug, Clone, PartialEq)]
+pub struct MatchCell {
+    /// Cathode key.
+    pub cathode: String,
+    /// QE at the wavelength (window included).
+    pub qe: f64,
+    /// Photoelectrons per pulse.
+    pub photoelectrons: f64,
+    /// Peak at the load, V.
+    pub peak_volts: f64,
+    /// Verdict with the design's readout.
+    pub verdict: Option<Verdict>,
+}
+
+/// One wavelength of the comparison.
+#[derive(Debug, Clone, PartialEq)]
+pub struct MatchRow {
+    /// Wavelength, nm.
+    pub nm: f64,
+    /// Label, e.g. "632.8 nm He-Ne (in air)".
+    pub label: String,
+    /// One cell per cathode.
+    pub cells: Vec<MatchCell>,
+}
+
+/// Common laser and LED lines for the comparison (nm, label). He-Ne is given in air; its
+/// vacuum wavelength is 632.9908 nm (CIPM 2007).
+pub const COMMON_LINES: [(f64, &str); 12] = [
+    (266.0, "Nd:YAG 4th harmonic"),
+    (355.0, "Nd:YAG 3rd harmonic"),
+    (405.0, "violet diode"),
+    (450.0, "blue diode"),
+    (520.0, "green diode"),
+    (532.0, "Nd:YAG 2nd harmonic"),
+    (632.8, "He-Ne, in air (632.99 nm in vacuum)"),
+    (650.0, "red diode"),
+    (780.0, "near-infrared diode"),
+    (850.0, "near-infrared diode"),
+    (905.0, "pulsed infrared diode"),
+    (1064.0, "Nd:YAG fundamental"),
+];
+
+/// Compare wavelengths × cathodes for `photons` at the cathode per pulse, with the design's
+/// gain, load and readout. The pulse shape is the design's light shape (or a 2 ns Gaussian).
+pub fn light_match(
+    design: &Design,
+    chain: &Chain,
+    lines: &[(f64, String)],
+    cathodes: &[Cathode],
+    photons: f64,
+) -> Vec<MatchRow> {
+    let s = &design.signal;
+    let shape = s
+        .light
+        .as_ref()
+        .map_or(Shape::Gaussian { fwhm: 2e-9 }, |l| l.shape);
+    let sigma_ser = ser_sigma(s.timing.ser_rise);
+    let sigma_tts = s.timing.tts_fwhm / FWHM_PER_SIGMA;
+    let sigma = (sigma_ser * sigma_ser + sigma_tts * sigma_tts).sqrt();
+    let mult = chain.gain / chain.collection;
+    // The pulse is linear in the charge: one waveform per coulomb serves every cell.
+    let unit = waveform::convolved_pulse(&shape, sigma, 1.0);
+    let c = circuit(design, design.load_resistance.get::<ohm>());
+    let w = waveform::simulate(&c, &unit, 0.0);
+    let f = w.measure();
+    let r = s.readout.as_ref();
+    let displayed = f.rise.map(|x| {
+        rss(&[
+            x,
+            r.map_or(0.0, |r| rise_bandwidth(r.response).0 / r.bandwidth),
+        ])
+    });
+    let nz = r.map(|ro| noise(&c, ro));
+    lines
+        .iter()
+        .map(|(nm, label)| MatchRow {
+            nm: *nm,
+            label: label.clone(),
+            cells: cathodes
+                .iter()
+                .map(|k| {
+                    let qe = k.qe(*nm);
+                    let npe = photons * qe * chain.collection;
+                    let peak = f.peak * npe * mult * ELEMENTARY_CHARGE;
+                    MatchCell {
+                        cathode: k.key.clone(),
+                        qe,
+                        photoelectrons: npe,
+                        peak_volts: peak,
+                        verdict: r.zip(nz).map(|(ro, n)| {
+                            judge(peak, n, displayed, ro, Some(npe), echoes(&c)).verdict
+                        }),
+                    }
+                })
+                .collect(),
+        })
+        .collect()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn gaussian_rise_constant() {
+        // 10–90 % of the leading edge of exp(-x²/2): √(2 ln 10) − √(2 ln(10/9)).
+        let k = (2.0 * 10f64.ln()).sqrt() - (2.0 * (10.0f64 / 9.0).ln()).sqrt();
+        assert!((k - GAUSS_RISE_PER_SIGMA).abs() < 1e-6, "{k}");
+    }
+
+    #[test]
+    fn johnson_over_a_single_pole_matches_the_closed_form() {
+        // ENBW of a single pole is π/2 · BW (standard result); with no shunt capacitance the
+        // integral must give it.
+        let v = johnson_rms(1e3, 0.0, 1e8, InstrumentResponse::SinglePole);
+        let expect =
+            johnson_density(1e3, NOISE_TEMPERATURE) * (std::f64::consts::FRAC_PI_2 * 1e8).sqrt();
+        assert!((v / expect - 1.0).abs() < 2e-3, "{v} {expect}");
+    }
+}
