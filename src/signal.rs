@@ -409,12 +409,25 @@ pub fn judge(
     r: &ReadoutSpec,
     photoelectrons: Option<f64>,
     echo: Option<Echoes>,
+    single_pe_peak: Option<f64>,
 ) -> Readability {
     let mut worst = Verdict::Readable;
     let mut reasons = Vec::new();
     let mut bump = |v: Verdict, why: String, reasons: &mut Vec<String>| {
         worst = worst.max(v);
         reasons.push(why);
+    };
+    // Below one photoelectron per pulse, a pulse that appears is one photoelectron: judge that.
+    let peak = match photoelectrons {
+        Some(n) if n > 0.0 && n < 1.0 => {
+            let one = single_pe_peak.unwrap_or(peak / n);
+            reasons.push(format!(
+                "with {n:.2} photoelectrons per pulse a pulse, when one appears, is a single photoelectron: judged on its height of {}",
+                eng(one, "V")
+            ));
+            one
+        }
+        _ => peak,
     };
     let snr = if noise.total > 0.0 {
         peak / noise.total
@@ -590,6 +603,7 @@ pub fn load_sweep(
     current: &CurrentPulse,
     n: usize,
     photoelectrons: Option<f64>,
+    single_pe: Option<&CurrentPulse>,
 ) -> LoadSweep {
     let r = design.signal.readout.as_ref();
     // A 50 ohm instrument input makes a high load meaningless: sweep with its high-impedance
@@ -623,7 +637,10 @@ pub fn load_sweep(
     let r = design.signal.readout.as_ref();
     let current_rise = current.as_waveform().measure().rise;
     let (lo, hi) = (50f64.ln(), 1e6f64.ln());
+    // Loads are independent: spread them over the cores.
+    use rayon::prelude::*;
     let rows: Vec<SweepRow> = (0..n)
+        .into_par_iter()
         .map(|i| {
             let load = (lo + (hi - lo) * i as f64 / (n.max(2) - 1) as f64).exp();
             let c = circuit(design, load);
@@ -633,6 +650,9 @@ pub fn load_sweep(
             let displayed = f.rise.map(|x| rss(&[x, inst.unwrap_or(0.0)]));
             let (snr, verdict) = match r {
                 Some(ro) => {
+                    let one = single_pe
+                        .filter(|_| photoelectrons.is_some_and(|x| x < 1.0))
+                        .map(|p| waveform::simulate(&c, p, 0.0).measure().peak);
                     let j = judge(
                         f.peak,
                         noise(&c, ro),
@@ -640,6 +660,7 @@ pub fn load_sweep(
                         ro,
                         photoelectrons,
                         echoes(&c),
+                        one,
                     );
                     (Some(j.snr), Some(j.verdict))
                 }
@@ -685,9 +706,13 @@ pub fn load_sweep(
         ),
         (Some(n), None) => match fast.last() {
             Some(f) => format!(
-                "loads up to {} meet the {} rise need, but none of them gives a readable pulse: more light, more gain or a more sensitive range is needed",
+                "loads up to {} meet the {} rise need, but none of them gives a readable pulse (the best is {}): see the reasons under READOUT",
                 eng(f.load, "Ω"),
-                eng(n, "s")
+                eng(n, "s"),
+                rows.iter()
+                    .filter_map(|x| x.verdict)
+                    .min()
+                    .map_or("not judged", Verdict::as_str)
             ),
             None => format!(
                 "no load from 50 Ω to 1 MΩ meets the {} rise need: the tube, light pulse or instrument is too slow",
@@ -794,7 +819,15 @@ pub fn budget(design: &Design, chain: &Chain) -> Option<SignalBudget> {
         .rise
         .map(|x| rss(&[x, estimates.instrument_rise.unwrap_or(0.0)]));
     let readable = r.map(|ro| {
-        let mut j = judge(pulse.peak, noise(&c, ro), displayed, ro, Some(npe), echoes);
+        let mut j = judge(
+            pulse.peak,
+            noise(&c, ro),
+            displayed,
+            ro,
+            Some(npe),
+            echoes,
+            Some(single_volts),
+        );
         if spread > 0.3 {
             j.reasons.push(format!(
                 "pulse heights spread ±{:.0} % rms from photoelectron statistics (√(F/N) with F = {f:.3})",
@@ -805,18 +838,26 @@ pub fn budget(design: &Design, chain: &Chain) -> Option<SignalBudget> {
     });
     // Timing.
     let timing = if pulse.peak > 0.0 {
+        // Below one photoelectron a pulse is one photoelectron, whose height spreads with the
+        // relative variance F − 1 of the multiplier (same cascade theory).
+        let (base, s) = if npe < 1.0 {
+            (single_volts, (f - 1.0).max(0.0).sqrt())
+        } else {
+            (pulse.peak, spread)
+        };
+        // The pulse is linear in the charge: a pulse of height A is the computed one × A/peak.
+        let k = base / pulse.peak;
         let threshold = r
             .and_then(|r| r.threshold)
-            .unwrap_or(DEFAULT_THRESHOLD_FRACTION * pulse.peak);
+            .unwrap_or(DEFAULT_THRESHOLD_FRACTION * base);
         let noise_total = readable.as_ref().map(|x| x.noise.total);
-        let slope = w.slope_at_first_crossing(threshold);
+        let slope = w.slope_at_first_crossing(threshold / k).map(|x| x * k);
         let noise_jitter = noise_total.zip(slope).map(|(n, s)| n / s);
         let photon_jitter =
             (sigma_tts * sigma_tts + light_sigma(&l.shape).powi(2)).sqrt() / npe.max(1.0).sqrt();
-        let lo = (pulse.peak * (1.0 - 2.0 * spread)).max(single_volts);
-        let hi = pulse.peak * (1.0 + 2.0 * spread);
-        // The waveform is linear in the charge: a pulse of height A crosses `th` where the
-        // computed pulse crosses `th · peak / A`.
+        let lo = base * (1.0 - 2.0 * s).max(0.25);
+        let hi = base * (1.0 + 2.0 * s);
+        // A pulse of height A crosses `th` where the computed pulse crosses `th · peak / A`.
         let cross = |a: f64| {
             let level = threshold * pulse.peak / a;
             (level < pulse.peak)
@@ -888,7 +929,7 @@ pub fn budget(design: &Design, chain: &Chain) -> Option<SignalBudget> {
         pulse.peak,
         displayed.or(pulse.rise).unwrap_or(1e-9),
     );
-    let sweep = load_sweep(design, &current, SWEEP_POINTS, Some(npe));
+    let sweep = load_sweep(design, &current, SWEEP_POINTS, Some(npe), Some(&single));
     Some(SignalBudget {
         cathode: s.cathode.label.clone(),
         light: l.label.clone(),
@@ -1066,6 +1107,13 @@ pub fn light_match(
         ])
     });
     let nz = r.map(|ro| noise(&c, ro));
+    let one_pe = waveform::simulate(
+        &c,
+        &waveform::gaussian_pulse(sigma_ser, mult * ELEMENTARY_CHARGE),
+        0.0,
+    )
+    .measure()
+    .peak;
     lines
         .iter()
         .map(|(nm, label)| MatchRow {
@@ -1083,7 +1131,8 @@ pub fn light_match(
                         photoelectrons: npe,
                         peak_volts: peak,
                         verdict: r.zip(nz).map(|(ro, n)| {
-                            judge(peak, n, displayed, ro, Some(npe), echoes(&c)).verdict
+                            judge(peak, n, displayed, ro, Some(npe), echoes(&c), Some(one_pe))
+                                .verdict
                         }),
                     }
                 })

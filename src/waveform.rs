@@ -526,9 +526,9 @@ pub fn simulate(circuit: &LoadCircuit, pulse: &CurrentPulse, window: f64) -> Wav
         .max(tau_fast);
     let round_trip = circuit.cable.map_or(0.0, |l| 2.0 * l.delay);
     let t_src = pulse.end();
-    // Phase 1 (fine) ends after the pulse, ten load time constants and six round trips;
+    // Phase 1 (fine) ends after the pulse, ten load time constants and four round trips;
     // the run ends after the slow tail has had its say.
-    let t_fine = t_src + 10.0 * tau_fast + 6.0 * round_trip;
+    let t_fine = t_src + 10.0 * tau_fast + 4.0 * round_trip;
     let t_stop = (t_fine + 3.0 * tau_slow.min(1e4 * tau_fast.max(t_src)))
         .max(t_src + window)
         .max(t_fine);
@@ -540,7 +540,7 @@ pub fn simulate(circuit: &LoadCircuit, pulse: &CurrentPulse, window: f64) -> Wav
     let h_src = pulse.dt.min(tau_fast / 10.0);
     let h_fall = ((pulse_width + tau_fast) / 10.0).max(h_src);
     let h_slow = (tau_slow / 20.0).max(h_fall);
-    let t_echoes = t_src + 6.0 * round_trip;
+    let t_echoes = t_src + 4.0 * round_trip;
     // While the cable is distributed, echoes keep the pulse's edges, and a capacitive end
     // reflects their derivative over its own RC: resolve the finer of the two with ten steps.
     let h_line = circuit.cable.map_or(f64::INFINITY, |l| {
@@ -578,6 +578,8 @@ pub fn simulate(circuit: &LoadCircuit, pulse: &CurrentPulse, window: f64) -> Wav
         hist.wq.push(0.0);
     }
     let mut a = [0.0; 9];
+    let mut inv = [0.0; 9];
+    let mut cached: Option<(f64, f64, usize, bool)> = None;
     let mut rhs = [0.0; 3];
     let mut first = true;
     while t < t_stop {
@@ -619,10 +621,38 @@ pub fn simulate(circuit: &LoadCircuit, pulse: &CurrentPulse, window: f64) -> Wav
             ((1.0 + 2.0 * w) / (1.0 + w), -(1.0 + w), w * w / (1.0 + w))
         };
         let m = net.m;
+        // The matrix changes only with the step, its ratio or a change of network: keep its
+        // inverse while they stay (the fine phase runs at one step).
+        let key = (h, a0, m, net.line.is_some());
+        if cached != Some(key) {
+            for i in 0..m {
+                for j in 0..m {
+                    a[i * m + j] = a0 / h * net.cap[i * m + j] + net.cond[i * m + j];
+                }
+            }
+            if let Some((p, q, l)) = net.line {
+                let g = 1.0 / l.impedance;
+                a[p * m + p] += g;
+                a[q * m + q] += g;
+            }
+            let mut ok = true;
+            for col in 0..m {
+                let mut lu = a;
+                let mut unit = [0.0; 3];
+                unit[col] = 1.0;
+                ok &= dense_solve(&mut lu[..m * m], &mut unit[..m], m);
+                for row in 0..m {
+                    inv[row * m + col] = unit[row];
+                }
+            }
+            if !ok {
+                break;
+            }
+            cached = Some(key);
+        }
         for i in 0..m {
             let mut r = 0.0;
             for j in 0..m {
-                a[i * m + j] = a0 / h * net.cap[i * m + j] + net.cond[i * m + j];
                 r -= net.cap[i * m + j] * (a1 * v_now[j] + a2 * v_prev[j]) / h;
             }
             rhs[i] = r;
@@ -634,14 +664,14 @@ pub fn simulate(circuit: &LoadCircuit, pulse: &CurrentPulse, window: f64) -> Wav
             let (wp, wq) = hist.at(tn - l.delay);
             e = (wq, wp);
             let g = 1.0 / l.impedance;
-            a[p * m + p] += g;
-            a[q * m + q] += g;
             rhs[p] += e.0 * g;
             rhs[q] += e.1 * g;
         }
-        if !dense_solve(&mut a[..m * m], &mut rhs[..m], m) {
-            break;
+        let mut x = [0.0; 3];
+        for i in 0..m {
+            x[i] = (0..m).map(|j| inv[i * m + j] * rhs[j]).sum();
         }
+        rhs = x;
         v_prev.copy_from_slice(&v_now);
         v_now.copy_from_slice(&rhs[..m]);
         if let Some((p, q, _)) = net.line {

@@ -327,11 +327,8 @@ pub struct SignalSpec {
 }
 
 fn wavelength(c: &Checker, field: &str, v: &Value) -> Result<f64, DesignError> {
-    // A bare number is read as nm here: nobody writes a wavelength in metres.
-    let m = match v {
-        Value::Number(x) if x.is_finite() && *x > 1.0 => x * 1e-9,
-        _ => c.positive(field, v, Kind::Length)?,
-    };
+    // A length carries its unit ("405 nm"), as every quantity but volts and ohms does.
+    let m = c.positive(field, v, Kind::Length)?;
     let nm = m * 1e9;
     if !(100.0..=2500.0).contains(&nm) {
         return Err(c.fail(

@@ -221,7 +221,11 @@ pub fn render_text(out: &mut String, a: &Analysis) {
         let _ = writeln!(
             out,
             "  noise jitter        {} (baseline noise / slope at the threshold)",
-            opt_s(t.noise_jitter).replace("beyond the window", "needs a readout")
+            match (t.noise_jitter, s.readable.is_some()) {
+                (Some(j), _) => eng(j, "s"),
+                (None, true) => "— (the mean pulse does not reach the threshold)".to_string(),
+                (None, false) => "— (needs a readout)".to_string(),
+            }
         );
         let _ = writeln!(
             out,
