@@ -54,7 +54,7 @@ pub const AMPLIFIER_NOISE: f64 = 3e-9;
 /// few GHz; from memory).
 pub const PRACTICAL_GBW: f64 = 5e9;
 /// Points of the load sweep in reports.
-pub const SWEEP_POINTS: usize = 25;
+pub const SWEEP_POINTS: usize = 19;
 
 /// What the multiplier chain contributes, from the solved operating point.
 #[derive(Debug, Clone, Copy, PartialEq)]
