@@ -19,11 +19,11 @@ mod ngspice_dc;
 mod outputs;
 /// Invariants over random valid designs.
 mod properties;
+/// Signal budget: QE, pulse charge and amplitude, the pulse at the load, noise, reflections.
+mod signal;
 /// Sizing from requirements, IEC 60063 tables, tolerance statistics, sweeps, supply quality.
 mod sizing;
 /// Pulse trains: ngspice transient, charge conservation, RC recovery, linear limit.
 mod train;
-/// Signal budget: QE, pulse charge and amplitude, the pulse at the load, noise, reflections.
-mod signal;
 /// Plausibility warnings: triggered one by one, shown in every format, never blocking.
 mod warnings;
