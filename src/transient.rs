@@ -157,6 +157,7 @@ pub struct RunOptions {
     /// After the train, integrate until the gain is back within `recovery_band` (fraction).
     pub recovery_band: Option<f64>,
     /// Step budget.
+    /// Least step budget; a train of N pulses gets at least 400 N + 100 000 steps.
     pub max_steps: usize,
     /// Integrate to exactly this time (seconds) instead of stopping at the train's end or at
     /// recovery; the last sample and the run's final state are then at this time.
@@ -887,11 +888,16 @@ impl Base {
         let band = opts.recovery_band.unwrap_or(0.0);
         let mut recovered_at: Option<f64> = None;
         let mut after_bp = true;
+        // The step budget grows with the train: a few hundred steps resolve one pulse.
+        let budget = opts.max_steps.max(400 * arrivals.len() + 100_000);
         while time < t_stop * (1.0 - 1e-15) {
-            if accepted + rejected > opts.max_steps {
+            if accepted + rejected > budget {
                 return Err(TransientError::Failed {
                     time,
-                    reason: format!("more than {} steps", opts.max_steps),
+                    reason: format!(
+                        "more than {budget} steps ({} pulses); try fewer pulses with --pulses",
+                        arrivals.len()
+                    ),
                 });
             }
             while bp_idx < breaks.len() && breaks[bp_idx] <= time * (1.0 + 1e-14) + 1e-300 {
