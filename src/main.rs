@@ -96,6 +96,24 @@ enum Command {
     },
     /// Solve the base in time under the design's pulse train: per-pulse gain, droop, recovery,
     /// pulse linearity, capacitor sizing and a tapered comparison.
+    /// List the built-in cathode curves and windows: peak, cut-offs and where the numbers come from.
+    #[command(after_help = "Example:\n  dynode cathodes")]
+    Cathodes,
+    /// Compare light sources and cathodes: QE, photoelectrons, pulse peak and verdict for a
+    /// list of wavelengths against every built-in cathode and the design's own.
+    #[command(
+        after_help = "Examples:\n  dynode light-match designs/laser-timing.ron\n  dynode light-match designs/rooftop-paddle.ron --lines 405,520,650 --photons 2000"
+    )]
+    LightMatch {
+        /// The design file (RON): its gain, load, readout and light pulse shape are used.
+        design: PathBuf,
+        /// Wavelengths in nm, comma separated (default: twelve common laser and LED lines).
+        #[arg(long, value_delimiter = ',', value_name = "NM,NM,...")]
+        lines: Vec<f64>,
+        /// Photons reaching the cathode per pulse (default: the design's light, else 1000).
+        #[arg(long, value_name = "N")]
+        photons: Option<f64>,
+    },
     #[command(
         after_help = "Example:\n  dynode train designs/laser-burst-counter.ron\n  dynode train designs/laser-burst-counter.ron --pulses 200 --train-only --format json"
     )]
@@ -639,6 +657,15 @@ fn run() -> ExitCode {
             }
             ExitCode::from(Exit::Ok as u8)
         }
+        Command::Cathodes => {
+            print!("{}", cathode_catalogue());
+            ExitCode::from(Exit::Ok as u8)
+        }
+        Command::LightMatch {
+            design,
+            lines,
+            photons,
+        } => light_match_command(&design, &lines, photons),
         Command::Train {
             design,
             format,
@@ -805,4 +832,168 @@ fn run() -> ExitCode {
 
 fn main() -> ExitCode {
     run()
+}
+
+/// The text of `dynode cathodes`.
+fn cathode_catalogue() -> String {
+    use dynode::cathode::{Cathode, builtin_cathodes, builtin_windows};
+    use std::fmt::Write as _;
+    let mut out = String::new();
+    let _ = writeln!(
+        out,
+        "Built-in photocathodes (approximate typical curves, from memory; load your tube's own table for real work)\n"
+    );
+    let _ = writeln!(
+        out,
+        "  {:<26} {:>9} {:>8} {:>17}  material, window",
+        "key", "peak", "peak QE", "cut-offs (1 %)"
+    );
+    for c in builtin_cathodes() {
+        let Some(k) = Cathode::builtin(&c.key, None) else {
+            continue;
+        };
+        let (nm, qe) = k.peak();
+        let (lo, hi) = k.cutoffs();
+        let _ = writeln!(
+            out,
+            "  {:<26} {:>6.0} nm {:>6.1} % {:>7.0}–{:<6.0}nm  {}",
+            c.key,
+            nm,
+            qe * 100.0,
+            lo,
+            hi,
+            k.label
+        );
+    }
+    let _ = writeln!(out, "\nWindows (use as tube.cathode window):");
+    for w in builtin_windows() {
+        let _ = writeln!(out, "  {:<26} {}", w.key, w.label);
+    }
+    let _ = writeln!(out, "\nProvenance:");
+    for c in builtin_cathodes().iter().chain(builtin_windows()) {
+        let _ = writeln!(out, "  {:<26} {}", c.key, c.provenance);
+    }
+    out
+}
+
+/// `dynode light-match`: wavelengths × cathodes.
+fn light_match_command(design: &Path, lines: &[f64], photons: Option<f64>) -> ExitCode {
+    use dynode::cathode::{Cathode, builtin_cathodes};
+    use dynode::signal::{COMMON_LINES, Chain, light_match};
+    use dynode::units::format_eng;
+    use std::fmt::Write as _;
+    let d = match design::load(design) {
+        Ok(d) => d,
+        Err(e) => return fail(e, Exit::BadInput),
+    };
+    if let Some(bad) = lines
+        .iter()
+        .find(|nm| !(nm.is_finite() && (100.0..=2000.0).contains(*nm)))
+    {
+        return fail(
+            format!("--lines: expected wavelengths between 100 and 2000 nm, found {bad}"),
+            Exit::BadInput,
+        );
+    }
+    if let Some(p) = photons
+        && !(p.is_finite() && p > 0.0 && p < 1e20)
+    {
+        return fail(
+            format!("--photons: expected a positive number of photons per pulse, found {p}"),
+            Exit::BadInput,
+        );
+    }
+    let a = match analysis::analyse_with(&d, None) {
+        Ok(a) => a,
+        Err(e) => return fail(&e, analysis_exit(&e)),
+    };
+    let t = &a.network.tube;
+    let chain = Chain {
+        gain: a.op.gain(),
+        collection: t.collection,
+        excess_noise: t.excess_noise_factor(&a.op.tube_gap_volts()),
+        divider_amps: a.quiescent_amps,
+        max_anode_amps: d
+            .tube
+            .max_anode_current
+            .get::<uom::si::electric_current::ampere>(),
+    };
+    let photons = photons
+        .or(a.signal.as_ref().map(|s| s.photons_at_cathode))
+        .unwrap_or(1000.0);
+    let list: Vec<(f64, String)> = if lines.is_empty() {
+        COMMON_LINES
+            .iter()
+            .map(|(nm, l)| (*nm, l.to_string()))
+            .collect()
+    } else {
+        lines.iter().map(|nm| (*nm, String::new())).collect()
+    };
+    let mut cathodes = vec![d.signal.cathode.clone()];
+    for c in builtin_cathodes() {
+        if let Some(k) = Cathode::builtin(&c.key, None)
+            && k.key != cathodes[0].key
+        {
+            cathodes.push(k);
+        }
+    }
+    let rows = light_match(&d, &chain, &list, &cathodes, photons);
+    let mut out = String::new();
+    let _ = writeln!(out, "{}", dynode::safety::CLOSING_CAUTION);
+    let count = |x: f64| {
+        if x == 0.0 {
+            "0".to_string()
+        } else if x < 10.0 {
+            format!("{x:.3}")
+        } else if x < 1e5 {
+            format!("{x:.0}")
+        } else {
+            format!("{x:.3e}")
+        }
+    };
+    let _ = writeln!(
+        out,
+        "\nLight sources × cathodes for {}: {} photons at the cathode per pulse, gain {:.3e}, load {}",
+        d.name,
+        count(photons),
+        chain.gain,
+        format_eng(
+            d.load_resistance
+                .get::<uom::si::electrical_resistance::ohm>(),
+            "Ω"
+        )
+    );
+    let _ = writeln!(
+        out,
+        "First cathode: the design's own ({}). Cells: QE / photoelectrons per pulse / peak at the load / verdict.\n",
+        cathodes[0].label
+    );
+    for row in &rows {
+        let _ = writeln!(out, "{:.1} nm {}", row.nm, row.label);
+        let best = row
+            .cells
+            .iter()
+            .map(|c| c.photoelectrons)
+            .fold(0.0f64, f64::max);
+        for c in &row.cells {
+            let rel = if best > 0.0 {
+                c.photoelectrons / best
+            } else {
+                0.0
+            };
+            let _ = writeln!(
+                out,
+                "  {:<26} QE {:>6.2} %  {:>10} pe  {:>10}  {:>5.0} % of best  {}",
+                c.cathode,
+                c.qe * 100.0,
+                count(c.photoelectrons),
+                format_eng(c.peak_volts, "V"),
+                rel * 100.0,
+                c.verdict.map_or("no readout given", |v| v.as_str())
+            );
+        }
+    }
+    let _ = writeln!(out, "\n{}", dynode::safety::CLOSING_CAUTION);
+    print!("{out}");
+    ExitCode::from(Exit::Ok as u8)
 }

@@ -413,3 +413,63 @@ fn html_report_renders_in_headless_chromium() {
         assert!(w > 300 && h > 150, "a figure has size {w}×{h}");
     }
 }
+
+#[test]
+fn cathode_catalogue_lists_every_builtin_with_provenance() {
+    let out = dynode().arg("cathodes").output().unwrap();
+    assert!(out.status.success());
+    let text = String::from_utf8(out.stdout).unwrap();
+    let n = dynode::cathode::builtin_cathodes().len();
+    assert!(n >= 10, "ten built-in cathode classes ({n})");
+    for c in dynode::cathode::builtin_cathodes() {
+        assert!(text.contains(&c.key), "{} listed", c.key);
+    }
+    // Provenance is stated for every curve (they are typical curves from memory, not data).
+    assert!(text.matches("from memory").count() >= n);
+    assert!(
+        text.contains(" nm") && text.contains(" %"),
+        "peak and QE with units"
+    );
+}
+
+#[test]
+fn light_match_compares_six_or_more_lines_against_every_cathode() {
+    let out = dynode()
+        .arg("light-match")
+        .arg(crate_path("designs/laser-timing.ron"))
+        .output()
+        .unwrap();
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    let text = String::from_utf8(out.stdout).unwrap();
+    let lines: Vec<&str> = text
+        .lines()
+        .filter(|l| l.contains(" nm ") && !l.starts_with(' '))
+        .collect();
+    assert!(
+        lines.len() >= 6,
+        "at least six wavelengths: {}",
+        lines.len()
+    );
+    // He-Ne says which medium its wavelength is given in (CIPM 2007: 632.9908 nm in vacuum).
+    assert!(text.contains("632.8 nm") && text.contains("in air"));
+    let cells = text.lines().filter(|l| l.contains("% of best")).count();
+    assert!(cells >= lines.len() * dynode::cathode::builtin_cathodes().len());
+    assert!(text.contains("HIGH VOLTAGE"), "the caution is printed");
+    // A custom list and a bad one.
+    let out = dynode()
+        .args(["light-match", "--lines", "405,520,650,780,850,905"])
+        .arg(crate_path("designs/laser-timing.ron"))
+        .output()
+        .unwrap();
+    assert!(out.status.success());
+    let out = dynode()
+        .args(["light-match", "--lines", "-5"])
+        .arg(crate_path("designs/laser-timing.ron"))
+        .output()
+        .unwrap();
+    assert_eq!(out.status.code(), Some(2));
+}

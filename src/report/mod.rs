@@ -44,6 +44,16 @@ pub fn render(a: &Analysis, format: Format) -> String {
 /// The HTML and Markdown renderers show each one; a capability adds its section here.
 pub fn extra_sections(a: &Analysis) -> Vec<(String, String)> {
     let mut v = vec![(supply::TITLE.to_string(), supply::body(a))];
+    if a.signal.is_some() {
+        let mut s = String::new();
+        signal::render_text(&mut s, a);
+        if !s.trim().is_empty() {
+            v.push((
+                "Signal budget: light to the pulse at the load".to_string(),
+                s,
+            ));
+        }
+    }
     if let Some(t) = train::section_text(a) {
         v.push(("Pulse train".to_string(), t));
     }
