@@ -517,6 +517,17 @@ fn render<DB: DrawingBackend>(root: DrawingArea<DB, Shift>, fig: &Figure) -> Res
     if let Some((lo, hi)) = fig.y_limits {
         yr = (lo, hi);
     }
+    // A log axis over less than about a decade and a half would carry no tick labels (they
+    // sit at powers of ten): draw such a range linearly instead.
+    let narrow = |r: (f64, f64), scale: Scale| scale == Scale::Log && r.1 / r.0 < 30.0;
+    let mut fig = fig.clone();
+    if narrow(yr, fig.y.scale) {
+        fig.y.scale = Scale::Linear;
+    }
+    if narrow(xr, fig.x.scale) {
+        fig.x.scale = Scale::Linear;
+    }
+    let fig = &fig;
     match (fig.x.scale, fig.y.scale) {
         (Scale::Linear, Scale::Linear) => draw(&root, fig, xr.0..xr.1, yr.0..yr.1, xr, yr),
         (Scale::Log, Scale::Linear) => {

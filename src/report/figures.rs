@@ -148,9 +148,130 @@ pub fn train_droop(t: &crate::pulsetrain::TrainAnalysis) -> Option<Figure> {
     Some(f)
 }
 
+/// The computed pulse at the load with its 10 % and 90 % levels and the peak.
+pub fn pulse(s: &crate::signal::SignalBudget) -> Figure {
+    let w = &s.waveform;
+    let p = &s.pulse;
+    let mut f = Figure::new(
+        "pulse",
+        "Pulse at the load (computed waveform)",
+        Axis::linear("time", Some("s")),
+        Axis::linear("signal at the load (magnitude)", Some("V")),
+    )
+    .with(
+        "computed pulse",
+        Style::Line,
+        w.t.iter().copied().zip(w.v.iter().copied()).collect(),
+    );
+    f.markers.push(Marker::Y(0.9 * p.peak, "90 %".to_string()));
+    f.markers.push(Marker::Y(0.1 * p.peak, "10 %".to_string()));
+    if let Some(r) = p.rise {
+        f.title = format!(
+            "Pulse at the load: peak {}, 10–90 % rise {}",
+            crate::units::format_eng(p.peak, "V"),
+            crate::units::format_eng(r, "s")
+        );
+    }
+    f.legend = crate::plot::Legend::UpperRight;
+    f
+}
+
+/// The cathode's quantum efficiency with the light's spectrum marked.
+pub fn cathode(a: &Analysis) -> Figure {
+    let c = &a.design.signal.cathode;
+    let pts: Vec<(f64, f64)> = (150..=1200)
+        .step_by(2)
+        .map(|nm| (f64::from(nm), c.qe(f64::from(nm)) * 100.0))
+        .collect();
+    let mut f = Figure::new(
+        "cathode",
+        &format!("Cathode response: {}", c.label),
+        Axis::linear("wavelength (nm)", None),
+        Axis::linear("quantum efficiency (%)", None),
+    )
+    .with("quantum efficiency, window included", Style::Line, pts);
+    if let Some(l) = &a.design.signal.light {
+        match &l.spectrum {
+            crate::light::Spectrum::Line(nm) => {
+                f.markers.push(Marker::X(*nm, format!("{nm:.0} nm source")));
+            }
+            crate::light::Spectrum::Band { centre, fwhm } => {
+                f.markers
+                    .push(Marker::X(*centre, format!("{centre:.0} nm source centre")));
+                f.markers
+                    .push(Marker::X(centre - fwhm / 2.0, "FWHM".to_string()));
+                f.markers
+                    .push(Marker::X(centre + fwhm / 2.0, String::new()));
+            }
+            crate::light::Spectrum::Table(_) => {
+                let wsum: Vec<(f64, f64)> = l.spectrum.weights();
+                let peak = wsum.iter().map(|p| p.1).fold(0.0f64, f64::max);
+                if peak > 0.0 {
+                    let top = c.peak().1 * 100.0;
+                    f = f.with(
+                        "source spectrum (scaled to the QE peak)",
+                        Style::Line,
+                        wsum.iter().map(|(nm, w)| (*nm, w / peak * top)).collect(),
+                    );
+                }
+            }
+        }
+    }
+    f.legend = crate::plot::Legend::UpperRight;
+    f
+}
+
+/// Peak at the load and displayed rise against load resistance, from the load sweep: two
+/// figures, each with its own unit.
+pub fn load_sweep(s: &crate::signal::SignalBudget) -> Vec<Figure> {
+    let rows = &s.sweep.rows;
+    let window = |f: &mut Figure| {
+        if let Some((lo, hi)) = s.sweep.window {
+            f.markers.push(Marker::X(lo, "window start".to_string()));
+            if hi > lo * 1.01 {
+                f.markers.push(Marker::X(hi, "window end".to_string()));
+            }
+        }
+    };
+    let mut peak = Figure::new(
+        "load-sweep-peak",
+        "Load sweep: pulse peak against the load resistor",
+        Axis::log("load resistance", Some("Ω")),
+        Axis::log("peak at the load", Some("V")),
+    )
+    .with(
+        "peak at the load",
+        Style::Line,
+        rows.iter().map(|r| (r.load, r.pulse.peak)).collect(),
+    );
+    window(&mut peak);
+    let mut rise = Figure::new(
+        "load-sweep-rise",
+        "Load sweep: displayed 10–90 % rise against the load resistor",
+        Axis::log("load resistance", Some("Ω")),
+        Axis::log("displayed 10–90 % rise", Some("s")),
+    )
+    .with(
+        "displayed rise (load, cable, tube and instrument)",
+        Style::Line,
+        rows.iter()
+            .filter_map(|r| r.displayed_rise.or(r.pulse.rise).map(|t| (r.load, t)))
+            .collect(),
+    );
+    window(&mut rise);
+    vec![peak, rise]
+}
+
 /// Every figure of a report, in order.
 pub fn all(a: &Analysis) -> Vec<Figure> {
     let mut v = vec![gaps(a), gain_curve(a), linearity(a)];
+    if let Some(s) = &a.signal {
+        v.push(pulse(s));
+        v.push(cathode(a));
+        if s.sweep.rows.len() > 1 {
+            v.extend(load_sweep(s));
+        }
+    }
     if let Some(t) = &a.train {
         v.push(train_gain(t));
         v.extend(train_droop(t));
