@@ -246,3 +246,34 @@ fn check_shows_the_warnings_too() {
         "{out}"
     );
 }
+
+#[test]
+fn steady_light_that_would_saturate_the_tube() {
+    // Photons per second × QE × e × gain (physics brief §7): 1 µW of room-level light at
+    // 450 nm on a bialkali cathode asks for far more than the tube's average-current rating.
+    let demo =
+        std::fs::read_to_string(crate::common::crate_path("designs/rooftop-paddle.ron")).unwrap();
+    let line = demo
+        .lines()
+        .find(|l| l.trim_start().starts_with("background:"))
+        .expect("the demo has a background line");
+    let text = demo.replace(
+        line,
+        r#"        background: Some(Power(power: "1 uW", wavelength: "450 nm")),"#,
+    );
+    let d = design::parse_str(&text, "bright.ron").unwrap();
+    let a = analysis::analyse(&d).unwrap();
+    let w = a
+        .warnings
+        .iter()
+        .find(|w| w.contains("Steady light on this energised tube"))
+        .expect("the saturation warning is raised");
+    assert!(w.contains("× its limit"));
+    for format in report::Format::value_variants() {
+        let out = report::render(&a, *format);
+        assert!(
+            collapse(&out).contains("Steady light on this energised tube"),
+            "{format:?} shows it"
+        );
+    }
+}
