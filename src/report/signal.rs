@@ -37,6 +37,23 @@ fn sci(x: f64) -> String {
     }
 }
 
+/// A ratio as a share that stays readable when it is tiny or huge: "0.012 %", "3.4e-5 %", "250×".
+fn share(x: f64) -> String {
+    if !x.is_finite() {
+        "n/a".to_string()
+    } else if x >= 10.0 {
+        format!("{x:.0}×")
+    } else if x >= 1.0 {
+        format!("{x:.2}×")
+    } else if x >= 1e-4 {
+        format!("{:.3} %", x * 100.0)
+    } else if x > 0.0 {
+        format!("{:.1e} %", x * 100.0)
+    } else {
+        "0 %".to_string()
+    }
+}
+
 /// Append the signal sections to a text report.
 pub fn render_text(out: &mut String, a: &Analysis) {
     let Some(s) = &a.signal else {
@@ -253,15 +270,16 @@ pub fn render_text(out: &mut String, a: &Analysis) {
         if let (Some(avg), Some(l)) = (s.average_anode_amps, l) {
             let _ = writeln!(
                 out,
-                "  pulses at {} average {} of anode current ({:.2} % of the divider current, {:.2} % of the tube's limit)",
+                "  pulses at {} average {} of anode current ({} of the divider current, {} of the tube's limit)",
                 eng(l.rate.unwrap_or(0.0), "Hz"),
                 eng(avg, "A"),
-                avg / a.quiescent_amps * 100.0,
-                avg / d
-                    .tube
-                    .max_anode_current
-                    .get::<uom::si::electric_current::ampere>()
-                    * 100.0
+                share(avg / a.quiescent_amps),
+                share(
+                    avg / d
+                        .tube
+                        .max_anode_current
+                        .get::<uom::si::electric_current::ampere>()
+                )
             );
         }
         if let Some(b) = &s.background {
@@ -269,13 +287,13 @@ pub fn render_text(out: &mut String, a: &Analysis) {
                 out,
                 "  ",
                 &format!(
-                    "steady light of {} photons/s at {:.0} nm on the cathode gives {} of cathode current; on this energised tube it would draw {} at the anode — {:.2}× the divider current and {:.2}× its limit",
+                    "steady light of {} photons/s at {:.0} nm on the cathode gives {} of cathode current; on this energised tube it would draw {} at the anode — {} of the divider current and {} of its limit",
                     sci(b.photons_per_second),
                     b.nm,
                     eng(b.cathode_amps, "A"),
                     eng(b.anode_amps, "A"),
-                    b.over_divider,
-                    b.over_rating
+                    share(b.over_divider),
+                    share(b.over_rating)
                 ),
             );
         }
