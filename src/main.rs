@@ -256,6 +256,20 @@ fn fail(msg: impl std::fmt::Display, code: Exit) -> ExitCode {
     ExitCode::from(code as u8)
 }
 
+/// `--pulses` must be a count from 1 to the largest train.
+fn check_pulses(pulses: Option<usize>) -> Result<(), ExitCode> {
+    if pulses.is_some_and(|p| p == 0 || p > dynode::train::MAX_PULSES) {
+        return Err(fail(
+            format!(
+                "--pulses: expected a count from 1 to {}",
+                dynode::train::MAX_PULSES
+            ),
+            Exit::BadInput,
+        ));
+    }
+    Ok(())
+}
+
 fn analysis_exit(e: &AnalysisError) -> Exit {
     match e {
         AnalysisError::Tube { .. } | AnalysisError::Operating { .. } => Exit::BadInput,
@@ -686,14 +700,8 @@ fn run() -> ExitCode {
                     Exit::BadInput,
                 );
             }
-            if pulses.is_some_and(|p| p == 0 || p > dynode::train::MAX_PULSES) {
-                return fail(
-                    format!(
-                        "--pulses: expected a count from 1 to {}",
-                        dynode::train::MAX_PULSES
-                    ),
-                    Exit::BadInput,
-                );
+            if let Err(code) = check_pulses(pulses) {
+                return code;
             }
             if let Some(p) = &out.output
                 && let Err(e) = output::check_target(p, &[design.as_path()], out.force)
@@ -770,14 +778,8 @@ fn run() -> ExitCode {
                         Exit::BadInput,
                     );
                 };
-                if pulses.is_some_and(|p| p == 0 || p > dynode::train::MAX_PULSES) {
-                    return fail(
-                        format!(
-                            "--pulses: expected a count from 1 to {}",
-                            dynode::train::MAX_PULSES
-                        ),
-                        Exit::BadInput,
-                    );
+                if let Err(code) = check_pulses(pulses) {
+                    return code;
                 }
                 let pattern = pulses.map_or(spec.pattern, |p| spec.pattern.with_count(p));
                 let base = dynode::transient::Base::from_design(&d, a.network.tube.clone());
