@@ -256,6 +256,16 @@ fn fail(msg: impl std::fmt::Display, code: Exit) -> ExitCode {
     ExitCode::from(code as u8)
 }
 
+/// Read and check a design, and check that the output target may be written, before any
+/// work is done (so that a refusal writes nothing).
+fn load_for_output(design: &Path, out: &OutputArgs) -> Result<design::Design, ExitCode> {
+    let d = design::load(design).map_err(|e| fail(e, Exit::BadInput))?;
+    if let Some(p) = &out.output {
+        output::check_target(p, &[design], out.force).map_err(|e| fail(e, Exit::BadInput))?;
+    }
+    Ok(d)
+}
+
 /// `--pulses` must be a count from 1 to the largest train.
 fn check_pulses(pulses: Option<usize>) -> Result<(), ExitCode> {
     if pulses.is_some_and(|p| p == 0 || p > dynode::train::MAX_PULSES) {
@@ -554,15 +564,10 @@ fn run() -> ExitCode {
             plots,
             out,
         } => {
-            let d = match design::load(&design) {
+            let d = match load_for_output(&design, &out) {
                 Ok(d) => d,
-                Err(e) => return fail(e, Exit::BadInput),
+                Err(code) => return code,
             };
-            if let Some(p) = &out.output
-                && let Err(e) = output::check_target(p, &[design.as_path()], out.force)
-            {
-                return fail(e, Exit::BadInput);
-            }
             if vary.len() > 2 {
                 return fail("--vary: give one or two parameters", Exit::BadInput);
             }
@@ -622,15 +627,10 @@ fn run() -> ExitCode {
             plots,
             out,
         } => {
-            let d = match design::load(&design) {
+            let d = match load_for_output(&design, &out) {
                 Ok(d) => d,
-                Err(e) => return fail(e, Exit::BadInput),
+                Err(code) => return code,
             };
-            if let Some(p) = &out.output
-                && let Err(e) = output::check_target(p, &[design.as_path()], out.force)
-            {
-                return fail(e, Exit::BadInput);
-            }
             let a = match analysis::analyse(&d) {
                 Ok(a) => a,
                 Err(e) => return fail(&e, analysis_exit(&e)),
@@ -740,15 +740,10 @@ fn run() -> ExitCode {
             pulses,
             out,
         } => {
-            let d = match design::load(&design) {
+            let d = match load_for_output(&design, &out) {
                 Ok(d) => d,
-                Err(e) => return fail(e, Exit::BadInput),
+                Err(code) => return code,
             };
-            if let Some(p) = &out.output
-                && let Err(e) = output::check_target(p, &[design.as_path()], out.force)
-            {
-                return fail(e, Exit::BadInput);
-            }
             let anode = match &anode_current {
                 None => d.anode_current,
                 Some(t) => match units::parse(t, Kind::Current) {

@@ -1431,23 +1431,7 @@ pub fn exact(value: f64, unit: &str) -> String {
     if value == 0.0 || !value.is_finite() {
         return format!("0 {unit}");
     }
-    const PREFIXES: [(f64, &str); 9] = [
-        (1e12, "T"),
-        (1e9, "G"),
-        (1e6, "M"),
-        (1e3, "k"),
-        (1.0, ""),
-        (1e-3, "m"),
-        (1e-6, "u"),
-        (1e-9, "n"),
-        (1e-12, "p"),
-    ];
-    let a = value.abs();
-    let (scale, p) = PREFIXES
-        .iter()
-        .copied()
-        .find(|(s, _)| a >= *s * (1.0 - 1e-9))
-        .unwrap_or((1e-15, "f"));
+    let (scale, p) = crate::units::engineering_prefix(value.abs(), "u", 1.0 - 1e-9);
     let x = value / scale;
     // Six significant digits, trailing zeros dropped.
     let int_digits = (x.abs().log10().floor() as i32 + 1).max(1) as usize;

@@ -349,6 +349,27 @@ fn finite(v: f64, text: &str, kind: Kind) -> Result<f64, QuantityError> {
     }
 }
 
+/// The engineering prefix for a magnitude `a`: (scale, symbol), from T down to f. A value is
+/// given a prefix once it reaches `slack` × the prefix's scale (so that rounding to three digits
+/// does not print "1000 V"); `micro` is the symbol used for 1e-6 ("µ" for reports, "u" for text
+/// a design file reads back).
+pub fn engineering_prefix(a: f64, micro: &'static str, slack: f64) -> (f64, &'static str) {
+    [
+        (1e12, "T"),
+        (1e9, "G"),
+        (1e6, "M"),
+        (1e3, "k"),
+        (1.0, ""),
+        (1e-3, "m"),
+        (1e-6, micro),
+        (1e-9, "n"),
+        (1e-12, "p"),
+    ]
+    .into_iter()
+    .find(|(s, _)| a >= *s * slack)
+    .unwrap_or((1e-15, "f"))
+}
+
 /// Format a value in SI base units with an engineering prefix and the unit symbol,
 /// three significant digits: `format_eng(4.7e-9, "F")` gives `"4.70 nF"`.
 pub fn format_eng(value: f64, unit: &str) -> String {
@@ -358,23 +379,7 @@ pub fn format_eng(value: f64, unit: &str) -> String {
     if value == 0.0 {
         return format!("0 {unit}");
     }
-    const PREFIXES: [(f64, &str); 9] = [
-        (1e12, "T"),
-        (1e9, "G"),
-        (1e6, "M"),
-        (1e3, "k"),
-        (1.0, ""),
-        (1e-3, "m"),
-        (1e-6, "µ"),
-        (1e-9, "n"),
-        (1e-12, "p"),
-    ];
-    let a = value.abs();
-    let (scale, p) = PREFIXES
-        .iter()
-        .copied()
-        .find(|(s, _)| a >= *s * 0.9995)
-        .unwrap_or((1e-15, "f"));
+    let (scale, p) = engineering_prefix(value.abs(), "µ", 0.9995);
     let x = value / scale;
     let digits = if x.abs() >= 99.95 {
         0
