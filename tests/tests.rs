@@ -11,6 +11,8 @@ mod core;
 mod edge_cases;
 /// Shared check for non-finite figures in reports (also used by the fuzz target).
 mod finite;
+/// Golden reports of every demo, so a restructuring cannot move a figure silently.
+mod golden;
 /// Hostile input as properties: arbitrary bytes, byte- and value-mutated designs.
 mod hostile;
 /// The DC operating point against ngspice on the same netlist.
