@@ -36,6 +36,17 @@ pub enum AnalysisError {
         /// Cause (always [`SolveError::Unreachable`]).
         source: SolveError,
     },
+    /// Two blocks of the design state the same thing differently (bad input): the field
+    /// where the second statement is written is named.
+    #[error("{file}: {field}: {message}")]
+    Contradiction {
+        /// Design file.
+        file: String,
+        /// The field, e.g. `train.size`.
+        field: String,
+        /// What contradicts what.
+        message: String,
+    },
     /// A solve failed.
     #[error("{file}: {source}")]
     Solve {
@@ -125,6 +136,71 @@ impl Analysis {
     }
 }
 
+/// The design's pulse stream as one figure: what the train and the light blocks (which
+/// describe the same pulses, see [`crate::design`]) give per pulse and on average.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct PulseStream {
+    /// Cathode charge per pulse, coulombs.
+    pub cathode_charge: f64,
+    /// Average rate, Hz.
+    pub rate: f64,
+    /// Average anode current at the small-signal gain, amperes.
+    pub average_anode_amps: f64,
+    /// Which block the figure comes from.
+    pub from: &'static str,
+}
+
+/// The pulse stream of a design with a rate, from the train block (which sets the rate) or
+/// else the light block; `None` without a rate. A train size that contradicts the light's
+/// photoelectrons by more than 10 % is refused where the train's size is written.
+fn pulse_stream(design: &Design, gain: f64) -> Result<Option<PulseStream>, AnalysisError> {
+    use crate::cathode::ELEMENTARY_CHARGE;
+    let light = design.signal.light.as_ref();
+    let light_charge = light.map(|l| {
+        crate::light::convert(
+            &l.spectrum,
+            l.photons,
+            l.coupling,
+            l.filter.as_ref(),
+            &design.signal.cathode,
+        )
+        .emitted
+            * ELEMENTARY_CHARGE
+    });
+    if let Some(t) = &design.train {
+        let qk = crate::pulsetrain::cathode_charge(t.size, &t.shape, gain);
+        if let Some(ql) = light_charge.filter(|q| *q > 0.0)
+            && (qk / ql - 1.0).abs() > 0.10
+        {
+            return Err(AnalysisError::Contradiction {
+                file: design.source.clone(),
+                field: "train.size".to_string(),
+                message: format!(
+                    "{} of anode charge per pulse, while the light block gives {} ({} photoelectrons at the cathode); they are the same pulses: write FromLight, or make the light and the size agree within 10 %",
+                    format_eng(qk * gain, "C"),
+                    format_eng(ql * gain, "C"),
+                    format_eng(ql / ELEMENTARY_CHARGE, "")
+                ),
+            });
+        }
+        return Ok(t.pattern.average_rate().map(|rate| PulseStream {
+            cathode_charge: qk,
+            rate,
+            average_anode_amps: qk * gain * rate,
+            from: "the train block",
+        }));
+    }
+    Ok(light
+        .and_then(|l| l.rate)
+        .zip(light_charge)
+        .map(|(rate, q)| PulseStream {
+            cathode_charge: q,
+            rate,
+            average_anode_amps: q * gain * rate,
+            from: "the light block",
+        }))
+}
+
 /// Rated voltage of a resistor: `min(sqrt(P R), U_max)` (IEC 60115-1, from memory).
 pub fn rated_voltage(power: f64, resistance: f64, working: f64) -> f64 {
     (power * resistance).sqrt().min(working)
@@ -154,21 +230,30 @@ pub fn analyse_with(
     let (quiescent_amps, quiescent_volts) = network.quiescent();
     let small_signal_gain = network.small_signal_gain();
     let sensitivity = network.gain_sensitivity();
-    let op = network
-        .solve_anode(design.anode_current, &mut ws)
-        .map_err(|source| match source {
-            SolveError::Unreachable { .. } => AnalysisError::Operating {
-                file: file.clone(),
-                field: if design.operating_assumed {
-                    "operating.anode_current (not given: 10 % of tube.limits.max_anode_current)"
-                        .to_string()
-                } else {
-                    "operating.anode_current".to_string()
-                },
-                source,
+    let stream = pulse_stream(design, small_signal_gain)?;
+    // One average current: the light sets the cathode's average current (pulses × rate), so
+    // the operating point is solved at that cathode current, and the anode current and gain
+    // there follow self-consistently; a stated operating current overrides it (and is warned
+    // about below when it disagrees).
+    let solved = match stream {
+        Some(st) if design.operating_assumed && st.rate * st.cathode_charge > 0.0 => {
+            network.solve_raw(st.rate * st.cathode_charge, None, &mut ws)
+        }
+        _ => network.solve_anode(design.anode_current, &mut ws),
+    };
+    let op = solved.map_err(|source| match source {
+        SolveError::Unreachable { .. } => AnalysisError::Operating {
+            file: file.clone(),
+            field: if design.operating_assumed {
+                "operating.anode_current (not given: 10 % of tube.limits.max_anode_current)"
+                    .to_string()
+            } else {
+                "operating.anode_current".to_string()
             },
-            other => solve_err(other),
-        })?;
+            source,
+        },
+        other => solve_err(other),
+    })?;
     let linearity = linearity::trace(&network, &mut ws).map_err(solve_err)?;
     let safety = safety::assess(design, &op);
 
@@ -234,6 +319,17 @@ pub fn analyse_with(
         .collect();
 
     let mut warnings = Vec::new();
+    if let Some(st) = stream.filter(|_| !design.operating_assumed) {
+        let stated = design.anode_current.get::<ampere>();
+        if (stated / st.average_anode_amps - 1.0).abs() > 0.10 {
+            warnings.push(format!(
+                "operating.anode_current is {}, but the pulses of {} average {} at the anode: the DC figures are made at the stated current; leave operating out to make them at the pulses' average.",
+                format_eng(stated, "A"),
+                st.from,
+                format_eng(st.average_anode_amps, "A")
+            ));
+        }
+    }
     for g in &gaps {
         if g.over_gap_limit {
             warnings.push(format!(
@@ -372,6 +468,17 @@ pub fn analyse_with(
             d * 100.0,
             v
         ));
+    }
+    match stream {
+        Some(st) if design.operating_assumed => assumptions.push(format!(
+            "operating point at the pulses' average: {} of cathode current ({} photoelectrons a pulse at {} on average, from {}); the anode current there is {} (give operating.anode_current to choose another)",
+            format_eng(st.rate * st.cathode_charge, "A"),
+            format!("{:.0}", st.cathode_charge / crate::cathode::ELEMENTARY_CHARGE),
+            format_eng(st.rate, "Hz"),
+            st.from,
+            format_eng(op.anode_amps(), "A")
+        )),
+        _ => {}
     }
     if design.resistors_assumed {
         assumptions.push(

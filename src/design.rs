@@ -336,8 +336,12 @@ pub struct RawDivider {
 #[derive(Debug, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub struct RawLoad {
-    /// Load resistance at the instrument.
+    /// Load resistor at the instrument end of the cable (a termination), or `"open"`.
     pub resistance: Value,
+    /// Load resistor mounted in the base, from the signal node to ground (back-termination,
+    /// or the whole load into a high-impedance input).
+    #[serde(default)]
+    pub at_base: Option<Value>,
     /// Capacitance at the anode node.
     #[serde(default)]
     pub capacitance: Option<Value>,
@@ -485,8 +489,10 @@ pub struct Design {
     pub stray: Capacitance,
     /// Shield resistor.
     pub shield_resistor: Option<ElectricalResistance>,
-    /// Load resistance.
-    pub load_resistance: ElectricalResistance,
+    /// Load resistor at the instrument end of the cable (the termination), `None` when open.
+    pub load_resistance: Option<ElectricalResistance>,
+    /// Load resistor at the base, from the signal node to ground, if fitted.
+    pub base_resistance: Option<ElectricalResistance>,
     /// Anode-node capacitance.
     pub load_capacitance: Capacitance,
     /// Anode resistor to the return rail.
@@ -523,12 +529,27 @@ impl Design {
         self.supply_volts.get::<volt>().abs()
     }
 
-    /// Resistance from the anode to the return rail at DC.
+    /// Resistance from the anode to the return rail at DC: the anode resistor, or else every
+    /// load on the signal path in parallel (the resistor at the base, the termination at the
+    /// instrument end and the instrument's own input resistance, the cable being a wire at DC).
     pub fn anode_dc_resistance(&self) -> ElectricalResistance {
-        match (self.anode_resistor, self.coupling) {
-            (Some(r), _) => r,
-            (None, _) => self.load_resistance,
+        match self.anode_resistor {
+            Some(r) => r,
+            None => ElectricalResistance::new::<ohm>(self.signal_load_resistance()),
         }
+    }
+
+    /// The loads of the signal path in parallel, ohms: resistor at the base, termination at
+    /// the instrument end, instrument input. Finite whenever the design checks (a DC-coupled
+    /// anode must have one of them).
+    pub fn signal_load_resistance(&self) -> f64 {
+        let g = |r: Option<ElectricalResistance>| r.map_or(0.0, |r| 1.0 / r.get::<ohm>());
+        let input = self
+            .signal
+            .readout
+            .as_ref()
+            .map_or(0.0, |r| 1.0 / r.input_resistance);
+        1.0 / (g(self.base_resistance) + g(self.load_resistance) + input)
     }
 
     /// The label of gap `i` (0-based): "K–D1", "D1–D2", …, and "Dn–GND" or "Dn–HV" for the last.
@@ -1447,7 +1468,14 @@ fn check(raw: RawDesign, file: &str) -> Result<Design, DesignError> {
 
     // Load
     let l = &raw.load;
-    let load_resistance = c.ranged("load.resistance", &l.resistance, Kind::Resistance, 1.0, 1e9)?;
+    let load_resistance = match &l.resistance {
+        Value::Text(t) if t.trim().eq_ignore_ascii_case("open") => None,
+        v => Some(c.ranged("load.resistance", v, Kind::Resistance, 1.0, 1e9)?),
+    };
+    let base_resistance = match &l.at_base {
+        None => None,
+        Some(v) => Some(c.ranged("load.at_base", v, Kind::Resistance, 1.0, 1e9)?),
+    };
     let load_capacitance = match &l.capacitance {
         None => 10e-12,
         Some(v) => c.ranged("load.capacitance", v, Kind::Capacitance, 1e-15, 1e-6)?,
@@ -1581,7 +1609,34 @@ fn check(raw: RawDesign, file: &str) -> Result<Design, DesignError> {
         ));
     }
 
-    let signal = check_signal(&c, &raw)?;
+    let mut signal = check_signal(&c, &raw)?;
+    let train = match &raw.train {
+        None => None,
+        Some(t) => {
+            let npe = signal.light.as_ref().map(|l| {
+                crate::light::convert(
+                    &l.spectrum,
+                    l.photons,
+                    l.coupling,
+                    l.filter.as_ref(),
+                    &signal.cathode,
+                )
+                .emitted
+            });
+            Some(crate::train::check(t, &c, npe)?)
+        }
+    };
+    one_pulse_stream(&c, train.as_ref(), &mut signal)?;
+    if anode_resistor.is_none()
+        && load_resistance.is_none()
+        && base_resistance.is_none()
+        && signal.readout.is_none()
+    {
+        return Err(c.fail(
+            "load.resistance",
+            "\"open\" leaves the anode with no DC return: fit a resistor at the base (load.at_base), a termination, or describe the instrument's input in a readout block",
+        ));
+    }
 
     Ok(Design {
         source: file.to_string(),
@@ -1596,7 +1651,8 @@ fn check(raw: RawDesign, file: &str) -> Result<Design, DesignError> {
         decoupling,
         stray: Capacitance::new::<farad>(stray),
         shield_resistor: shield_resistor.map(ElectricalResistance::new::<ohm>),
-        load_resistance: ElectricalResistance::new::<ohm>(load_resistance),
+        load_resistance: load_resistance.map(ElectricalResistance::new::<ohm>),
+        base_resistance: base_resistance.map(ElectricalResistance::new::<ohm>),
         load_capacitance: Capacitance::new::<farad>(load_capacitance),
         anode_resistor: anode_resistor.map(ElectricalResistance::new::<ohm>),
         coupling: coupling.map(|cc| {
@@ -1614,12 +1670,41 @@ fn check(raw: RawDesign, file: &str) -> Result<Design, DesignError> {
         series_parts,
         supply_quality,
         supply_resistance: supply_resistance.map(ElectricalResistance::new::<ohm>),
-        train: match &raw.train {
-            None => None,
-            Some(t) => Some(crate::train::check(t, &c)?),
-        },
+        train,
         signal,
     })
+}
+
+/// The light block and the train block describe the same pulses: the train's pattern sets the
+/// average rate, the light's `rate` may restate it (within 1 %) or be left out (it is then
+/// taken from the train), and a contradiction is refused where the light's rate is written.
+fn one_pulse_stream(
+    c: &Checker,
+    train: Option<&crate::train::TrainSpec>,
+    signal: &mut SignalSpec,
+) -> Result<(), DesignError> {
+    let (Some(t), Some(light)) = (train, signal.light.as_mut()) else {
+        return Ok(());
+    };
+    let Some(avg) = t.pattern.average_rate() else {
+        return Ok(());
+    };
+    match light.rate {
+        None => light.rate = Some(avg),
+        Some(r) if (r / avg - 1.0).abs() > 0.01 => {
+            return Err(c.fail(
+                "light.rate",
+                format!(
+                    "{} contradicts the train block, whose pattern ({}) averages {}; the light and the train are the same pulses: leave light.rate out (it is taken from the train) or make the two agree",
+                    units::format_eng(r, "Hz"),
+                    t.pattern.describe(),
+                    units::format_eng(avg, "Hz")
+                ),
+            ));
+        }
+        Some(_) => {}
+    }
+    Ok(())
 }
 
 /// Gap voltages with no tube current: resistors share what the Zeners leave, in proportion.

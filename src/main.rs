@@ -282,7 +282,9 @@ fn check_pulses(pulses: Option<usize>) -> Result<(), ExitCode> {
 
 fn analysis_exit(e: &AnalysisError) -> Exit {
     match e {
-        AnalysisError::Tube { .. } | AnalysisError::Operating { .. } => Exit::BadInput,
+        AnalysisError::Tube { .. }
+        | AnalysisError::Operating { .. }
+        | AnalysisError::Contradiction { .. } => Exit::BadInput,
         AnalysisError::Solve { .. } => Exit::SolveFailed,
     }
 }
@@ -950,15 +952,11 @@ fn light_match_command(design: &Path, lines: &[f64], photons: Option<f64>) -> Ex
     };
     let _ = writeln!(
         out,
-        "\nLight sources × cathodes for {}: {} photons at the cathode per pulse, gain {:.3e}, load {}",
+        "\nLight sources × cathodes for {}: {} photons at the cathode per pulse, gain {:.3e}, signal path {}",
         d.name,
         count(photons),
         chain.gain,
-        format_eng(
-            d.load_resistance
-                .get::<uom::si::electrical_resistance::ohm>(),
-            "Ω"
-        )
+        dynode::signal::path_line(&d)
     );
     let _ = writeln!(
         out,

@@ -142,10 +142,7 @@ fn circuit(design: &Design, tube: &TubeModel, source: Source) -> String {
         }
     };
     let _ = writeln!(s, "* Supply: {} V magnitude, {:?}.", vs, design.polarity);
-    let rs = match source {
-        Source::Pwl(_) => design.supply_resistance.map(|r| r.get::<ohm>()),
-        Source::Dc(_) => None,
-    };
+    let rs = design.supply_resistance.map(|r| r.get::<ohm>());
     let (plus, minus) = match design.polarity {
         Polarity::CathodeNegative => ("0", "k"),
         Polarity::AnodePositive => ("hv", "0"),
@@ -228,21 +225,7 @@ fn circuit(design: &Design, tube: &TubeModel, source: Source) -> String {
             }
         }
     }
-    let _ = writeln!(s, "* Anode return and load.");
-    let ra = design.anode_dc_resistance().get::<ohm>();
-    let cl = design.load_capacitance.get::<farad>();
-    match design.coupling {
-        Some((cc, _)) => {
-            let _ = writeln!(s, "RA p {rtn} {}", num(ra));
-            let _ = writeln!(s, "CC p load {}", num(cc.get::<farad>()));
-            let _ = writeln!(s, "RL load 0 {}", num(design.load_resistance.get::<ohm>()));
-            let _ = writeln!(s, "CL load 0 {}", num(cl));
-        }
-        None => {
-            let _ = writeln!(s, "RA p {rtn} {}", num(ra));
-            let _ = writeln!(s, "CL p {rtn} {}", num(cl));
-        }
-    }
+    signal_path(&mut s, design, &rtn);
     let _ = writeln!(s, "* Tube: gap currents.");
     // Smooth positive part, in the cancellation-free form for negative voltages (as the solver).
     let sp = |a: &str, b: &str| {
@@ -325,6 +308,66 @@ pub fn train_points(arrivals: &[f64], shape: &Shape, cathode_charge: f64) -> Vec
     // The simulator needs strictly rising times.
     out.dedup_by(|a, b| a.0 <= b.0);
     out
+}
+
+/// The signal path as wired: anode capacitance, anode resistor and coupling capacitor when
+/// fitted, the resistor at the base, the cable as a lossless line, the termination and the
+/// instrument's input R ∥ C. Node `p` is the anode, `load` the base side after a coupling
+/// capacitor, `far` the instrument end of the cable.
+fn signal_path(s: &mut String, design: &Design, rtn: &str) {
+    let path = crate::signal::circuit(design);
+    let _ = writeln!(
+        s,
+        "* Signal path: {}.",
+        crate::signal::path_line(design).replace('\n', " ")
+    );
+    // The signal's ground: the return rail for a cathode-negative supply, else the cathode.
+    let gnd = match design.polarity {
+        Polarity::CathodeNegative => rtn.to_string(),
+        Polarity::AnodePositive => "0".to_string(),
+    };
+    let _ = writeln!(s, "CA p {rtn} {}", num(path.anode_capacitance));
+    let base = match (path.anode_resistance, path.coupling) {
+        (Some(ra), Some(cc)) => {
+            let _ = writeln!(s, "RA p {rtn} {}", num(ra));
+            let _ = writeln!(s, "CC p load {}", num(cc));
+            "load"
+        }
+        (Some(ra), None) => {
+            let _ = writeln!(s, "RA p {rtn} {}", num(ra));
+            "p"
+        }
+        (None, _) => "p",
+    };
+    if let Some(rb) = path.base_resistance {
+        let _ = writeln!(s, "RB {base} {gnd} {}", num(rb));
+    }
+    let far = match path.cable {
+        Some(l) => {
+            let _ = writeln!(
+                s,
+                "TCABLE {base} {gnd} far {gnd} Z0={} TD={}",
+                num(l.impedance),
+                num(l.delay)
+            );
+            "far"
+        }
+        None => base,
+    };
+    if path.load_resistance.is_finite() {
+        let _ = writeln!(s, "RL {far} {gnd} {}", num(path.load_resistance));
+    }
+    if path.load_capacitance > 0.0 {
+        let _ = writeln!(s, "CL {far} {gnd} {}", num(path.load_capacitance));
+    }
+    if base != "p"
+        && path.base_resistance.is_none()
+        && path.cable.is_none()
+        && !path.load_resistance.is_finite()
+    {
+        // A coupling capacitor into nothing: keep the node defined for the simulator.
+        let _ = writeln!(s, "RLEAK load {gnd} 1e15");
+    }
 }
 
 /// Ground-referenced node of the pulse signal: the load behind a coupling capacitor, else the

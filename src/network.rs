@@ -94,6 +94,8 @@ pub struct Network {
     pub supply: f64,
     /// Anode DC resistance to the return rail, ohms.
     pub anode_resistance: f64,
+    /// The supply's output resistance in series with the base, ohms (0 for an ideal supply).
+    pub supply_resistance: f64,
 }
 
 /// A solved operating point. Potentials are relative to the cathode.
@@ -111,6 +113,9 @@ pub struct OperatingPoint {
     pub cathode_amps: f64,
     /// Newton steps taken.
     pub iterations: usize,
+    /// Voltage across the base (the return rail relative to the cathode), volts: the supply
+    /// less the drop on its output resistance.
+    pub rail_volts: f64,
 }
 
 impl OperatingPoint {
@@ -186,6 +191,7 @@ impl Network {
             parts,
             supply: design.supply_magnitude(),
             anode_resistance: design.anode_dc_resistance().get::<ohm>(),
+            supply_resistance: design.supply_resistance.map_or(0.0, |r| r.get::<ohm>()),
         }
     }
 
@@ -200,7 +206,7 @@ impl Network {
             Part::Resistor(g) => (vz, r + 1.0 / g),
             Part::Zener(v, rz) => (vz + v, r + rz),
         });
-        let i = (self.supply - vz) / r;
+        let i = (self.supply - vz) / (r + self.supply_resistance);
         let volts = self
             .parts
             .iter()
@@ -371,12 +377,68 @@ impl Network {
 
     /// As [`Network::solve_cathode`] with plain amperes (hot loops).
     ///
+    /// With a supply output resistance `R_s` the voltage across the base is `V_s − R_s I_s`,
+    /// where `I_s` is the supply current the base draws at that voltage: a secant iteration on
+    /// the rail voltage, each step a solve with the rail held (the map is close to linear, the
+    /// divider being nearly ohmic, so two or three steps reach 1e-12 of the supply).
+    pub fn solve_raw(
+        &self,
+        ik: f64,
+        start: Option<&OperatingPoint>,
+        ws: &mut Workspace,
+    ) -> Result<OperatingPoint, SolveError> {
+        if self.supply_resistance <= 0.0 {
+            return self.solve_fixed_rail(ik, start, ws);
+        }
+        let mut inner = self.clone();
+        inner.supply_resistance = 0.0;
+        // Residual of a rail voltage: how far the drop it implies misses it.
+        let mut residual = |rail: f64, start: Option<&OperatingPoint>, ws: &mut Workspace| {
+            inner.supply = rail;
+            let op = inner.solve_fixed_rail(ik, start, ws)?;
+            let miss = rail - (self.supply - self.supply_resistance * op.supply_amps());
+            Ok::<_, SolveError>((miss, op))
+        };
+        let mut a = start.map_or(
+            self.supply - self.supply_resistance * self.quiescent().0,
+            |s| s.rail_volts,
+        );
+        let (mut fa, mut op) = residual(a, start, ws)?;
+        let mut b = a - fa;
+        for _ in 0..60 {
+            if fa.abs() <= 1e-12 * self.supply {
+                break;
+            }
+            let (fb, next) = residual(b, Some(&op), ws)?;
+            op = next;
+            let slope = (fb - fa) / (b - a);
+            let step = if slope.is_finite() && slope.abs() > 1e-3 {
+                fb / slope
+            } else {
+                fb
+            };
+            (a, fa) = (b, fb);
+            b -= step;
+        }
+        if fa.abs() > 1e-9 * self.supply {
+            return Err(SolveError::NoConvergence {
+                iterations: op.iterations,
+                residual: fa,
+                cathode_amps: ik,
+            });
+        }
+        op.rail_volts = a;
+        Ok(op)
+    }
+
+    /// Newton's method with the return rail held at `self.supply`.
+    ///
     /// Newton's method from `start` (or from the no-current divider). Should it fail — past a
     /// turning point of the curve, where the branch it follows ends — the solve falls back on
     /// pseudo-transient continuation: node capacitances `c` are added and the network is stepped
     /// in implicit Euler pseudo-time, `F(v) - c (v - v_old) = 0`, with `c` shrinking
     /// geometrically, so the state slides to the stable steady state as a real base would.
-    pub fn solve_raw(
+    fn solve_fixed_rail(
         &self,
         ik: f64,
         start: Option<&OperatingPoint>,
@@ -462,6 +524,7 @@ impl Network {
             element_amps,
             cathode_amps: ik,
             iterations,
+            rail_volts: self.supply,
         }
     }
 

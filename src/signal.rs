@@ -374,27 +374,83 @@ pub fn rise_bandwidth(response: InstrumentResponse) -> (f64, &'static str) {
     }
 }
 
-/// The load circuit of a design with load resistor `load` (ohms).
-pub fn circuit(design: &Design, load: f64) -> LoadCircuit {
+/// The signal path of a design as wired: anode (capacitance, anode resistor), coupling
+/// capacitor, resistor at the base, cable, termination at the instrument end ∥ the
+/// instrument's input R ∥ C. The one description every solve of the pulse reads.
+pub fn circuit(design: &Design) -> LoadCircuit {
+    circuit_with_termination(design, design.load_resistance.map(|r| r.get::<ohm>()))
+}
+
+/// The signal path in one line, as wired from the anode to the instrument, e.g.
+/// "anode ∥ 15 pF → 50 Ω at the base → 2 m of 50 Ω cable → 50 Ω ∥ 8 pF input".
+pub fn path_line(design: &Design) -> String {
+    let mut parts = vec![format!(
+        "anode ∥ {}",
+        eng(design.load_capacitance.get::<farad>(), "F")
+    )];
+    if let Some(ra) = design.anode_resistor {
+        let to = match design.polarity {
+            crate::design::Polarity::AnodePositive => "+HV",
+            crate::design::Polarity::CathodeNegative => "ground",
+        };
+        parts[0] = format!("{}, {} to {to}", parts[0], eng(ra.get::<ohm>(), "Ω"));
+    }
+    if let Some((cc, _)) = design.coupling {
+        parts.push(format!("coupling {}", eng(cc.get::<farad>(), "F")));
+    }
+    if let Some(rb) = design.base_resistance {
+        parts.push(format!("{} at the base", eng(rb.get::<ohm>(), "Ω")));
+    }
+    let readout = design.signal.readout.as_ref();
+    if let Some(c) = readout.and_then(|r| r.cable) {
+        parts.push(format!(
+            "{} of {} cable",
+            eng(c.length, "m"),
+            eng(c.impedance, "Ω")
+        ));
+    }
+    // The far end: the termination and the instrument's input side by side.
+    let mut far = Vec::new();
+    if let Some(rl) = design.load_resistance {
+        let what = if readout.is_some() {
+            "termination"
+        } else {
+            "load"
+        };
+        far.push(format!("{} {what}", eng(rl.get::<ohm>(), "Ω")));
+    }
+    if let Some(r) = readout {
+        let mut input = eng(r.input_resistance, "Ω");
+        if r.input_capacitance > 0.0 {
+            input = format!("{input} ∥ {}", eng(r.input_capacitance, "F"));
+        }
+        far.push(format!("{input} input"));
+    }
+    if !far.is_empty() {
+        parts.push(far.join(" ∥ "));
+    }
+    parts.join(" → ")
+}
+
+/// [`circuit`] with another termination at the instrument end (`None`: open), as the load
+/// sweep tries them.
+pub fn circuit_with_termination(design: &Design, termination: Option<f64>) -> LoadCircuit {
     let r = design.signal.readout.as_ref();
-    let (rin, cin) = r.map_or((f64::INFINITY, 0.0), |r| {
-        (r.input_resistance, r.input_capacitance)
+    let (rin, cin) = r.map_or((None, 0.0), |r| {
+        (Some(r.input_resistance), r.input_capacitance)
     });
     LoadCircuit {
         anode_capacitance: design.load_capacitance.get::<farad>(),
         anode_resistance: design.anode_resistor.map(|x| x.get::<ohm>()),
         coupling: design.coupling.map(|c| c.0.get::<farad>()),
+        base_resistance: design.base_resistance.map(|x| x.get::<ohm>()),
         cable: r.and_then(|r| r.cable).map(|c| waveform::Line {
             delay: c.delay(),
             impedance: c.impedance,
         }),
-        load_resistance: parallel(load, rin),
+        load_resistance: waveform::parallel(&[termination, rin]),
         load_capacitance: cin,
     }
-}
-
-fn parallel(a: f64, b: f64) -> f64 {
-    if b.is_infinite() { a } else { a * b / (a + b) }
 }
 
 fn rss(parts: &[f64]) -> f64 {
@@ -643,7 +699,7 @@ pub fn load_sweep(
         .into_par_iter()
         .map(|i| {
             let load = (lo + (hi - lo) * i as f64 / (n.max(2) - 1) as f64).exp();
-            let c = circuit(design, load);
+            let c = circuit_with_termination(design, Some(load));
             let w = waveform::simulate(&c, current, 0.0);
             let f = w.measure();
             let inst = r.map(|r| rise_bandwidth(r.response).0 / r.bandwidth);
@@ -791,7 +847,7 @@ pub fn budget(design: &Design, chain: &Chain) -> Option<SignalBudget> {
     let sigma_tts = s.timing.tts_fwhm / FWHM_PER_SIGMA;
     let sigma = (sigma_ser * sigma_ser + sigma_tts * sigma_tts).sqrt();
     let current = waveform::convolved_pulse(&l.shape, sigma, charge.max(1e-30));
-    let c = circuit(design, design.load_resistance.get::<ohm>());
+    let c = circuit(design);
     let w = waveform::simulate(&c, &current, 0.0);
     let mut pulse = w.measure();
     if charge <= 0.0 {
@@ -1096,7 +1152,7 @@ pub fn light_match(
     let mult = chain.gain / chain.collection;
     // The pulse is linear in the charge: one waveform per coulomb serves every cell.
     let unit = waveform::convolved_pulse(&shape, sigma, 1.0);
-    let c = circuit(design, design.load_resistance.get::<ohm>());
+    let c = circuit(design);
     let w = waveform::simulate(&c, &unit, 0.0);
     let f = w.measure();
     let r = s.readout.as_ref();

@@ -710,6 +710,7 @@ fn network_for(tube: &TubeModel, ohms: &[f64], supply: f64, anode_resistance: f6
         parts: ohms.iter().map(|r| Part::Resistor(1.0 / r)).collect(),
         supply,
         anode_resistance,
+        supply_resistance: 0.0,
     }
 }
 
@@ -1712,8 +1713,16 @@ fn write_design(
     let _ = writeln!(
         s,
         "        resistance: \"{}\",",
-        exact(b.load_resistance.get::<ohm>(), "Ω")
+        b.load_resistance
+            .map_or("open".to_string(), |r| exact(r.get::<ohm>(), "Ω"))
     );
+    if let Some(r) = b.base_resistance {
+        let _ = writeln!(
+            s,
+            "        at_base: Some(\"{}\"),",
+            exact(r.get::<ohm>(), "Ω")
+        );
+    }
     let _ = writeln!(
         s,
         "        capacitance: Some(\"{}\"),",

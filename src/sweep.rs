@@ -209,7 +209,7 @@ pub fn set_field(d: &mut Design, path: &str, x: f64) -> Result<(), String> {
             d.decoupling[i].value = Capacitance::new::<farad>(x);
         }
         "divider.stray" => d.stray = Capacitance::new::<farad>(x),
-        "load.resistance" => d.load_resistance = ElectricalResistance::new::<ohm>(x),
+        "load.resistance" => d.load_resistance = Some(ElectricalResistance::new::<ohm>(x)),
         "load.capacitance" => d.load_capacitance = Capacitance::new::<farad>(x),
         "load.anode_resistor" => d.anode_resistor = Some(ElectricalResistance::new::<ohm>(x)),
         "load.coupling" => {

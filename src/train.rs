@@ -41,6 +41,8 @@ pub enum RawPulseSize {
     Photoelectrons(f64),
     /// Peak anode current per pulse at the small-signal gain.
     PeakCurrent(Value),
+    /// The photoelectrons per pulse that the design's light block gives at the cathode.
+    FromLight,
 }
 
 /// Pulse shape as written.
@@ -181,9 +183,29 @@ pub struct TrainSpec {
     pub taper_assumed: bool,
 }
 
-/// Check the raw block (called from [`crate::design`]).
-pub(crate) fn check(t: &RawTrain, c: &Checker) -> Result<TrainSpec, DesignError> {
+/// Check the raw block (called from [`crate::design`]); `light_photoelectrons` is what the
+/// design's light block gives per pulse at the cathode, if it has one.
+pub(crate) fn check(
+    t: &RawTrain,
+    c: &Checker,
+    light_photoelectrons: Option<f64>,
+) -> Result<TrainSpec, DesignError> {
     let size = match &t.size {
+        RawPulseSize::FromLight => match light_photoelectrons {
+            Some(n) if n > 0.0 && n.is_finite() => PulseSize::Photoelectrons(n),
+            Some(_) => {
+                return Err(c.fail(
+                    "train.size",
+                    "FromLight: the light block gives no photoelectrons at this cathode (its light lies outside the cathode's response); give the size",
+                ));
+            }
+            None => {
+                return Err(c.fail(
+                    "train.size",
+                    "FromLight takes the pulse size from the light block, and the design has none: add a light block or give Charge(..), Photoelectrons(..) or PeakCurrent(..)",
+                ));
+            }
+        },
         RawPulseSize::Charge(v) => {
             PulseSize::AnodeCharge(c.ranged("train.size", v, Kind::Charge, 1e-21, 1e-3)?)
         }
@@ -473,6 +495,21 @@ impl Pattern {
             Pattern::Periodic(n, r) => Some(n as f64 / r),
             Pattern::Bursts(n, r, p, b) => Some(b as f64 * (n as f64 / r + p)),
             Pattern::Poisson(r, n, _) => Some(n as f64 / r),
+        }
+    }
+
+    /// Average pulse rate over the train, Hz (pulses over [`Pattern::duration`]); `None` for a
+    /// single pulse.
+    pub fn average_rate(&self) -> Option<f64> {
+        self.duration().map(|d| self.arrivals_len() as f64 / d)
+    }
+
+    /// Number of pulses.
+    pub fn arrivals_len(&self) -> usize {
+        match *self {
+            Pattern::Single => 1,
+            Pattern::Periodic(n, _) | Pattern::Poisson(_, n, _) => n,
+            Pattern::Bursts(n, _, _, b) => n * b,
         }
     }
 

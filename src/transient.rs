@@ -397,21 +397,32 @@ impl Base {
             Polarity::CathodeNegative => rtn,
             Polarity::AnodePositive => k,
         };
-        let ra = design.anode_dc_resistance().get::<ohm>();
-        let rl = design.load_resistance.get::<ohm>();
-        let cl = design.load_capacitance.get::<farad>();
+        // The signal path as wired, lumped for the train: the cable is a wire when terminated
+        // and its capacitance T/Z0 when not (the pulse at the instrument, with the cable's
+        // echoes, is the waveform engine's job; the train needs the charge and the slow swing).
+        let path = crate::signal::circuit(design);
         let (has_load_node, signal, load_rc) = match design.coupling {
             Some((cc, _)) => {
+                let ra = design.anode_dc_resistance().get::<ohm>();
+                let cc = cc.get::<farad>();
+                let far = path.far_capacitance();
+                let rl = path.load_side_resistance();
                 elements.push((rtn, p, Part::Resistor(1.0 / ra)));
-                caps.push((p, l, cc.get::<farad>()));
+                caps.push((p, rtn, path.anode_capacitance));
+                caps.push((p, l, cc));
                 elements.push((l, ground, Part::Resistor(1.0 / rl)));
-                caps.push((l, ground, cl));
-                (true, (l, ground), (ra * rl / (ra + rl), cl))
+                caps.push((l, ground, far));
+                (
+                    true,
+                    (l, ground),
+                    (path.pulse_resistance(), path.total_capacitance()),
+                )
             }
             None => {
-                elements.push((rtn, p, Part::Resistor(1.0 / ra)));
-                caps.push((p, rtn, cl));
-                (false, (p, ground), (ra, cl))
+                let r = path.pulse_resistance();
+                elements.push((rtn, p, Part::Resistor(1.0 / r)));
+                caps.push((p, rtn, path.total_capacitance()));
+                (false, (p, ground), (r, path.total_capacitance()))
             }
         };
         let supply_resistor = match design.supply_resistance {

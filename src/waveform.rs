@@ -99,9 +99,12 @@ pub struct LoadCircuit {
     pub anode_resistance: Option<f64>,
     /// Series coupling capacitor, farads.
     pub coupling: Option<f64>,
+    /// Load resistor at the base, after the coupling capacitor and before the cable, ohms.
+    pub base_resistance: Option<f64>,
     /// Cable from the base to the load.
     pub cable: Option<Line>,
-    /// Resistance at the load end (load resistor ∥ instrument input), ohms.
+    /// Resistance at the load end (termination ∥ instrument input), ohms; infinite when the
+    /// far end has neither.
     pub load_resistance: f64,
     /// Capacitance at the load end (instrument input), farads.
     pub load_capacitance: f64,
@@ -112,15 +115,8 @@ impl LoadCircuit {
     /// cable's own `T / Z0` when it is not terminated (load above 3 Z0, |Γ| > 0.5); a
     /// terminated cable is a resistance, not a capacitance (transmission-line theory).
     pub fn total_capacitance(&self) -> f64 {
-        let cable = self.cable.map_or(0.0, |l| {
-            if self.load_resistance > 3.0 * l.impedance {
-                l.delay / l.impedance
-            } else {
-                0.0
-            }
-        });
         let cc = self.coupling.unwrap_or(f64::INFINITY);
-        let far = cable + self.load_capacitance;
+        let far = self.far_capacitance();
         // With a coupling capacitor the far side is seen through it (series), plus the anode.
         let far_seen = if cc.is_finite() {
             far * cc / (far + cc)
@@ -130,18 +126,41 @@ impl LoadCircuit {
         self.anode_capacitance + far_seen
     }
 
+    /// Capacitance beyond the coupling capacitor, farads: the instrument input, plus the
+    /// cable's `T / Z0` when it is not terminated.
+    pub fn far_capacitance(&self) -> f64 {
+        let cable = self.cable.map_or(0.0, |l| {
+            if self.load_resistance > 3.0 * l.impedance {
+                l.delay / l.impedance
+            } else {
+                0.0
+            }
+        });
+        cable + self.load_capacitance
+    }
+
     /// Whether the cable (if any) is terminated at the load: within a factor 3 of Z0.
     pub fn terminated(&self) -> bool {
         self.cable
             .is_none_or(|l| self.load_resistance <= 3.0 * l.impedance)
     }
 
-    /// Resistance the pulse sees at low frequency (load ∥ anode resistor), ohms.
+    /// Resistance the pulse sees at low frequency (every load on the path and the anode
+    /// resistor in parallel; the cable is a wire there), ohms.
     pub fn pulse_resistance(&self) -> f64 {
-        match self.anode_resistance {
-            Some(ra) => ra * self.load_resistance / (ra + self.load_resistance),
-            None => self.load_resistance,
-        }
+        parallel(&[self.anode_resistance, Some(self.load_side_resistance())])
+    }
+
+    /// Resistance after the coupling capacitor: the base resistor ∥ the far end, ohms.
+    pub fn load_side_resistance(&self) -> f64 {
+        parallel(&[self.base_resistance, Some(self.load_resistance)])
+    }
+
+    /// Resistance the cable sees at the base end: the base resistor ∥ the anode resistor
+    /// (through the coupling capacitor, a short at the pulse's frequencies); infinite when the
+    /// base end is open.
+    pub fn base_end_resistance(&self) -> f64 {
+        parallel(&[self.base_resistance, self.anode_resistance])
     }
 
     /// The load's RC time constant (lumped), seconds.
@@ -151,8 +170,9 @@ impl LoadCircuit {
 
     /// The coupling high-pass time constant `(R_a + R_L) C_c`, seconds.
     pub fn high_pass_time_constant(&self) -> Option<f64> {
-        self.coupling
-            .map(|cc| (self.anode_resistance.unwrap_or(f64::INFINITY) + self.load_resistance) * cc)
+        self.coupling.map(|cc| {
+            (self.anode_resistance.unwrap_or(f64::INFINITY) + self.load_side_resistance()) * cc
+        })
     }
 
     /// Reflection coefficient at the load end, `(R − Z0)/(R + Z0)` (resistive part).
@@ -161,13 +181,24 @@ impl LoadCircuit {
             .map(|l| reflection(self.load_resistance, l.impedance))
     }
 
-    /// Reflection coefficient at the base end (anode resistor, or open), resistive part.
+    /// Reflection coefficient at the base end (base resistor ∥ anode resistor, or open),
+    /// resistive part.
     pub fn source_reflection(&self) -> Option<f64> {
-        self.cable.map(|l| match self.anode_resistance {
-            Some(r) => reflection(r, l.impedance),
-            None => 1.0,
+        let r = self.base_end_resistance();
+        self.cable.map(|l| {
+            if r.is_finite() {
+                reflection(r, l.impedance)
+            } else {
+                1.0
+            }
         })
     }
+}
+
+/// Resistors in parallel, ohms (absent ones and infinite ones open); infinite when none.
+pub fn parallel(parts: &[Option<f64>]) -> f64 {
+    let g: f64 = parts.iter().flatten().map(|r| 1.0 / r).sum();
+    if g > 0.0 { 1.0 / g } else { f64::INFINITY }
 }
 
 /// Reflection coefficient of a resistive termination `r` on a line of impedance `z0`:
@@ -410,6 +441,9 @@ impl Net {
         );
         if let Some(cc) = c.coupling {
             net.between(a, k, cc);
+        }
+        if let Some(rb) = c.base_resistance {
+            net.ground(k, 0.0, 1.0 / rb);
         }
         net.ground(b, c.load_capacitance, 1.0 / c.load_resistance);
         net
@@ -705,6 +739,7 @@ mod tests {
             anode_capacitance: 10e-12,
             anode_resistance: None,
             coupling: None,
+            base_resistance: None,
             cable: None,
             load_resistance: 1e6,
             load_capacitance: 0.0,

@@ -15,6 +15,7 @@ const E: f64 = 1.602_176_634e-19;
 
 fn rc_circuit(r: f64, c: f64) -> LoadCircuit {
     LoadCircuit {
+        base_resistance: None,
         anode_capacitance: c,
         anode_resistance: None,
         coupling: None,
@@ -152,6 +153,7 @@ fn reflection_at_a_mismatched_end() {
         assert!(rel(gamma, (r - z0) / (r + z0)) < 1e-15);
         let t = 10e-9;
         let c = LoadCircuit {
+            base_resistance: None,
             // 0.2 pF: an edge of 10 ps on 50 Ω, far shorter than the 10 ns delay.
             anode_capacitance: 0.2e-12,
             anode_resistance: None,
@@ -182,7 +184,12 @@ fn reflection_at_a_mismatched_end() {
 }
 
 /// Run ngspice on a PWL current source into `body` and return (t, v(out)).
-fn ngspice_wave(name: &str, pulse: &CurrentPulse, body: &str, stop: f64) -> (Vec<f64>, Vec<f64>) {
+pub fn ngspice_wave(
+    name: &str,
+    pulse: &CurrentPulse,
+    body: &str,
+    stop: f64,
+) -> (Vec<f64>, Vec<f64>) {
     let dir = temp_dir(name);
     let mut pwl = String::new();
     let step = (pulse.samples.len() / 600).max(1);
@@ -274,6 +281,7 @@ fn ngspice_pulse_through_a_coupling_capacitor() {
     // Anode-positive base: anode resistor 1 kΩ to AC ground, 10 pF at the anode, a 100 pF
     // coupling capacitor to a 50 Ω load with 5 pF; the high-pass (105 ns) gives the undershoot.
     let c = LoadCircuit {
+        base_resistance: None,
         anode_capacitance: 10e-12,
         anode_resistance: Some(1e3),
         coupling: Some(100e-12),
@@ -296,6 +304,7 @@ fn ngspice_pulse_down_a_mismatched_cable() {
     // 2 m of 50 Ω cable (10 ns) ended in 200 Ω ∥ 10 pF, 5 pF at the anode: the echoes come out
     // of both computations.
     let c = LoadCircuit {
+        base_resistance: None,
         anode_capacitance: 5e-12,
         anode_resistance: None,
         coupling: None,

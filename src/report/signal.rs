@@ -134,25 +134,13 @@ pub fn render_text(out: &mut String, a: &Analysis) {
         out,
         "PULSE AT THE LOAD (computed in time; magnitudes, the pulse is negative-going)"
     );
-    let mut circuit = format!(
-        "load {} effective, {} at the anode",
-        eng(c.load_resistance, "Ω"),
-        eng(c.anode_capacitance, "F")
+    let circuit = format!(
+        "{}; {} at low frequency, {} in all; RC = {}",
+        crate::signal::path_line(&a.design),
+        eng(c.pulse_resistance(), "Ω"),
+        eng(c.total_capacitance(), "F"),
+        eng(c.time_constant(), "s")
     );
-    if c.load_capacitance > 0.0 {
-        let _ = write!(
-            circuit,
-            ", {} at the instrument input",
-            eng(c.load_capacitance, "F")
-        );
-    }
-    if let Some(cc) = c.coupling {
-        let _ = write!(circuit, ", coupling capacitor {}", eng(cc, "F"));
-    }
-    if let Some(r) = c.anode_resistance {
-        let _ = write!(circuit, ", anode resistor {}", eng(r, "Ω"));
-    }
-    let _ = write!(circuit, "; RC = {}", eng(c.time_constant(), "s"));
     wrap(out, "  circuit       ", &circuit);
     let p = &s.pulse;
     let e = &s.estimates;

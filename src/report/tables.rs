@@ -4,10 +4,8 @@ use crate::analysis::Analysis;
 use crate::design::{GainSpec, Polarity};
 use crate::safety;
 use crate::units::format_eng as eng;
-use uom::si::capacitance::farad;
 use uom::si::electric_current::ampere;
 use uom::si::electric_potential::volt;
-use uom::si::electrical_resistance::ohm;
 
 /// A table: column headers and rows of cells.
 #[derive(Debug, Clone, PartialEq)]
@@ -79,14 +77,7 @@ pub fn design(a: &Analysis) -> Table {
                     .map_or_else(|| "not given".into(), |i| eng(i.get::<ampere>(), "A"))
             ),
         ),
-        kv(
-            "load",
-            format!(
-                "{} with {} at the anode",
-                eng(d.load_resistance.get::<ohm>(), "Ω"),
-                eng(d.load_capacitance.get::<farad>(), "F")
-            ),
-        ),
+        kv("signal path", crate::signal::path_line(d)),
         kv(
             "operating at",
             format!("{} average anode current", eng(a.op.anode_amps(), "A")),

@@ -135,28 +135,7 @@ pub fn render(a: &Analysis) -> String {
         d.decoupling.len(),
         eng(d.stray.get::<uom::si::capacitance::farad>(), "F")
     );
-    let _ = writeln!(
-        out,
-        "  load        {} with {} at the anode{}",
-        eng(
-            d.load_resistance
-                .get::<uom::si::electrical_resistance::ohm>(),
-            "Ω"
-        ),
-        eng(d.load_capacitance.get::<uom::si::capacitance::farad>(), "F"),
-        match (d.anode_resistor, d.coupling) {
-            (Some(r), Some((c, _))) => format!(
-                "; anode resistor {}, coupling {}",
-                eng(r.get::<uom::si::electrical_resistance::ohm>(), "Ω"),
-                eng(c.get::<uom::si::capacitance::farad>(), "F")
-            ),
-            (Some(r), None) => format!(
-                "; anode resistor {}",
-                eng(r.get::<uom::si::electrical_resistance::ohm>(), "Ω")
-            ),
-            _ => String::new(),
-        }
-    );
+    let _ = writeln!(out, "  signal path {}", crate::signal::path_line(d));
     let _ = writeln!(
         out,
         "  operating   average anode current {}",

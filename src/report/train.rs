@@ -35,18 +35,18 @@ pub fn text(out: &mut String, a: &Analysis) {
     let Some(t) = &a.train else {
         return;
     };
-    section(out, t);
+    section(out, t, a);
 }
 
 /// The train section as plain text, for formats that embed it (HTML, Markdown).
 pub fn section_text(a: &Analysis) -> Option<String> {
     let t = a.train.as_ref()?;
     let mut out = String::new();
-    section(&mut out, t);
+    section(&mut out, t, a);
     Some(out)
 }
 
-fn section(out: &mut String, t: &TrainAnalysis) {
+fn section(out: &mut String, t: &TrainAnalysis, a: &Analysis) {
     let _ = writeln!(out, "PULSE TRAIN ({})", pulsetrain::describe(&t.spec));
     let size = match t.spec.size {
         PulseSize::AnodeCharge(_) => "anode charge given",
@@ -71,7 +71,7 @@ fn section(out: &mut String, t: &TrainAnalysis) {
         Some(avg) => {
             let _ = writeln!(
                 out,
-                "  average anode current  {} over the train (tube rating {}){}",
+                "  average anode current  {} over the train, the base starting at rest (tube rating {}){}",
                 eng(avg, "A"),
                 eng(t.rated_average_amps, "A"),
                 if avg > t.rated_average_amps {
@@ -80,6 +80,14 @@ fn section(out: &mut String, t: &TrainAnalysis) {
                     ""
                 }
             );
+            if a.design.operating_assumed {
+                let _ = writeln!(
+                    out,
+                    "                         run at this rate until the base settles, the same pulses average {} with the gain {:+.2} % off its small-signal value (the DC shift, set by the divider current: no capacitor removes it)",
+                    eng(a.op.anode_amps(), "A"),
+                    (a.op.gain() / a.small_signal_gain - 1.0) * 100.0
+                );
+            }
         }
         None => {
             let _ = writeln!(out, "  average anode current  (a single pulse has none)");
@@ -409,7 +417,7 @@ pub fn render_text(a: &Analysis) -> String {
     let _ = writeln!(out, "design file: {}", a.design.source);
     let _ = writeln!(out);
     match &a.train {
-        Some(t) => section(&mut out, t),
+        Some(t) => section(&mut out, t, a),
         None => {
             let _ = writeln!(
                 out,
