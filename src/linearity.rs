@@ -1,10 +1,19 @@
-//! DC linearity: how the gain moves as the average anode current rises (physics brief §3–4).
+//! DC linearity: how the gain moves as the light rises (docs/physics.md, "Linearity").
 //!
-//! The curve is traced in the cathode current (which cannot fold back), from an anode current of
-//! 1e-4 of the quiescent divider current to three times it, on log-spaced points, each solve
-//! starting from the previous one (continuation). The deviation is `G(I)/G0 - 1`, with `G0` the
-//! small-signal gain. Crossings of +1 %, −1 %, +5 % and −5 % are bracketed on the grid and
-//! refined by modified regula falsi (Illinois) on ln(cathode current) with real solves.
+//! The curve is traced in the cathode current (which cannot fold back), from an ideal anode
+//! current of 1e-4 of the quiescent divider current to three times it, on log-spaced points,
+//! each solve starting from the previous one (continuation). It is presented as a user
+//! measures it, output against light: the deviation `I_a / (G0 · I_k) − 1` against the ideal
+//! current `G0 · I_k` (`G0` the small-signal gain), a monotonic axis. The real anode current
+//! rises to a ceiling — the most the divider can deliver — and falls beyond it while the light
+//! still rises; the ceiling is the largest anode current the trace finds, and points past it
+//! are marked. Crossings of +1 %, −1 %, +5 % and −5 % are bracketed on the grid and refined by
+//! modified regula falsi (Illinois) on ln(cathode current) with real solves.
+//!
+//! What is robust and what is not: the ±1 % and ±5 % onsets follow from the divider and the
+//! gain law; the height of the over-linearity peak depends on how collection fails at a starved
+//! gap, which the tube model represents by its own low-field law (a modelling choice, see
+//! [`crate::tube`]), so the peak is quoted as model-dependent.
 
 use crate::network::{Network, OperatingPoint, SolveError, Workspace};
 
@@ -13,6 +22,11 @@ use crate::network::{Network, OperatingPoint, SolveError, Workspace};
 pub struct LinearityPoint {
     /// Average anode current, amperes.
     pub anode_amps: f64,
+    /// The anode current a linear tube would give at this light, `G0 · I_k`, amperes (rises
+    /// with the light, so it orders the curve).
+    pub ideal_amps: f64,
+    /// Whether the point lies past the ceiling (the anode current falls here as light rises).
+    pub past_ceiling: bool,
     /// Gain deviation from the small-signal gain (fraction).
     pub deviation: f64,
 }
@@ -34,6 +48,9 @@ pub struct Linearity {
     pub peak_over: Option<LinearityPoint>,
     /// Why the curve stopped early, if it did.
     pub stopped: Option<String>,
+    /// The saturation ceiling: the largest anode current the trace finds, amperes, when the
+    /// current turns down within the traced range (`None`: still rising at its end).
+    pub ceiling_amps: Option<f64>,
 }
 
 /// Number of points on the curve.
@@ -76,6 +93,48 @@ fn continue_to(
     }
     // Past a turning point the branch may end: a cold start finds the other one, if any.
     net.solve_raw(ik, None, ws).or(err)
+}
+
+/// The top of the anode current between the grid's neighbours of its highest point: golden
+/// section on ln(cathode current) with real solves (the curve is smooth and single-peaked
+/// there), never below the grid's own highest value.
+fn refine_ceiling(
+    net: &Network,
+    ops: &[(f64, OperatingPoint)],
+    top: usize,
+    grid_best: f64,
+    ws: &mut Workspace,
+) -> f64 {
+    if top == 0 || top + 1 >= ops.len() {
+        return grid_best;
+    }
+    let start = ops[top].1.clone();
+    let mut at = |x: f64| {
+        net.solve_raw(x.exp(), Some(&start), ws)
+            .map_or(0.0, |op| op.anode_amps())
+    };
+    let (mut a, mut b) = (ops[top - 1].0.ln(), ops[top + 1].0.ln());
+    let r = 0.5 * (5f64.sqrt() - 1.0);
+    let (mut c, mut d) = (b - r * (b - a), a + r * (b - a));
+    let (mut fc, mut fd) = (at(c), at(d));
+    let mut best = grid_best.max(fc).max(fd);
+    for _ in 0..60 {
+        if (b - a).abs() < 1e-10 {
+            break;
+        }
+        if fc > fd {
+            (b, d, fd) = (d, c, fc);
+            c = b - r * (b - a);
+            fc = at(c);
+            best = best.max(fc);
+        } else {
+            (a, c, fc) = (c, d, fd);
+            d = a + r * (b - a);
+            fd = at(d);
+            best = best.max(fd);
+        }
+    }
+    best
 }
 
 /// Trace the curve.
@@ -128,6 +187,8 @@ pub fn trace_points(
             Ok(op) => {
                 points.push(LinearityPoint {
                     anode_amps: op.anode_amps(),
+                    ideal_amps: g0 * ik,
+                    past_ceiling: false,
                     deviation: op.gain() / g0 - 1.0,
                 });
                 prev = Some(op.clone());
@@ -205,12 +266,32 @@ pub fn trace_points(
     let minus_1pct = find(-0.01, ws);
     let plus_5pct = find(0.05, ws);
     let minus_5pct = find(-0.05, ws);
+    let (top, ceiling_amps) = points
+        .iter()
+        .enumerate()
+        .fold((0, 0.0f64), |(i, m), (j, p)| {
+            if p.anode_amps > m {
+                (j, p.anode_amps)
+            } else {
+                (i, m)
+            }
+        });
+    // Past the ceiling only when the current has really turned down (not a last point that
+    // merely sits on the top because the grid ended there).
+    for p in points.iter_mut().skip(top + 1) {
+        p.past_ceiling = p.anode_amps < ceiling_amps;
+    }
+    let ceiling_amps = points
+        .iter()
+        .any(|p| p.past_ceiling)
+        .then(|| refine_ceiling(net, &ops, top, ceiling_amps, ws));
     let peak_over = points
         .iter()
         .copied()
         .filter(|p| p.deviation > 0.0)
         .max_by(|a, b| a.deviation.total_cmp(&b.deviation));
     Ok(Linearity {
+        ceiling_amps,
         points,
         plus_1pct,
         minus_1pct,

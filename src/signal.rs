@@ -99,7 +99,11 @@ impl Verdict {
 /// Noise at the instrument.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct Noise {
-    /// Instrument's own, V rms.
+    /// The range the pulse is read on: V/div for an oscilloscope, full scale for a digitiser.
+    pub range: f64,
+    /// Whether `range` is volts per division (an oscilloscope) or a full scale.
+    pub per_division: bool,
+    /// Instrument's own at that range, V rms.
     pub instrument: f64,
     /// Johnson–Nyquist of the load over the bandwidth, V rms.
     pub johnson: f64,
@@ -523,8 +527,8 @@ pub fn judge(
                 );
             } else if n > r.divisions as f64 && peak <= r.largest_full_scale {
                 reasons.push(format!(
-                    "{words}: off screen there, use about {}/div",
-                    eng(peak / (0.75 * r.divisions as f64), "V")
+                    "{words}: off screen there, use {}/div",
+                    eng(range_for(peak, r).0, "V")
                 ));
             } else {
                 reasons.push(words);
@@ -552,8 +556,8 @@ pub fn judge(
                 );
             } else if f > 1.0 && peak <= r.largest_full_scale {
                 reasons.push(format!(
-                    "{words}: use a range of at least {} full scale",
-                    eng(peak / 0.75, "V")
+                    "{words}: use the {} full-scale range",
+                    eng(range_for(peak, r).0, "V")
                 ));
             } else {
                 reasons.push(words);
@@ -561,8 +565,13 @@ pub fn judge(
         }
     }
     let snr_words = format!(
-        "peak over baseline noise {:.1} (noise {} rms: instrument {}, load resistor {})",
+        "peak over baseline noise {:.1} at the {} range it needs (noise {} rms: instrument {}, load resistor {})",
         snr.min(1e9),
+        if noise.per_division {
+            format!("{}/div", eng(noise.range, "V"))
+        } else {
+            format!("{} full-scale", eng(noise.range, "V"))
+        },
         eng(noise.total, "V"),
         eng(noise.instrument, "V"),
         eng(noise.johnson, "V")
@@ -639,18 +648,56 @@ pub fn judge(
 }
 
 /// Baseline noise at the instrument for a load circuit.
-pub fn noise(c: &LoadCircuit, r: &ReadoutSpec) -> Noise {
+pub fn noise(c: &LoadCircuit, r: &ReadoutSpec, peak: f64) -> Noise {
     let johnson = johnson_rms(
         c.pulse_resistance(),
         c.total_capacitance(),
         r.bandwidth,
         r.response,
     );
+    let (range, per_division) = range_for(peak, r);
+    // An oscilloscope's noise grows with V/div above its front end's floor; a digitiser's is a
+    // fixed fraction of its full scale (common practice, docs/physics.md "Noise at the range").
+    let instrument = match r.division_volts {
+        Some(_) => r.noise_rms.max(r.noise_per_division * range),
+        None => r.noise_rms * range / r.sensitive_full_scale,
+    };
     Noise {
-        instrument: r.noise_rms,
+        range,
+        per_division,
+        instrument,
         johnson,
-        total: rss(&[r.noise_rms, johnson]),
+        total: rss(&[instrument, johnson]),
     }
+}
+
+/// The range a pulse of `peak` volts is read on: the most sensitive one that shows it within
+/// three quarters of the screen or span, stepping 1–2–5 from the most sensitive range and
+/// stopping at the largest. Returns the V/div (oscilloscope, `true`) or the full scale.
+pub fn range_for(peak: f64, r: &ReadoutSpec) -> (f64, bool) {
+    let (start, fit, top, per_div) = match r.division_volts {
+        Some(div) => {
+            let d = f64::from(r.divisions.max(1));
+            (div, peak / (0.75 * d), r.largest_full_scale / d, true)
+        }
+        None => (
+            r.sensitive_full_scale,
+            peak / 0.75,
+            r.largest_full_scale,
+            false,
+        ),
+    };
+    let mut range = start;
+    let steps = [2.0, 2.5, 2.0];
+    let mut i = 0;
+    while range < fit && range * steps[i % 3] <= top * (1.0 + 1e-9) && i < 60 {
+        range *= steps[i % 3];
+        i += 1;
+    }
+    if range < fit {
+        range = top.max(start);
+    }
+    (range, per_div)
 }
 
 /// The load sweep: `n` log-spaced loads from 50 Ω to 1 MΩ for a pulse of `current`.
@@ -711,7 +758,7 @@ pub fn load_sweep(
                         .map(|p| waveform::simulate(&c, p, 0.0).measure().peak);
                     let j = judge(
                         f.peak,
-                        noise(&c, ro),
+                        noise(&c, ro, one.unwrap_or(f.peak)),
                         displayed,
                         ro,
                         photoelectrons,
@@ -877,7 +924,15 @@ pub fn budget(design: &Design, chain: &Chain) -> Option<SignalBudget> {
     let readable = r.map(|ro| {
         let mut j = judge(
             pulse.peak,
-            noise(&c, ro),
+            noise(
+                &c,
+                ro,
+                if npe > 0.0 && npe < 1.0 {
+                    single_volts
+                } else {
+                    pulse.peak
+                },
+            ),
             displayed,
             ro,
             Some(npe),
@@ -1162,7 +1217,6 @@ pub fn light_match(
             r.map_or(0.0, |r| rise_bandwidth(r.response).0 / r.bandwidth),
         ])
     });
-    let nz = r.map(|ro| noise(&c, ro));
     let one_pe = waveform::simulate(
         &c,
         &waveform::gaussian_pulse(sigma_ser, mult * ELEMENTARY_CHARGE),
@@ -1186,7 +1240,8 @@ pub fn light_match(
                         qe,
                         photoelectrons: npe,
                         peak_volts: peak,
-                        verdict: r.zip(nz).map(|(ro, n)| {
+                        verdict: r.map(|ro| {
+                            let n = noise(&c, ro, peak);
                             judge(peak, n, displayed, ro, Some(npe), echoes(&c), Some(one_pe))
                                 .verdict
                         }),

@@ -204,3 +204,45 @@ fn bleed_down_of_one_capacitor_is_rc_ln_ratio() {
     let expect = 1e6 * 100e-9 * (v0 / 60.0).ln();
     assert!(rel(t, expect) < 0.01, "{t} vs {expect}");
 }
+
+#[test]
+fn linearity_is_output_against_light_with_its_ceiling() {
+    // docs/physics.md "Linearity": the curve is presented against the ideal current G0·I_k,
+    // which rises with the light, so the axis never runs backwards; the ceiling is the most
+    // anode current the divider delivers. An independent scan (2000 cold-started solves over
+    // the same light range, no continuation) must find no larger current than the ceiling,
+    // and one within 0.5 % of it (the grid's spacing near the top).
+    for path in crate::common::demo_designs() {
+        let d = dynode::design::load(&path).unwrap();
+        let a = dynode::analysis::analyse(&d).unwrap();
+        let l = &a.linearity;
+        assert!(
+            l.points
+                .windows(2)
+                .all(|w| w[1].ideal_amps > w[0].ideal_amps),
+            "{}: the light axis runs backwards",
+            path.display()
+        );
+        let Some(ceiling) = l.ceiling_amps else {
+            continue;
+        };
+        let g0 = a.small_signal_gain;
+        let first = l.points.first().unwrap().ideal_amps / g0;
+        let last = l.points.last().unwrap().ideal_amps / g0;
+        let mut ws = dynode::network::Workspace::default();
+        let mut best = 0.0f64;
+        let mut prev: Option<dynode::network::OperatingPoint> = None;
+        for i in 0..2000 {
+            let ik = (first.ln() + (last.ln() - first.ln()) * i as f64 / 1999.0).exp();
+            if let Ok(op) = a.network.solve_raw(ik, prev.as_ref(), &mut ws) {
+                best = best.max(op.anode_amps());
+                prev = Some(op);
+            }
+        }
+        assert!(
+            best <= ceiling * (1.0 + 1e-9) && best >= ceiling * (1.0 - 5e-3),
+            "{}: scan finds {best}, the report's ceiling is {ceiling}",
+            path.display()
+        );
+    }
+}

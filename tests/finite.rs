@@ -27,6 +27,7 @@ pub const NULLABLE: &[&str] = &[
     "peak_over_deviation",
     "peak_over_amps",
     "stopped",
+    "ceiling_amps",
     // report: safety
     "capacitors[].rating_volts",
     "bleed_seconds",

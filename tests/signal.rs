@@ -378,3 +378,51 @@ fn every_builtin_cathode_has_a_peak_and_cutoffs() {
     let edge = gaas.cutoffs().1;
     assert!((860.0..900.0).contains(&edge), "{edge}");
 }
+
+#[test]
+fn signal_to_noise_is_taken_at_the_range_the_pulse_needs() {
+    // docs/physics.md "Noise at the range": an oscilloscope's noise grows with V/div above its
+    // floor (common practice), so the S/N that matters is at the range where the pulse fits on
+    // screen. The range is the smallest 1–2–5 step from the most sensitive one that holds the
+    // peak within three quarters of the screen; the report names it and uses it.
+    for path in demo_designs() {
+        let d = dynode::design::load(&path).unwrap();
+        let a = dynode::analysis::analyse(&d).unwrap();
+        let Some(s) = &a.signal else { continue };
+        let (Some(r), Some(ro)) = (&s.readable, d.signal.readout.as_ref()) else {
+            continue;
+        };
+        let peak = if s.photoelectrons < 1.0 {
+            s.single_pe_volts
+        } else {
+            s.pulse.peak
+        };
+        let (span, screen) = match ro.division_volts {
+            Some(_) => (r.noise.range * f64::from(ro.divisions), 0.75),
+            None => (r.noise.range, 0.75),
+        };
+        let smallest = ro.division_volts.map_or(ro.sensitive_full_scale, |d| d);
+        if r.noise.range > smallest * (1.0 + 1e-9) {
+            assert!(
+                peak <= screen * span * (1.0 + 1e-9) || span >= ro.largest_full_scale * 0.999,
+                "{}: the pulse does not fit the range it names",
+                path.display()
+            );
+        }
+        assert!(r.noise.instrument >= ro.noise_rms * (1.0 - 1e-12));
+        assert!(
+            rel(r.snr, peak / r.noise.total) < 1e-9,
+            "{}: S/N not at the named range",
+            path.display()
+        );
+        let named = r.reasons.iter().any(|x| x.contains("range it needs"));
+        assert!(named, "{}: the verdict names its range", path.display());
+    }
+    // The paddle demo: a 0.89 V pulse on an 8-division oscilloscope needs 200 mV/div, where
+    // the trace noise is 0.04 division (8 mV), not the 150 µV of the 2 mV/div range.
+    let d = dynode::design::load(&crate_path("designs/rooftop-paddle.ron")).unwrap();
+    let a = dynode::analysis::analyse(&d).unwrap();
+    let r = a.signal.as_ref().unwrap().readable.as_ref().unwrap();
+    assert!(rel(r.noise.range, 0.2) < 1e-12, "{}", r.noise.range);
+    assert!(rel(r.noise.instrument, 8e-3) < 1e-12);
+}

@@ -21,6 +21,10 @@ pub const TYPICAL_TTS_FWHM_S: f64 = 1e-9;
 pub const TYPICAL_VELOCITY_FACTOR: f64 = 0.66;
 /// Divisions on the vertical axis assumed for an oscilloscope (common practice).
 pub const TYPICAL_DIVISIONS: u32 = 8;
+/// An oscilloscope's baseline noise on its coarser ranges, in divisions rms (from memory: a
+/// trace about a third of a division thick; the front end's own floor dominates only on the
+/// most sensitive ranges).
+pub const TYPICAL_NOISE_PER_DIVISION: f64 = 0.04;
 
 // ---------------------------------------------------------------------------------------------
 // Raw layer
@@ -236,6 +240,9 @@ pub struct RawReadout {
     pub input_capacitance: Option<Value>,
     /// RMS noise at the most sensitive range.
     pub noise: Value,
+    /// Oscilloscope: RMS noise in divisions on the coarser ranges (default 0.04, from memory).
+    #[serde(default)]
+    pub noise_per_division: Option<f64>,
     /// The 10–90 % rise time the measurement needs.
     #[serde(default)]
     pub rise_need: Option<Value>,
@@ -303,6 +310,8 @@ pub struct ReadoutSpec {
     pub input_capacitance: f64,
     /// RMS noise at the most sensitive range, V.
     pub noise_rms: f64,
+    /// Oscilloscope: RMS noise in divisions on the coarser ranges.
+    pub noise_per_division: f64,
     /// Rise-time need, s.
     pub rise_need: Option<f64>,
     /// Timing threshold, V.
@@ -785,6 +794,18 @@ fn check_readout(c: &Checker, r: &RawReadout) -> Result<ReadoutSpec, DesignError
         input_resistance,
         input_capacitance,
         noise_rms: noise,
+        noise_per_division: match r.noise_per_division {
+            None => TYPICAL_NOISE_PER_DIVISION,
+            Some(x) if x.is_finite() && x > 0.0 && x <= 1.0 => x,
+            Some(x) => {
+                return Err(c.fail(
+                    "readout.noise_per_division",
+                    format!(
+                        "expected a fraction of a division between 0 and 1 such as 0.04, found {x}"
+                    ),
+                ));
+            }
+        },
         rise_need,
         threshold,
         cable,

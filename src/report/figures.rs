@@ -67,8 +67,8 @@ pub fn linearity(a: &Analysis) -> Figure {
     let l = &a.linearity;
     let mut f = Figure::new(
         "linearity",
-        "DC linearity: gain deviation against average anode current",
-        Axis::log("average anode current", Some("A")),
+        "DC linearity: output against light",
+        Axis::log("ideal anode current G0·Ik (light)", Some("A")),
         Axis::linear("gain deviation from small-signal gain (%)", None),
     )
     .with(
@@ -76,9 +76,23 @@ pub fn linearity(a: &Analysis) -> Figure {
         Style::Line,
         l.points
             .iter()
-            .map(|p| (p.anode_amps, p.deviation * 100.0))
+            .filter(|p| !p.past_ceiling)
+            .map(|p| (p.ideal_amps, p.deviation * 100.0))
             .collect(),
     );
+    let past: Vec<(f64, f64)> = l
+        .points
+        .iter()
+        .filter(|p| p.past_ceiling)
+        .map(|p| (p.ideal_amps, p.deviation * 100.0))
+        .collect();
+    if !past.is_empty() {
+        f = f.with(
+            "past the ceiling (anode current falling)",
+            Style::Points,
+            past,
+        );
+    }
     // Show the working range: the ±1 % and ±5 % limits matter, not the depth of saturation.
     let (lo, hi) = l.points.iter().fold((0.0f64, 0.0f64), |(a, b), p| {
         (a.min(p.deviation * 100.0), b.max(p.deviation * 100.0))
@@ -92,8 +106,11 @@ pub fn linearity(a: &Analysis) -> Figure {
         hi: 1.0,
         label: "±1 % band".to_string(),
     });
-    f.markers
-        .push(Marker::X(a.op.anode_amps(), "operating point".to_string()));
+    // Markers on the light axis: the operating point's ideal current, and the tube's rating.
+    f.markers.push(Marker::X(
+        a.small_signal_gain * a.op.cathode_amps,
+        "operating point".to_string(),
+    ));
     f.markers.push(Marker::X(
         a.design
             .tube

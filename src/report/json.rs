@@ -77,9 +77,12 @@ pub fn to_value(a: &Analysis) -> Value {
             "peak_over_deviation": l.peak_over.map(|p| p.deviation),
             "peak_over_amps": l.peak_over.map(|p| p.anode_amps),
             "stopped": l.stopped,
+            "ceiling_amps": l.ceiling_amps,
             "curve": l.points.iter().map(|p| json!({
+                "ideal_amps": p.ideal_amps,
                 "anode_amps": p.anode_amps,
                 "deviation": p.deviation,
+                "past_ceiling": p.past_ceiling,
             })).collect::<Vec<_>>(),
         },
         "safety": {

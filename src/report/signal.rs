@@ -462,6 +462,10 @@ pub fn add_json(v: &mut Value, a: &Analysis) {
                     "verdict": r.verdict.as_str(),
                     "reasons": r.reasons,
                     "snr": r.snr,
+                    "range": {
+                        "volts": r.noise.range,
+                        "per_division": r.noise.per_division,
+                    },
                     "noise_volts": {
                         "instrument": r.noise.instrument,
                         "johnson": r.noise.johnson,

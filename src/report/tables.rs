@@ -185,9 +185,14 @@ pub fn linearity(a: &Analysis) -> Table {
         kv("+5 % reached at", f(l.plus_5pct)),
         kv("−5 % reached at", f(l.minus_5pct)),
     ];
+    rows.push(kv(
+        "ceiling (most anode current the divider delivers)",
+        l.ceiling_amps
+            .map_or_else(|| "not reached in the traced range".into(), |c| eng(c, "A")),
+    ));
     if let Some(p) = l.peak_over {
         rows.push(kv(
-            "largest over-linearity",
+            "largest over-linearity (model-dependent height)",
             format!(
                 "{:+.2} % at {}",
                 p.deviation * 100.0,

@@ -258,37 +258,7 @@ pub fn render(a: &Analysis) -> String {
 
     crate::report::supply::text(&mut out, a);
 
-    let l = &a.linearity;
-    let _ = writeln!(
-        out,
-        "DC LINEARITY (gain deviation against average anode current, {} points)",
-        l.points.len()
-    );
-    let _ = writeln!(out, "  +1 % reached at    {}", opt_amps(l.plus_1pct));
-    let _ = writeln!(out, "  -1 % reached at    {}", opt_amps(l.minus_1pct));
-    let _ = writeln!(out, "  +5 % reached at    {}", opt_amps(l.plus_5pct));
-    let _ = writeln!(out, "  -5 % reached at    {}", opt_amps(l.minus_5pct));
-    if let Some(p) = l.peak_over {
-        let _ = writeln!(
-            out,
-            "  largest over-linearity {:+.2} % at {}",
-            p.deviation * 100.0,
-            eng(p.anode_amps, "A")
-        );
-    }
-    if let Some(s) = &l.stopped {
-        wrap(&mut out, "  note: ", s);
-    }
-    let _ = writeln!(out, "  {:>12}  {:>10}", "anode", "deviation");
-    for p in l.points.iter().step_by((l.points.len() / 12).max(1)) {
-        let _ = writeln!(
-            out,
-            "  {:>12}  {:>+9.3} %",
-            eng(p.anode_amps, "A"),
-            p.deviation * 100.0
-        );
-    }
-    let _ = writeln!(out);
+    linearity_text(&mut out, a);
 
     let s = &a.safety;
     let _ = writeln!(out, "SAFETY");
@@ -365,4 +335,99 @@ pub fn render(a: &Analysis) -> String {
     wrap(&mut out, "  !! ", CLOSING_CAUTION);
     let _ = writeln!(out, "{THIN}");
     out
+}
+
+/// The DC linearity section: output against light, the ceiling, the model-dependent peak.
+fn linearity_text(out: &mut String, a: &Analysis) {
+    let l = &a.linearity;
+    let rating = a
+        .design
+        .tube
+        .max_anode_current
+        .get::<uom::si::electric_current::ampere>();
+    let _ = writeln!(
+        out,
+        "DC LINEARITY (output against light: gain deviation against the ideal anode current G0·I_k, {} points)",
+        l.points.len()
+    );
+    let _ = writeln!(out, "  +1 % reached at    {}", opt_amps(l.plus_1pct));
+    let _ = writeln!(out, "  -1 % reached at    {}", opt_amps(l.minus_1pct));
+    let _ = writeln!(out, "  +5 % reached at    {}", opt_amps(l.plus_5pct));
+    let _ = writeln!(out, "  -5 % reached at    {}", opt_amps(l.minus_5pct));
+    match l.ceiling_amps {
+        Some(c) => wrap(
+            out,
+            "  ceiling            ",
+            &format!(
+                "{}: the most anode current this divider delivers; past it the anode current falls while the light rises{}",
+                eng(c, "A"),
+                if c > rating {
+                    format!(" (above the tube's {} rating)", eng(rating, "A"))
+                } else {
+                    String::new()
+                }
+            ),
+        ),
+        None => {
+            let _ = writeln!(
+                out,
+                "  ceiling            not reached up to {} of anode current",
+                eng(l.points.last().map_or(0.0, |p| p.anode_amps), "A")
+            );
+        }
+    }
+    if let Some(p) = l.peak_over {
+        wrap(
+            out,
+            "  over-linearity     ",
+            &format!(
+                "largest {:+.2} % at {}{}; its height is model-dependent (set by how the tube model lets collection fail at a starved gap), the ±1 % and ±5 % onsets are not",
+                p.deviation * 100.0,
+                eng(p.anode_amps, "A"),
+                if p.anode_amps > rating {
+                    format!(", above the tube's {} rating", eng(rating, "A"))
+                } else {
+                    String::new()
+                }
+            ),
+        );
+    }
+    if let Some(s) = &l.stopped {
+        wrap(out, "  note: ", s);
+    }
+    let _ = writeln!(
+        out,
+        "  {:>12}  {:>12}  {:>10}",
+        "ideal", "anode", "deviation"
+    );
+    let step = (l.points.len() / 12).max(1);
+    for (i, p) in l.points.iter().enumerate() {
+        let first_past = p.past_ceiling && (i == 0 || !l.points[i - 1].past_ceiling);
+        if i % step != 0 && !first_past {
+            continue;
+        }
+        let mut flags = Vec::new();
+        if p.past_ceiling {
+            flags.push("past the ceiling");
+        }
+        if p.anode_amps > rating {
+            flags.push("above the tube's rating");
+        }
+        let _ = writeln!(
+            out,
+            "  {:>12}  {:>12}  {:>+9.3} %{}",
+            eng(p.ideal_amps, "A"),
+            eng(p.anode_amps, "A"),
+            p.deviation * 100.0,
+            if flags.is_empty() {
+                String::new()
+            } else {
+                format!("  ({})", flags.join(", "))
+            }
+        );
+        if first_past {
+            break;
+        }
+    }
+    let _ = writeln!(out);
 }
