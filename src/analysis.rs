@@ -471,9 +471,9 @@ pub fn analyse_with(
     }
     match stream {
         Some(st) if design.operating_assumed => assumptions.push(format!(
-            "operating point at the pulses' average: {} of cathode current ({} photoelectrons a pulse at {} on average, from {}); the anode current there is {} (give operating.anode_current to choose another)",
+            "operating point at the pulses' average: {} of cathode current ({:.0} photoelectrons a pulse at {} on average, from {}); the anode current there is {} (give operating.anode_current to choose another)",
             format_eng(st.rate * st.cathode_charge, "A"),
-            format!("{:.0}", st.cathode_charge / crate::cathode::ELEMENTARY_CHARGE),
+            st.cathode_charge / crate::cathode::ELEMENTARY_CHARGE,
             format_eng(st.rate, "Hz"),
             st.from,
             format_eng(op.anode_amps(), "A")

@@ -104,6 +104,18 @@ impl Shape {
     }
 
     /// The shortest time scale of the shape, seconds (sets the sampling step).
+    /// The time scale of the pulse's fastest edge, seconds: zero for the instantaneous edges of
+    /// a rectangle or of a decay with no rise. The anode current's edge is this convolved with
+    /// the tube's response, which is what the sampling must resolve.
+    pub fn edge(&self) -> f64 {
+        match *self {
+            Shape::Gaussian { fwhm } => fwhm / FWHM_PER_SIGMA,
+            Shape::Rectangular { .. } => 0.0,
+            Shape::Exponential { rise, .. } => rise,
+        }
+    }
+
+    /// The finest time scale of the light pulse itself (its width or its fastest constant), s.
     pub fn finest(&self) -> f64 {
         match *self {
             Shape::Gaussian { fwhm } => fwhm / FWHM_PER_SIGMA,

@@ -129,11 +129,14 @@ pub struct Readability {
 /// Analytic estimates beside the computed pulse.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct Estimates {
-    /// Short-pulse limit `I_peak · R`, V.
+    /// Short-pulse limit `I_peak · R`, or with a cable `I_peak · (R_base ∥ Z0) · (1 + Γ)`, V.
     pub i_times_r: f64,
+    /// The formula `i_times_r` used, in words for reports.
+    pub short_pulse_formula: &'static str,
     /// Integrating limit `Q / C`, V.
     pub q_over_c: f64,
-    /// First-order rise of the load `2.197 R C`, s.
+    /// First-order rise of the load `2.197 R C` (with a cable, each end's RC combined by
+    /// root-sum-of-squares), s.
     pub rc_rise: f64,
     /// Rise of the anode current alone (measured on the current pulse), s.
     pub current_rise: Option<f64>,
@@ -156,8 +159,13 @@ pub struct Echoes {
     pub gamma_base: f64,
     /// Spacing of echoes at the load, s (`2 T`).
     pub spacing: f64,
-    /// Relative size of the first echo, `Γ_load · Γ_base`.
+    /// Relative size of the first echo at the instrument (signed): measured on the computed
+    /// pulse, where the far end's Γ(ω) of R ∥ C and the base end's act at the pulse's own
+    /// frequencies; the resistive product `Γ_load · Γ_base` when the pulse is longer than the
+    /// round trip and its echo cannot be told apart.
     pub first_echo: f64,
+    /// Whether `first_echo` was measured on the waveform (else the resistive product).
+    pub measured: bool,
 }
 
 /// Timing figures.
@@ -314,16 +322,18 @@ pub struct SignalBudget {
 }
 
 /// The cable's echoes for a load circuit, if it has a cable.
-pub fn echoes(c: &LoadCircuit) -> Option<Echoes> {
+pub fn echoes(c: &LoadCircuit, w: &Waveform) -> Option<Echoes> {
     c.cable.map(|line| {
         let gl = c.load_reflection().unwrap_or(0.0);
         let gb = c.source_reflection().unwrap_or(1.0);
+        let measured = w.first_echo(line.delay);
         Echoes {
             delay: line.delay,
             gamma_load: gl,
             gamma_base: gb,
             spacing: 2.0 * line.delay,
-            first_echo: gl * gb,
+            first_echo: measured.unwrap_or(gl * gb),
+            measured: measured.is_some(),
         }
     })
 }
@@ -616,7 +626,7 @@ pub fn judge(
         bump(
             Verdict::Marginal,
             format!(
-                "the cable is mismatched (Γ = {:+.2} at the load, {:+.2} at the base): echoes of {:.0} % every {} follow each pulse; terminate the cable in its impedance",
+                "the cable is mismatched (resistive Γ = {:+.2} at the load, {:+.2} at the base): echoes of {:.0} % every {} follow each pulse; terminate the cable in its impedance at one end",
                 e.gamma_load,
                 e.gamma_base,
                 e.first_echo.abs() * 100.0,
@@ -748,7 +758,8 @@ pub fn load_sweep(
             let load = (lo + (hi - lo) * i as f64 / (n.max(2) - 1) as f64).exp();
             let c = circuit_with_termination(design, Some(load));
             let w = waveform::simulate(&c, current, 0.0);
-            let f = w.measure();
+            let f = w.measure_first(c.cable.map(|l| l.delay));
+            let echo = echoes(&c, &w);
             let inst = r.map(|r| rise_bandwidth(r.response).0 / r.bandwidth);
             let displayed = f.rise.map(|x| rss(&[x, inst.unwrap_or(0.0)]));
             let (snr, verdict) = match r {
@@ -762,7 +773,7 @@ pub fn load_sweep(
                         displayed,
                         ro,
                         photoelectrons,
-                        echoes(&c),
+                        echo,
                         one,
                     );
                     (Some(j.snr), Some(j.verdict))
@@ -779,7 +790,7 @@ pub fn load_sweep(
                 snr,
                 verdict,
                 meets_rise: need.zip(displayed).map(|(n, d)| d <= n),
-                echo: echoes(&c).map(|e| e.first_echo),
+                echo: echo.map(|e| e.first_echo),
             }
         })
         .collect();
@@ -896,7 +907,7 @@ pub fn budget(design: &Design, chain: &Chain) -> Option<SignalBudget> {
     let current = waveform::convolved_pulse(&l.shape, sigma, charge.max(1e-30));
     let c = circuit(design);
     let w = waveform::simulate(&c, &current, 0.0);
-    let mut pulse = w.measure();
+    let mut pulse = w.measure_first(c.cable.map(|l| l.delay));
     if charge <= 0.0 {
         pulse.peak = 0.0;
     }
@@ -904,10 +915,15 @@ pub fn budget(design: &Design, chain: &Chain) -> Option<SignalBudget> {
     let single_volts = waveform::simulate(&c, &single, 0.0).measure().peak;
     let r = s.readout.as_ref();
     let current_fig = current.as_waveform().measure();
-    let rc_rise = 9f64.ln() * c.time_constant();
+    let rc_rise = 9f64.ln() * rss(&c.edge_time_constants());
     let inst = r.map(|r| rise_bandwidth(r.response));
     let estimates = Estimates {
-        i_times_r: current_fig.peak * c.pulse_resistance(),
+        i_times_r: current_fig.peak * c.short_pulse_ohms(),
+        short_pulse_formula: if c.cable.is_some() {
+            "I·(R_base ∥ Z0)·(1 + Γ)"
+        } else {
+            "I·R"
+        },
         q_over_c: charge / c.total_capacitance(),
         rc_rise,
         current_rise: current_fig.rise,
@@ -915,7 +931,7 @@ pub fn budget(design: &Design, chain: &Chain) -> Option<SignalBudget> {
         instrument_rise: inst.zip(r).map(|((k, _), r)| k / r.bandwidth),
         instrument_model: inst.map(|(_, m)| m),
     };
-    let echoes = echoes(&c);
+    let echoes = echoes(&c, &w);
     let f = chain.excess_noise;
     let spread = if npe > 0.0 { (f / npe).sqrt() } else { 0.0 };
     let displayed = pulse
@@ -1209,7 +1225,8 @@ pub fn light_match(
     let unit = waveform::convolved_pulse(&shape, sigma, 1.0);
     let c = circuit(design);
     let w = waveform::simulate(&c, &unit, 0.0);
-    let f = w.measure();
+    let f = w.measure_first(c.cable.map(|l| l.delay));
+    let echo = echoes(&c, &w);
     let r = s.readout.as_ref();
     let displayed = f.rise.map(|x| {
         rss(&[
@@ -1242,8 +1259,7 @@ pub fn light_match(
                         peak_volts: peak,
                         verdict: r.map(|ro| {
                             let n = noise(&c, ro, peak);
-                            judge(peak, n, displayed, ro, Some(npe), echoes(&c), Some(one_pe))
-                                .verdict
+                            judge(peak, n, displayed, ro, Some(npe), echo, Some(one_pe)).verdict
                         }),
                     }
                 })

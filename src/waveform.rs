@@ -195,6 +195,40 @@ impl LoadCircuit {
     }
 }
 
+impl LoadCircuit {
+    /// Volts at the instrument per ampere of a pulse long against the edges and short against
+    /// the slow time constants: the resistance without a cable; with one, the wave launched
+    /// into the line, `I · (R_base ∥ Z0)`, times `1 + Γ` at the far end (transmission-line
+    /// theory; an open base end launches `I · Z0`).
+    pub fn short_pulse_ohms(&self) -> f64 {
+        match self.cable {
+            None => self.pulse_resistance(),
+            Some(l) => {
+                let launch = parallel(&[Some(self.base_end_resistance()), Some(l.impedance)]);
+                let gamma = if self.load_resistance.is_finite() {
+                    reflection(self.load_resistance, l.impedance)
+                } else {
+                    1.0
+                };
+                launch * (1.0 + gamma)
+            }
+        }
+    }
+
+    /// The edge time constants: one RC without a cable; with one, each end's capacitance with
+    /// the resistance it sees (its own resistors ∥ the line's Z0), seconds.
+    pub fn edge_time_constants(&self) -> Vec<f64> {
+        match self.cable {
+            None => vec![self.time_constant()],
+            Some(l) => vec![
+                self.anode_capacitance
+                    * parallel(&[Some(self.base_end_resistance()), Some(l.impedance)]),
+                self.load_capacitance * parallel(&[Some(self.load_resistance), Some(l.impedance)]),
+            ],
+        }
+    }
+}
+
 /// Resistors in parallel, ohms (absent ones and infinite ones open); infinite when none.
 pub fn parallel(parts: &[Option<f64>]) -> f64 {
     let g: f64 = parts.iter().flatten().map(|r| 1.0 / r).sum();
@@ -301,6 +335,66 @@ impl Waveform {
         f
     }
 
+    /// The first arrival's figures: with a cable of one-way delay `delay`, only what reaches
+    /// the instrument before the first echo can (at three delays, the leading edge's round
+    /// trip after its arrival), so that peak, rise, width and undershoot belong to the pulse
+    /// itself and an echo is not taken for its tail. A pulse longer than the round trip is
+    /// superposed on its own echo and measured whole, as the instrument shows it.
+    pub fn measure_first(&self, delay: Option<f64>) -> PulseFigures {
+        let Some(t_echo) = delay.map(|d| 3.0 * d) else {
+            return self.measure();
+        };
+        let n = self.t.partition_point(|t| *t < t_echo);
+        if n < 3 {
+            return self.measure();
+        }
+        let first = Waveform {
+            t: self.t[..n].to_vec(),
+            v: self.v[..n].to_vec(),
+        };
+        let f = first.measure();
+        if f.peak > 0.0 && first.ended_by(&f, t_echo) {
+            f
+        } else {
+            self.measure()
+        }
+    }
+
+    /// Whether the pulse of figures `f` has fallen below a tenth of its peak before `t`.
+    fn ended_by(&self, f: &PulseFigures, t: f64) -> bool {
+        let ip = self.t.partition_point(|x| *x < f.t_peak);
+        self.v[ip..]
+            .iter()
+            .zip(&self.t[ip..])
+            .find(|(v, _)| v.abs() < 0.1 * f.peak)
+            .is_some_and(|(_, x)| *x < t)
+    }
+
+    /// The first echo at the instrument, signed, as a fraction of the first arrival's peak:
+    /// the extreme of the signal over the round trip after the first echo can arrive
+    /// (`[3T, 5T)`, `T` the one-way delay). `None` when the pulse is longer than the round
+    /// trip (the echo is part of what the instrument shows) or nothing was computed there.
+    pub fn first_echo(&self, delay: f64) -> Option<f64> {
+        let first = self.measure_first(Some(delay));
+        // The first arrival must have passed (below a tenth of its peak) before the echo can
+        // come, or the window would hold the pulse's own tail.
+        if first.peak <= 0.0 || !self.ended_by(&first, 3.0 * delay) {
+            return None;
+        }
+        let (a, b) = (
+            self.t.partition_point(|t| *t < 3.0 * delay),
+            self.t.partition_point(|t| *t < 5.0 * delay),
+        );
+        if b <= a {
+            return None;
+        }
+        let ext = self.v[a..b]
+            .iter()
+            .copied()
+            .fold(0.0f64, |m, x| if x.abs() > m.abs() { x } else { m });
+        Some(ext / first.peak)
+    }
+
     /// At most `n` points for a figure: every k-th sample, keeping the peak.
     pub fn decimated(&self, n: usize) -> Waveform {
         let k = (self.t.len() / n.max(2)).max(1);
@@ -337,19 +431,22 @@ fn normalise(samples: &mut [f64], dt: f64, charge: f64) {
 }
 
 /// Largest number of samples in a current pulse (keeps a long scintillator tail cheap).
-pub const MAX_PULSE_SAMPLES: usize = 20_000;
+pub const MAX_PULSE_SAMPLES: usize = 100_000;
 
 /// The anode current for a light pulse of `shape` convolved with a Gaussian of standard
 /// deviation `sigma` (the single-electron response and the transit-time spread together),
-/// carrying `charge`. Sampled at a twentieth of the finest time scale, at most
-/// [`MAX_PULSE_SAMPLES`] samples; the discrete convolution keeps the charge exactly.
+/// carrying `charge`. Sampled at a tenth of the output's fastest edge — the light's own edge
+/// convolved with σ, so a wide rectangle or a slow decay with a sharp onset is sampled by the
+/// tube's edge, not by its width — at most [`MAX_PULSE_SAMPLES`] samples; the discrete
+/// convolution keeps the charge exactly.
 pub fn convolved_pulse(shape: &crate::light::Shape, sigma: f64, charge: f64) -> CurrentPulse {
     let (a, b) = shape.support();
     let pad = 6.0 * sigma;
     let extent = (b - a) + 2.0 * pad;
-    // The output's finest scale is the light's finest convolved with σ.
+    // The output's fastest edge is the light's own edge convolved with σ.
     let finest = shape.finest();
-    let mut dt = (finest * finest + sigma * sigma).sqrt() / 20.0;
+    let edge = shape.edge();
+    let mut dt = (edge * edge + sigma * sigma).sqrt() / 10.0;
     if extent / dt > MAX_PULSE_SAMPLES as f64 {
         dt = extent / MAX_PULSE_SAMPLES as f64;
     }

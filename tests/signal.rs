@@ -426,3 +426,174 @@ fn signal_to_noise_is_taken_at_the_range_the_pulse_needs() {
     assert!(rel(r.noise.range, 0.2) < 1e-12, "{}", r.noise.range);
     assert!(rel(r.noise.instrument, 8e-3) < 1e-12);
 }
+
+/// erf by Abramowitz and Stegun 7.1.26 (absolute error below 1.5e-7), for analytic pulses.
+fn erf(x: f64) -> f64 {
+    let s = x.signum();
+    let x = x.abs();
+    let t = 1.0 / (1.0 + 0.3275911 * x);
+    let y = 1.0
+        - (((((1.061405429 * t - 1.453152027) * t) + 1.421413741) * t - 0.284496736) * t
+            + 0.254829592)
+            * t
+            * (-x * x).exp();
+    s * y
+}
+
+fn phi(x: f64) -> f64 {
+    0.5 * (1.0 + erf(x / std::f64::consts::SQRT_2))
+}
+
+/// ngspice on an analytic current, given as (t, amps) points, into `body`; returns v(out).
+fn ngspice_points(name: &str, points: &[(f64, f64)], body: &str, stop: f64) -> waveform::Waveform {
+    let dir = temp_dir(name);
+    let mut pwl = String::new();
+    for (t, i) in points {
+        pwl.push_str(&format!("\n+ {t:.9e} {i:.9e}"));
+    }
+    let out = dir.join("out.dat");
+    let h = 0.02e-9;
+    let cir = format!(
+        "* analytic pulse\nI1 0 a PWL({pwl})\n{body}\n.options numdgt=7 reltol=1e-6\n.control\nset wr_singlescale\ntran {h:e} {stop:e} 0 {h:e}\nwrdata {} v(out)\nquit 0\n.endc\n.end\n",
+        out.display()
+    );
+    let file = dir.join("check.cir");
+    std::fs::write(&file, cir).unwrap();
+    let o = Command::new("ngspice")
+        .arg("-b")
+        .arg(&file)
+        .output()
+        .unwrap();
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let text = std::fs::read_to_string(&out).unwrap();
+    let mut w = waveform::Waveform::default();
+    for line in text.lines() {
+        let c: Vec<f64> = line
+            .split_whitespace()
+            .filter_map(|x| x.parse().ok())
+            .collect();
+        if c.len() >= 2 {
+            w.t.push(c[0]);
+            w.v.push(c[1]);
+        }
+    }
+    w
+}
+
+#[test]
+fn rise_of_wide_and_slow_light_pulses_matches_ngspice_on_the_analytic_current() {
+    if !ngspice_available("rise_of_wide_and_slow_light_pulses") {
+        return;
+    }
+    // A 100 ns rectangle and a 230 ns exponential decay (no rise), each convolved with the
+    // tube's Gaussian response (σ = 0.8 ns), into 50 Ω ∥ 30 pF (RC = 1.5 ns). The reference
+    // current is the closed form — rectangle: Q/W·[Φ(t/σ) − Φ((t−W)/σ)]; exponential:
+    // Q/τ·exp(σ²/2τ² − t/τ)·Φ(t/σ − σ/τ) (convolution of a Gaussian with a step and with an
+    // exponential) — sampled every σ/25 by the test itself, so ngspice does not see the
+    // tool's own sampling. Rise and peak within 1 %.
+    let sigma = 0.8e-9;
+    let q = 100e-12;
+    let t0 = 6.0 * sigma;
+    type Current = Box<dyn Fn(f64) -> f64>;
+    let cases: [(&str, Shape, Current, f64); 2] = [
+        (
+            "rect",
+            Shape::Rectangular { width: 100e-9 },
+            Box::new(move |t: f64| {
+                q / 100e-9 * (phi((t - t0) / sigma) - phi((t - t0 - 100e-9) / sigma))
+            }),
+            160e-9,
+        ),
+        (
+            "decay",
+            Shape::Exponential {
+                rise: 0.0,
+                decay: 230e-9,
+            },
+            Box::new(move |t: f64| {
+                let tau = 230e-9;
+                let x = t - t0;
+                q / tau
+                    * (sigma * sigma / (2.0 * tau * tau) - x / tau).exp()
+                    * phi(x / sigma - sigma / tau)
+            }),
+            1.5e-6,
+        ),
+    ];
+    let c = rc_circuit(50.0, 30e-12);
+    for (name, shape, current, stop) in cases {
+        let ours =
+            waveform::simulate(&c, &waveform::convolved_pulse(&shape, sigma, q), 0.0).measure();
+        // Fine points over the leading edge, coarser over the body and tail.
+        let mut pts = Vec::new();
+        let mut t = 0.0;
+        while t < stop {
+            pts.push((t, current(t)));
+            t += if t < t0 + 10.0 * sigma {
+                sigma / 25.0
+            } else {
+                0.5e-9
+            };
+        }
+        let theirs =
+            ngspice_points(name, &pts, "R1 a 0 50\nC1 a 0 30p\nVo a out 0", stop).measure();
+        eprintln!("{name}: dynode {ours:?}\n{name}: ngspice {theirs:?}");
+        let (a, b) = (ours.rise.unwrap(), theirs.rise.unwrap());
+        assert!(rel(a, b) < 0.01, "{name}: rise {a} vs {b}");
+        assert!(
+            rel(ours.peak, theirs.peak) < 0.01,
+            "{name}: peak {} vs {}",
+            ours.peak,
+            theirs.peak
+        );
+    }
+}
+
+#[test]
+fn echo_of_a_capacitive_matched_end_matches_ngspice() {
+    if !ngspice_available("echo_of_a_capacitive_matched_end_matches_ngspice") {
+        return;
+    }
+    // docs/physics.md "Where the signal goes": the far end's Γ(ω) = (Z_L − Z0)/(Z_L + Z0),
+    // Z_L = R/(1 + jωRC), is a high-pass for R = Z0, so a "matched" 50 Ω ∥ 13 pF input still
+    // returns a bipolar echo of the fast edges; the open base end sends it back. ngspice's
+    // lossless line on the same elements gives the reference; the echo's extreme within 2 %
+    // of itself.
+    let c = LoadCircuit {
+        base_resistance: None,
+        anode_capacitance: 15e-12,
+        anode_resistance: None,
+        coupling: None,
+        cable: Some(Line {
+            delay: 25e-9,
+            impedance: 50.0,
+        }),
+        load_resistance: 50.0,
+        load_capacitance: 13e-12,
+    };
+    let pulse = waveform::convolved_pulse(
+        &Shape::Exponential {
+            rise: 0.9e-9,
+            decay: 2.4e-9,
+        },
+        1.2e-9,
+        100e-12,
+    );
+    let ours = waveform::simulate(&c, &pulse, 200e-9);
+    let (t, v) = ngspice_wave(
+        "cap-echo",
+        &pulse,
+        "Ca a 0 15p\nT1 a 0 b 0 Z0=50 TD=25n\nRl b 0 50\nCl b 0 13p\nVo b out 0",
+        200e-9,
+    );
+    let theirs = waveform::Waveform { t, v };
+    let (a, b) = (
+        ours.first_echo(25e-9).expect("a separable echo"),
+        theirs.first_echo(25e-9).expect("a separable echo"),
+    );
+    eprintln!("first echo: dynode {a}, ngspice {b}");
+    assert!(a.abs() > 0.02, "a capacitive end must reflect: {a}");
+    assert!(rel(a, b) < 0.02, "echo {a} vs {b}");
+    // The resistive Γ says nothing comes back.
+    assert!(c.load_reflection().unwrap().abs() < 1e-12);
+}

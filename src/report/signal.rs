@@ -146,18 +146,24 @@ pub fn render_text(out: &mut String, a: &Analysis) {
     let e = &s.estimates;
     let _ = writeln!(
         out,
-        "  peak          {:<12} estimates: I·R = {} (short-pulse limit), Q/C = {} (integrating limit)",
+        "  peak          {:<12} estimates: {} = {} (short-pulse limit), Q/C = {} (integrating limit)",
         eng(p.peak, "V"),
+        e.short_pulse_formula,
         eng(e.i_times_r, "V"),
         eng(e.q_over_c, "V")
     );
     let _ = writeln!(
         out,
-        "  rise 10–90 %  {:<12} estimate: √(current² + (2.197 RC)²) = {} (current alone {}, 2.197 RC = {})",
+        "  rise 10–90 %  {:<12} estimate: √(current² + (2.197 RC)²) = {} (current alone {}, 2.197 RC = {}{})",
         opt_s(p.rise),
         eng(e.rss_rise, "s"),
         opt_s(e.current_rise),
-        eng(e.rc_rise, "s")
+        eng(e.rc_rise, "s"),
+        if c.cable.is_some() {
+            ", each end of the cable its own RC"
+        } else {
+            ""
+        }
     );
     let _ = writeln!(out, "  fall 90–10 %  {}", opt_s(p.fall));
     let _ = writeln!(out, "  FWHM          {}", opt_s(p.fwhm));
@@ -190,12 +196,17 @@ pub fn render_text(out: &mut String, a: &Analysis) {
             out,
             "  cable         ",
             &format!(
-                "{} one way; Γ = (R−Z0)/(R+Z0) is {:+.3} at the load and {:+.3} at the base: echoes every {} at {:.1} % of the pulse each round trip",
+                "{} one way; echoes every {}, the first {:+.1} % of the pulse{}; resistive Γ = (R−Z0)/(R+Z0) is {:+.3} at the load and {:+.3} at the base",
                 eng(ec.delay, "s"),
+                eng(ec.spacing, "s"),
+                ec.first_echo * 100.0 + 0.0,
+                if ec.measured {
+                    " (measured on the computed pulse: a capacitive end reflects the fast edges even where its resistance matches)"
+                } else {
+                    " (the pulse outlasts the round trip, so its echo is part of what the instrument shows: resistive estimate)"
+                },
                 ec.gamma_load + 0.0,
                 ec.gamma_base + 0.0,
-                eng(ec.spacing, "s"),
-                ec.first_echo * 100.0 + 0.0
             ),
         );
     }
@@ -394,6 +405,7 @@ fn budget_json(s: &SignalBudget) -> Value {
             "gamma_base": c.gamma_base,
             "spacing_s": c.spacing,
             "first_echo": c.first_echo,
+            "first_echo_measured": c.measured,
         })),
         "waveform": { "t_s": wf.t, "volts": wf.v },
         "timing": s.timing.map(|t| json!({
