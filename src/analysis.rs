@@ -438,7 +438,7 @@ pub fn analyse_with(
             safety.bleed_case,
             safety::SAFE_SECONDS
         )),
-        None => warnings.push(format!(
+        None if safety.never_bleeds.is_empty() => warnings.push(format!(
             "Some capacitor stays above {:.0} V for over an hour after switch-off ({}).",
             safety::SAFE_VOLTS,
             safety.bleed_case

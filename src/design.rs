@@ -284,6 +284,15 @@ pub enum RawElement {
         volts: Value,
         /// Dynamic resistance above the knee.
         dynamic: Value,
+        /// Power rating of the diode or stack (default 1.3 W, a common small part: from
+        /// memory, give yours).
+        #[serde(default)]
+        power: Option<Value>,
+        /// Leakage below the knee as a current at the breakdown voltage (default: none
+        /// counted for bleed-down, so a capacitor across the gap is taken never to discharge
+        /// through it).
+        #[serde(default)]
+        leakage: Option<Value>,
     },
     /// `count` equal resistors in series (a gap whose voltage exceeds one part's rating).
     Series(i64, Value),
@@ -513,6 +522,9 @@ pub struct Design {
     pub operating_assumed: bool,
     /// Number of equal resistors in series in each gap (1 for a single part; 1 for a Zener).
     pub series_parts: Vec<usize>,
+    /// Per gap, for a Zener: its power rating (W) and its stated leakage below the knee as a
+    /// conductance (S; `None` when not given).
+    pub zener_ratings: Vec<Option<(f64, Option<f64>)>>,
     /// Supply ripple, drift, setting accuracy and the gain stability wanted, if given.
     pub supply_quality: Option<SupplyQuality>,
     /// Supply output resistance (time-domain solve only; the DC solve takes the supply as ideal).
@@ -649,6 +661,10 @@ impl Checker<'_> {
         Ok(x)
     }
 }
+
+/// Power rating assumed for a Zener diode or stack when the design gives none, watts (a
+/// common small part, from memory).
+pub const TYPICAL_ZENER_WATTS: f64 = 1.3;
 
 /// Read, parse and check a design file.
 pub fn load(path: &Path) -> Result<Design, DesignError> {
@@ -1335,6 +1351,7 @@ fn check(raw: RawDesign, file: &str) -> Result<Design, DesignError> {
     }
     let mut elements = Vec::with_capacity(n + 1);
     let mut series_parts = Vec::with_capacity(n + 1);
+    let mut zener_ratings = Vec::with_capacity(n + 1);
     for (i, e) in d.gaps.iter().enumerate() {
         let field = format!("divider.gaps[{i}]");
         series_parts.push(match e {
@@ -1349,6 +1366,9 @@ fn check(raw: RawDesign, file: &str) -> Result<Design, DesignError> {
             }
             _ => 1,
         });
+        if !matches!(e, RawElement::Zener { .. }) {
+            zener_ratings.push(None);
+        }
         elements.push(match e {
             RawElement::Series(count, v) => {
                 let each = c.ranged(&field, v, Kind::Resistance, 1.0, 1e11)?;
@@ -1361,7 +1381,12 @@ fn check(raw: RawDesign, file: &str) -> Result<Design, DesignError> {
                 1.0,
                 1e11,
             )?)),
-            RawElement::Zener { volts, dynamic } => {
+            RawElement::Zener {
+                volts,
+                dynamic,
+                power,
+                leakage,
+            } => {
                 let vz = c.ranged(&format!("{field}.volts"), volts, Kind::Voltage, 1.0, 1e4)?;
                 let rz = c.ranged(
                     &format!("{field}.dynamic"),
@@ -1370,6 +1395,17 @@ fn check(raw: RawDesign, file: &str) -> Result<Design, DesignError> {
                     1e-3,
                     1e7,
                 )?;
+                let watts = match power {
+                    None => TYPICAL_ZENER_WATTS,
+                    Some(v) => c.ranged(&format!("{field}.power"), v, Kind::Power, 1e-3, 1e3)?,
+                };
+                let leak = match leakage {
+                    None => None,
+                    Some(v) => Some(
+                        c.ranged(&format!("{field}.leakage"), v, Kind::Current, 1e-15, 1e-2)? / vz,
+                    ),
+                };
+                zener_ratings.push(Some((watts, leak)));
                 Element::Zener(
                     ElectricPotential::new::<volt>(vz),
                     ElectricalResistance::new::<ohm>(rz),
@@ -1668,6 +1704,7 @@ fn check(raw: RawDesign, file: &str) -> Result<Design, DesignError> {
         anode_current: ElectricCurrent::new::<ampere>(anode_current),
         operating_assumed: raw.operating.is_none(),
         series_parts,
+        zener_ratings,
         supply_quality,
         supply_resistance: supply_resistance.map(ElectricalResistance::new::<ohm>),
         train,

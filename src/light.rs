@@ -255,6 +255,8 @@ pub struct LightSpec {
     pub filter: Option<Curve>,
     /// Steady background.
     pub background: Option<Background>,
+    /// A scintillator's own energy resolution (FWHM fraction), if given.
+    pub intrinsic_resolution: Option<f64>,
 }
 
 /// The built-in emission spectra as photon distributions (key, spectrum, label, provenance).

@@ -12,7 +12,7 @@
 //! codes and licensed practice rule.
 
 use crate::design::{CapStyle, Design, Element, Polarity};
-use crate::network::{OperatingPoint, ZENER_LEAK_SIEMENS};
+use crate::network::OperatingPoint;
 use uom::si::capacitance::farad;
 use uom::si::electric_potential::volt;
 use uom::si::electrical_resistance::ohm;
@@ -81,6 +81,64 @@ pub struct Safety {
     pub shield_touch_amps: Option<f64>,
     /// Cautions particular to this design.
     pub specific: Vec<String>,
+    /// Each named capacitor, and the base's total, judged against the quoted limits.
+    pub verdicts: Vec<Verdict>,
+    /// Capacitors that do not bleed down through the divider (a Zener below its knee with
+    /// no stated leakage, or no resistive path): their labels.
+    pub never_bleeds: Vec<String>,
+    /// Each Zener gap's dissipation at the operating point against its rating:
+    /// (gap number, watts, rating in watts).
+    pub zener_power: Vec<(usize, f64, f64)>,
+}
+
+/// A place judged against the touchable-charge and energy limits (IEC 61010-1 §6.3.1, from
+/// memory): the charge limit applies where the voltage is hazardous-live.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Verdict {
+    /// What is judged.
+    pub place: String,
+    /// Charge, coulombs.
+    pub coulombs: f64,
+    /// Energy, joules.
+    pub joules: f64,
+    /// Whether a limit is exceeded.
+    pub over: bool,
+    /// The clause and limit that decide it.
+    pub clause: String,
+}
+
+fn judge(place: &str, volts: f64, coulombs: f64, joules: f64) -> Verdict {
+    let live = volts > HAZARDOUS_DC_VOLTS;
+    let over_charge = live && coulombs > CHARGE_LIMIT_COULOMBS;
+    let over_energy = joules > ENERGY_LIMIT_JOULES;
+    let clause = if over_energy {
+        format!(
+            "above {:.0} mJ (IEC 61010-1 §6.3.1, from memory)",
+            ENERGY_LIMIT_JOULES * 1e3
+        )
+    } else if over_charge {
+        format!(
+            "above {:.0} µC at a hazardous-live voltage (IEC 61010-1 §6.3.1, from memory)",
+            CHARGE_LIMIT_COULOMBS * 1e6
+        )
+    } else if live {
+        format!(
+            "under {:.0} µC and {:.0} mJ (IEC 61010-1 §6.3.1, from memory)",
+            CHARGE_LIMIT_COULOMBS * 1e6,
+            ENERGY_LIMIT_JOULES * 1e3
+        )
+    } else {
+        format!(
+            "below the {HAZARDOUS_DC_VOLTS:.0} V DC hazardous-live threshold (IEC 61010-1 §6.3.1, from memory)"
+        )
+    };
+    Verdict {
+        place: place.to_string(),
+        coulombs,
+        joules,
+        over: over_charge || over_energy,
+        clause,
+    }
 }
 
 /// Compute the safety figures.
@@ -136,8 +194,14 @@ pub fn assess(design: &Design, op: &OperatingPoint) -> Safety {
     let total_coulombs = caps.iter().map(|c| c.coulombs).sum();
     let total_joules = caps.iter().map(|c| c.joules).sum();
 
-    let connected = bleed_time(design, op, true);
-    let unplugged = bleed_time(design, op, false);
+    let (connected, stuck_connected) = bleed(design, op, true);
+    let (unplugged, stuck_unplugged) = bleed(design, op, false);
+    let mut never_bleeds = stuck_connected;
+    for x in stuck_unplugged {
+        if !never_bleeds.contains(&x) {
+            never_bleeds.push(x);
+        }
+    }
     let (bleed_seconds, bleed_case) = match (connected, unplugged) {
         (Some(a), Some(b)) if a >= b => (Some(a), "supply off, still connected"),
         (Some(_), Some(b)) => (Some(b), "base unplugged from the supply"),
@@ -192,6 +256,41 @@ pub fn assess(design: &Design, op: &OperatingPoint) -> Safety {
                 TOUCH_CURRENT_DC_AMPS * 1e3
             ));
     }
+    for label in &never_bleeds {
+        specific.push(format!(
+            "The {label} has no path to discharge through the divider (a Zener below its knee conducts only its leakage, which the design does not state): it may hold its charge indefinitely after switch-off. Fit a bleeder resistor across it, and discharge and measure it before touching."
+        ));
+    }
+    let mut verdicts: Vec<Verdict> = caps
+        .iter()
+        .map(|c| judge(&c.label, c.volts, c.coulombs, c.joules))
+        .collect();
+    if caps.len() > 1 {
+        verdicts.push(judge(
+            "the base in all (every named capacitor)",
+            vs,
+            total_coulombs,
+            total_joules,
+        ));
+    }
+    let zener_power: Vec<(usize, f64, f64)> = design
+        .zener_ratings
+        .iter()
+        .enumerate()
+        .filter_map(|(j, z)| {
+            z.map(|(rating, _)| (j + 1, op.element_volts[j] * op.element_amps[j], rating))
+        })
+        .collect();
+    for &(g, w, rating) in &zener_power {
+        if w > 0.5 * rating {
+            specific.push(format!(
+                "The Zener on gap {g} dissipates {:.3} W against its {:.2} W rating{}: use a larger part or a stack.",
+                w,
+                rating,
+                if w > rating { " (over it)" } else { " (above half of it, the usual derating)" }
+            ));
+        }
+    }
     Safety {
         supply_volts: vs,
         capacitors: caps,
@@ -201,6 +300,9 @@ pub fn assess(design: &Design, op: &OperatingPoint) -> Safety {
         bleed_case: bleed_case.to_string(),
         shield_touch_amps,
         specific,
+        verdicts,
+        never_bleeds,
+        zener_power,
     }
 }
 
@@ -215,7 +317,17 @@ fn stored(label: String, farads: f64, volts: f64, rating_volts: Option<f64>) -> 
     }
 }
 
-/// Time for the switched-off base to fall below [`SAFE_VOLTS`] everywhere.
+/// Time for the switched-off base to bring every named capacitor below [`SAFE_VOLTS`]
+/// (`None` when some capacitor never gets there within the horizon).
+pub fn bleed_time(design: &Design, op: &OperatingPoint, connected: bool) -> Option<f64> {
+    bleed(design, op, connected).0
+}
+
+/// As [`bleed_time`], with the labels of the capacitors that stay above [`SAFE_VOLTS`].
+///
+/// Only the capacitors the design names (decoupling, coupling, supply output) count: the
+/// strays hold picocoulombs, and an electrode with nothing but its stray capacitance is not a
+/// stored-charge hazard. A Zener below its knee conducts its stated leakage, or nothing.
 ///
 /// Nodes: 0 = K, 1..=n = dynodes, n+1 = return rail, n+2 = anode. Potentials relative to K.
 /// The divider elements are resistors (Zeners conduct only above their knee); every gap carries
@@ -223,7 +335,7 @@ fn stored(label: String, farads: f64, volts: f64, rating_volts: Option<f64>) -> 
 /// through its DC resistance; `connected` adds the supply's output capacitance between K and the
 /// return rail. One node is held at zero as the reference: the return rail for a cathode-negative
 /// supply (it is ground), the cathode for an anode-positive one.
-pub fn bleed_time(design: &Design, op: &OperatingPoint, connected: bool) -> Option<f64> {
+fn bleed(design: &Design, op: &OperatingPoint, connected: bool) -> (Option<f64>, Vec<String>) {
     let n = design.tube.stages;
     let vs = design.supply_magnitude();
     let nodes = n + 3;
@@ -245,22 +357,42 @@ pub fn bleed_time(design: &Design, op: &OperatingPoint, connected: bool) -> Opti
         caps.push((j, j + 1, stray));
     }
     caps.push((n, anode, stray));
+    // The named capacitors, the ones that can hold a dangerous charge: (a, b, label).
+    let mut named: Vec<(usize, usize, String)> = Vec::new();
     for d in &design.decoupling {
         let c = d.value.get::<farad>();
-        match d.style {
+        let (a, b, label) = match d.style {
             CapStyle::Across(g) => {
                 let top = if g == n + 1 { rail } else { g };
-                caps.push((g - 1, top, c));
+                (
+                    g - 1,
+                    top,
+                    format!("decoupling across gap {g} ({})", design.gap_label(g - 1)),
+                )
             }
-            CapStyle::ToReturn(k) => caps.push((k, rail, c)),
-        }
+            CapStyle::ToReturn(k) => (
+                k,
+                rail,
+                format!(
+                    "decoupling D{k} to {}",
+                    match design.polarity {
+                        Polarity::CathodeNegative => "ground",
+                        Polarity::AnodePositive => "+HV",
+                    }
+                ),
+            ),
+        };
+        caps.push((a, b, c));
+        named.push((a, b, label));
     }
     if let Some((c, _)) = design.coupling {
         // The load's resistance in series is small beside the anode resistor: ignored.
         caps.push((anode, ground, c.get::<farad>()));
+        named.push((anode, ground, "coupling, anode to load".to_string()));
     }
     if connected && let Some(c) = design.supply_capacitance {
         caps.push((0, rail, c.get::<farad>()));
+        named.push((0, rail, "supply output".to_string()));
     }
     // Resistive elements (a, b, element) for the divider, plus the anode resistance.
     let ra = design.anode_dc_resistance().get::<ohm>();
@@ -268,6 +400,17 @@ pub fn bleed_time(design: &Design, op: &OperatingPoint, connected: bool) -> Opti
         .map(|j| {
             let top = if j == n { rail } else { j + 1 };
             (j, top, design.elements[j])
+        })
+        .collect();
+    // A Zener below its knee conducts only its stated leakage (by its bottom node).
+    let leak: Vec<Option<f64>> = (0..nodes)
+        .map(|j| {
+            design
+                .zener_ratings
+                .get(j)
+                .copied()
+                .flatten()
+                .and_then(|(_, g)| g)
         })
         .collect();
     // Unknown nodes: all but the ground node.
@@ -281,19 +424,14 @@ pub fn bleed_time(design: &Design, op: &OperatingPoint, connected: bool) -> Opti
         })
         .collect();
     let m = nodes - 1;
-    let rel = |v: &[f64], i: usize| v[i] - v[ground];
     let hazard = |v: &[f64]| -> f64 {
-        let mut worst: f64 = 0.0;
-        for i in 0..nodes {
-            worst = worst.max(rel(v, i).abs());
-        }
-        for &(a, b, _) in &caps {
-            worst = worst.max((v[a] - v[b]).abs());
-        }
-        worst
+        named
+            .iter()
+            .map(|&(a, b, _)| (v[a] - v[b]).abs())
+            .fold(0.0, f64::max)
     };
     if hazard(&v) < SAFE_VOLTS {
-        return Some(0.0);
+        return (Some(0.0), Vec::new());
     }
     // Shift so that ground is zero.
     let g0 = v[ground];
@@ -351,15 +489,15 @@ pub fn bleed_time(design: &Design, op: &OperatingPoint, connected: bool) -> Opti
                         if let Some(j) = idx[q] {
                             b[j] += vz * g;
                         }
-                    } else {
-                        stamp(p, q, ZENER_LEAK_SIEMENS, &mut a);
+                    } else if let Some(g) = leak[p] {
+                        stamp(p, q, g, &mut a);
                     }
                 }
             }
         }
         stamp(anode, rail, 1.0 / ra, &mut a);
         if !dense_solve(&mut a, &mut b, m) {
-            return None;
+            return (None, Vec::new());
         }
         for i in 0..nodes {
             v[i] = idx[i].map_or(0.0, |k| b[k]);
@@ -369,12 +507,17 @@ pub fn bleed_time(design: &Design, op: &OperatingPoint, connected: bool) -> Opti
         if h < SAFE_VOLTS {
             // Interpolate in log of the hazard voltage within the last step.
             let f = ((prev_hazard / SAFE_VOLTS).ln() / (prev_hazard / h).ln()).clamp(0.0, 1.0);
-            return Some(t - dt + f * dt);
+            return (Some(t - dt + f * dt), Vec::new());
         }
         prev_hazard = h;
         dt = (t * 0.003).max(1e-12);
     }
-    None
+    let stuck = named
+        .iter()
+        .filter(|&&(a, b, _)| (v[a] - v[b]).abs() >= SAFE_VOLTS)
+        .map(|(_, _, l)| l.clone())
+        .collect();
+    (None, stuck)
 }
 
 /// Dense Gaussian elimination with partial pivoting; false when singular.

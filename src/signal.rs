@@ -42,6 +42,10 @@ pub const GAUSS_RISE_PER_SIGMA: f64 = 1.686_922_4;
 pub const RISE_BW_SINGLE_POLE: f64 = 0.349_699;
 /// Rise × bandwidth of a Gaussian response (computed; the value in the project's reference checks).
 pub const RISE_BW_GAUSSIAN: f64 = 0.3396;
+/// Discriminator threshold for photon counting as a fraction of the single-photoelectron
+/// pulse, when the design gives none (a quarter of a photoelectron: common practice).
+pub const COUNTING_THRESHOLD: f64 = 0.25;
+
 /// Default timing threshold as a fraction of the mean pulse (a choice of this tool).
 pub const DEFAULT_THRESHOLD_FRACTION: f64 = 0.2;
 /// Photodiode capacitance assumed for the alternative (a small-area PIN diode under bias plus
@@ -124,6 +128,8 @@ pub struct Readability {
     pub displayed_rise: Option<f64>,
     /// Noise figures.
     pub noise: Noise,
+    /// Photon counting: the fraction of single photoelectrons above the threshold.
+    pub threshold_efficiency: Option<f64>,
 }
 
 /// Analytic estimates beside the computed pulse.
@@ -166,6 +172,32 @@ pub struct Echoes {
     pub first_echo: f64,
     /// Whether `first_echo` was measured on the waveform (else the resistive product).
     pub measured: bool,
+}
+
+/// Energy resolution of a scintillation counter, FWHM as fractions of the peak's position:
+/// `R² = R_stat² + R_intr²` with `R_stat = 2.355 √(F / N_pe)` (Poisson statistics of the
+/// photoelectrons, widened by the chain's excess noise factor; docs/physics.md).
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct EnergyResolution {
+    /// Statistical term.
+    pub statistical: f64,
+    /// The scintillator's own term, as the design gives it.
+    pub intrinsic: Option<f64>,
+    /// Both in quadrature.
+    pub total: f64,
+}
+
+/// The energy resolution for `npe` photoelectrons, excess noise factor `f` and an intrinsic
+/// term; `None` without photoelectrons.
+pub fn energy_resolution(npe: f64, f: f64, intrinsic: Option<f64>) -> Option<EnergyResolution> {
+    (npe > 0.0).then(|| {
+        let statistical = FWHM_PER_SIGMA * (f / npe).sqrt();
+        EnergyResolution {
+            statistical,
+            intrinsic,
+            total: rss(&[statistical, intrinsic.unwrap_or(0.0)]),
+        }
+    })
 }
 
 /// Timing figures.
@@ -307,6 +339,8 @@ pub struct SignalBudget {
     pub readable: Option<Readability>,
     /// Timing.
     pub timing: Option<Timing>,
+    /// Energy resolution of a scintillation counter (FWHM fractions), with a scintillator.
+    pub energy_resolution: Option<EnergyResolution>,
     /// Average anode current from the pulses at the rate, A.
     pub average_anode_amps: Option<f64>,
     /// Background light.
@@ -638,14 +672,13 @@ pub fn judge(
     if let Some(n) = photoelectrons {
         let p0 = (-n).exp();
         if p0 > 0.5 {
-            bump(
-                Verdict::Marginal,
-                format!(
-                    "with {n:.2} photoelectrons per pulse, {:.0} % of pulses give none: count single photoelectrons rather than read amplitudes",
-                    p0 * 100.0
-                ),
-                &mut reasons,
-            );
+            // Photon counting: the job is to see single photoelectrons, judged on the
+            // single-photoelectron pulse above (and its threshold efficiency, added by the
+            // caller that knows the chain's statistics), not on the mean pulse.
+            reasons.push(format!(
+                "with {n:.2} photoelectrons per pulse, {:.0} % of pulses give none: this is photon counting, judged on the single-photoelectron pulse",
+                p0 * 100.0
+            ));
         }
     }
     Readability {
@@ -654,7 +687,91 @@ pub fn judge(
         snr: snr.min(1e12),
         displayed_rise,
         noise,
+        threshold_efficiency: None,
     }
+}
+
+/// Fraction of single photoelectrons whose charge exceeds `fraction` of the mean, for a gamma
+/// (Polya) distribution of relative variance `f − 1` (the chain's excess noise factor; the
+/// model of docs/physics.md "Photon counting", from memory): `Q(k, k·fraction)` with
+/// `k = 1/(f − 1)`, the regularised upper incomplete gamma function.
+pub fn threshold_efficiency(fraction: f64, f: f64) -> f64 {
+    let var = (f - 1.0).max(1e-6);
+    let k = 1.0 / var;
+    upper_gamma_regularised(k, k * fraction.max(0.0))
+}
+
+/// `Q(a, x) = Γ(a, x)/Γ(a)` by the power series of `P` below `x < a + 1` and the continued
+/// fraction of `Q` above (the standard pair for the incomplete gamma function, with the
+/// modified Lentz evaluation), to about 1e-14.
+fn upper_gamma_regularised(a: f64, x: f64) -> f64 {
+    if x <= 0.0 {
+        return 1.0;
+    }
+    let ln_prefix = a * x.ln() - x - ln_gamma(a);
+    if x < a + 1.0 {
+        let (mut term, mut sum, mut ap) = (1.0 / a, 1.0 / a, a);
+        for _ in 0..10_000 {
+            ap += 1.0;
+            term *= x / ap;
+            sum += term;
+            if term.abs() < sum.abs() * 1e-15 {
+                break;
+            }
+        }
+        (1.0 - sum * ln_prefix.exp()).clamp(0.0, 1.0)
+    } else {
+        let tiny = 1e-300;
+        let mut b = x + 1.0 - a;
+        let mut c = 1.0 / tiny;
+        let mut d = 1.0 / b;
+        let mut h = d;
+        for i in 1..10_000 {
+            let an = -(i as f64) * (i as f64 - a);
+            b += 2.0;
+            d = an * d + b;
+            if d.abs() < tiny {
+                d = tiny;
+            }
+            c = b + an / c;
+            if c.abs() < tiny {
+                c = tiny;
+            }
+            d = 1.0 / d;
+            let del = d * c;
+            h *= del;
+            if (del - 1.0).abs() < 1e-15 {
+                break;
+            }
+        }
+        (ln_prefix.exp() * h).clamp(0.0, 1.0)
+    }
+}
+
+/// ln Γ(x) for x > 0 by the Lanczos approximation (g = 7, nine terms; about 1e-15).
+fn ln_gamma(x: f64) -> f64 {
+    const G: [f64; 9] = [
+        0.999_999_999_999_809_9,
+        676.520_368_121_885_1,
+        -1_259.139_216_722_402_8,
+        771.323_428_777_653_1,
+        -176.615_029_162_140_6,
+        12.507_343_278_686_905,
+        -0.138_571_095_265_720_12,
+        9.984_369_578_019_572e-6,
+        1.505_632_735_149_311_6e-7,
+    ];
+    if x < 0.5 {
+        let pi = std::f64::consts::PI;
+        return (pi / (pi * x).sin()).ln() - ln_gamma(1.0 - x);
+    }
+    let x = x - 1.0;
+    let t = x + 7.5;
+    let s = G[1..]
+        .iter()
+        .enumerate()
+        .fold(G[0], |acc, (i, g)| acc + g / (x + i as f64 + 1.0));
+    0.5 * (2.0 * std::f64::consts::PI).ln() + (x + 0.5) * t.ln() - t + s.ln()
 }
 
 /// Baseline noise at the instrument for a load circuit.
@@ -955,9 +1072,28 @@ pub fn budget(design: &Design, chain: &Chain) -> Option<SignalBudget> {
             echoes,
             Some(single_volts),
         );
-        if spread > 0.3 {
+        if npe > 0.0 && npe < 1.0 && single_volts > 0.0 {
+            // The discriminator: the design's timing threshold, or a quarter of a
+            // photoelectron (common practice for counting).
+            let thr = ro.threshold.unwrap_or(COUNTING_THRESHOLD * single_volts);
+            let eff = threshold_efficiency(thr / single_volts, f);
+            j.threshold_efficiency = Some(eff);
+            let words = format!(
+                "{:.1} % of single photoelectrons clear a {} threshold ({:.2} of a photoelectron; gamma-shaped single-photoelectron spectrum with relative variance F − 1 = {:.3})",
+                eff * 100.0,
+                eng(thr, "V"),
+                thr / single_volts,
+                f - 1.0
+            );
+            if eff < 0.5 {
+                j.verdict = j.verdict.max(Verdict::NotReadable);
+            } else if eff < 0.9 {
+                j.verdict = j.verdict.max(Verdict::Marginal);
+            }
+            j.reasons.push(words);
+        } else if spread > 0.3 {
             j.reasons.push(format!(
-                "pulse heights spread ±{:.0} % rms from photoelectron statistics (√(F/N) with F = {f:.3})",
+                "charge per pulse spreads ±{:.0} % rms from photoelectron statistics (√(F/N) with F = {f:.3})",
                 spread * 100.0
             ));
         }
@@ -1079,6 +1215,9 @@ pub fn budget(design: &Design, chain: &Chain) -> Option<SignalBudget> {
         echoes,
         readable,
         timing,
+        energy_resolution: (l.kind == light::SourceKind::Scintillator)
+            .then(|| energy_resolution(npe, f, l.intrinsic_resolution))
+            .flatten(),
         average_anode_amps: average,
         background,
         photodiode,

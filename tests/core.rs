@@ -246,3 +246,68 @@ fn linearity_is_output_against_light_with_its_ceiling() {
         );
     }
 }
+
+#[test]
+fn a_capacitor_across_a_zener_gap_never_bleeds_down_through_the_divider() {
+    // A Zener below its knee conducts only its leakage; with none stated, a capacitor across
+    // the Zener gap has no discharge path through the divider (Kirchhoff: its only companions
+    // are the Zener and the strays) and must be reported so, never given an invented time.
+    let text = equal_design(10, 1500.0, "1M", 0.75)
+        .replace(
+            "divider: (gaps: [R(\"1M\"),",
+            "divider: (decoupling: [Across(gap: 1, value: \"10 nF\", rating: Some(\"500 V\"))], gaps: [Zener(volts: \"200 V\", dynamic: \"20 ohm\"),",
+        );
+    let d = design::parse_str(&text, "z.ron").unwrap();
+    let a = dynode::analysis::analyse(&d).unwrap();
+    assert_eq!(a.safety.bleed_seconds, None);
+    assert_eq!(
+        a.safety.never_bleeds,
+        vec!["decoupling across gap 1 (K–D1)".to_string()]
+    );
+    // With a stated leakage (1 µA at 200 V: 5e-9 S) it bleeds, as R C ln(V0/60 V) with the
+    // leakage's resistance (first-order discharge) once the divider side has gone.
+    let leaky = text.replace(
+        "dynamic: \"20 ohm\")",
+        "dynamic: \"20 ohm\", leakage: Some(\"1 uA\"))",
+    );
+    let d = design::parse_str(&leaky, "z.ron").unwrap();
+    let a = dynode::analysis::analyse(&d).unwrap();
+    assert!(a.safety.never_bleeds.is_empty());
+    let t = a
+        .safety
+        .bleed_seconds
+        .expect("bleeds through the stated leakage");
+    let v0 = a.op.element_volts[0];
+    let expect = 2e8 * 10e-9 * (v0 / 60.0).ln();
+    assert!(rel(t, expect) < 0.05, "{t} vs {expect}");
+}
+
+#[test]
+fn stored_charge_and_energy_are_judged_against_the_quoted_limits() {
+    // IEC 61010-1 §6.3.1 (from memory): 45 µC touchable charge at a hazardous-live voltage,
+    // 350 mJ. A 1 µF supply output at 1.7 kV holds 1.7 mC and 1.445 J: over both. Q = C V and
+    // E = C V²/2 (definitions).
+    let text = equal_design(10, 1700.0, "1M", 0.75).replace(
+        "polarity: CathodeNegative)",
+        "polarity: CathodeNegative, output_capacitance: Some(\"1 uF\"))",
+    );
+    let d = design::parse_str(&text, "big.ron").unwrap();
+    let a = dynode::analysis::analyse(&d).unwrap();
+    let v = a
+        .safety
+        .verdicts
+        .iter()
+        .find(|v| v.place == "supply output")
+        .expect("the supply output is judged");
+    assert!(rel(v.coulombs, 1.7e-3) < 1e-12 && rel(v.joules, 1.445) < 1e-12);
+    assert!(v.over, "{v:?}");
+    assert!(v.clause.contains("350 mJ"));
+    // A 4.7 nF decoupling capacitor at 90 V holds 0.42 µC: within.
+    let small = equal_design(10, 1000.0, "1M", 0.75).replace(
+        "divider: (gaps:",
+        "divider: (decoupling: [Across(gap: 11, value: \"4.7 nF\", rating: Some(\"500 V\"))], gaps:",
+    );
+    let d = design::parse_str(&small, "small.ron").unwrap();
+    let a = dynode::analysis::analyse(&d).unwrap();
+    assert!(a.safety.verdicts.iter().all(|v| !v.over));
+}

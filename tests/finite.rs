@@ -28,6 +28,10 @@ pub const NULLABLE: &[&str] = &[
     "peak_over_amps",
     "stopped",
     "ceiling_amps",
+    // report: signal (a scintillator only)
+    "energy_resolution_fwhm",
+    "readable.threshold_efficiency",
+    "energy_resolution_statistical_fwhm",
     // report: safety
     "capacitors[].rating_volts",
     "bleed_seconds",

@@ -597,3 +597,44 @@ fn echo_of_a_capacitive_matched_end_matches_ngspice() {
     // The resistive Γ says nothing comes back.
     assert!(c.load_reflection().unwrap().abs() < 1e-12);
 }
+
+#[test]
+fn energy_resolution_statistical_term_is_poisson() {
+    // docs/physics.md "Energy resolution": R_stat = 2.355·√(F/N) (Poisson statistics of the
+    // photoelectrons with the chain's excess noise factor); N = 500, F = 1.2 → 11.54 % FWHM
+    // (shared reference values, computed). The intrinsic term adds in quadrature.
+    let e = signal::energy_resolution(500.0, 1.2, None).unwrap();
+    assert!((e.statistical - 0.1154).abs() < 5e-5, "{}", e.statistical);
+    let with = signal::energy_resolution(500.0, 1.2, Some(0.05)).unwrap();
+    assert!(rel(with.total, (0.1154f64.powi(2) + 0.05f64.powi(2)).sqrt()) < 1e-3);
+    assert!(signal::energy_resolution(0.0, 1.2, None).is_none());
+}
+
+#[test]
+fn threshold_efficiency_of_a_gamma_spectrum_has_its_closed_forms() {
+    // For integer shape k the regularised upper incomplete gamma function has closed forms
+    // (Erlang distribution): k = 1 (F = 2, exponential single-photoelectron spectrum)
+    // Q = e^(−x); k = 2 (F = 1.5) Q = (1 + x) e^(−x) with x = k·threshold.
+    for t in [0.1, 0.25, 0.5, 1.0, 2.0] {
+        let one = signal::threshold_efficiency(t, 2.0);
+        assert!((one - (-t).exp()).abs() < 1e-12, "k=1 at {t}: {one}");
+        let x = 2.0 * t;
+        let two = signal::threshold_efficiency(t, 1.5);
+        assert!(
+            (two - (1.0 + x) * (-x).exp()).abs() < 1e-12,
+            "k=2 at {t}: {two}"
+        );
+    }
+    // k = 6 (F = 1 + 1/6), threshold 0.25: Q = e^(−1.5) Σ_{i<6} 1.5^i / i!.
+    let x: f64 = 1.5;
+    let mut sum = 0.0;
+    let mut term = 1.0;
+    for i in 0..6 {
+        if i > 0 {
+            term *= x / i as f64;
+        }
+        sum += term;
+    }
+    let q = signal::threshold_efficiency(0.25, 1.0 + 1.0 / 6.0);
+    assert!((q - (-x).exp() * sum).abs() < 1e-12, "{q}");
+}

@@ -146,6 +146,9 @@ pub enum RawSource {
         /// Rise time constant (default 0).
         #[serde(default)]
         rise: Option<Value>,
+        /// The scintillator's own energy resolution, FWHM (its intrinsic term; default none).
+        #[serde(default)]
+        resolution: Option<Value>,
     },
 }
 
@@ -497,6 +500,7 @@ fn check_light(c: &Checker, l: &RawLight) -> Result<LightSpec, DesignError> {
             }
         }
     };
+    let mut intrinsic = None;
     let shape_of = |field: &str, s: Option<RawShape>, default: RawShape, w: &Value| {
         let width = c.ranged(field, w, Kind::Time, 1e-12, 1e-2)?;
         Ok::<Shape, DesignError>(match s.unwrap_or(default) {
@@ -556,7 +560,21 @@ fn check_light(c: &Checker, l: &RawLight) -> Result<LightSpec, DesignError> {
             deposited_mev,
             decay,
             rise,
+            resolution,
         } => {
+            intrinsic = match resolution {
+                None => None,
+                Some(v) => {
+                    let x = c.quantity("light.source.resolution", v, Kind::Ratio)?;
+                    if !(x > 0.0 && x < 1.0) {
+                        return Err(c.fail(
+                            "light.source.resolution",
+                            format!("expected a FWHM fraction between 0 and 100 % such as \"4 %\", found {v}"),
+                        ));
+                    }
+                    Some(x)
+                }
+            };
             let (spectrum, name) = match emission {
                 RawEmission::Plastic => {
                     let (s, label, _) = light::builtin_emission("plastic").ok_or_else(|| {
@@ -667,6 +685,7 @@ fn check_light(c: &Checker, l: &RawLight) -> Result<LightSpec, DesignError> {
         }
     };
     Ok(LightSpec {
+        intrinsic_resolution: intrinsic,
         kind,
         label,
         spectrum,

@@ -123,10 +123,25 @@ pub fn render_text(out: &mut String, a: &Analysis) {
     );
     let _ = writeln!(
         out,
-        "  amplitude spread      ±{:.2} % rms pulse to pulse (√(F/N), F = {:.3} from the stage gains)",
+        "  charge spread         ±{:.2} % rms pulse to pulse (√(F/N), F = {:.3} from the stage gains; the heights spread as much where the pulse shape does not vary)",
         s.amplitude_spread * 100.0,
         s.excess_noise
     );
+    if let Some(e) = s.energy_resolution {
+        let _ = writeln!(
+            out,
+            "  energy resolution     {:.1} % FWHM ({})",
+            e.total * 100.0,
+            match e.intrinsic {
+                Some(i) => format!(
+                    "statistical 2.355·√(F/N) = {:.1} % with the scintillator's own {:.1} % in quadrature",
+                    e.statistical * 100.0,
+                    i * 100.0
+                ),
+                None => "statistical term 2.355·√(F/N) alone; give light.source.resolution for the scintillator's own".to_string(),
+            }
+        );
+    }
     let _ = writeln!(out);
 
     let c = &s.circuit;
@@ -390,6 +405,8 @@ fn budget_json(s: &SignalBudget) -> Value {
         "p_at_least_one_pe": s.p_at_least_one,
         "excess_noise_factor": s.excess_noise,
         "amplitude_spread": s.amplitude_spread,
+        "energy_resolution_fwhm": s.energy_resolution.map(|e| e.total),
+        "energy_resolution_statistical_fwhm": s.energy_resolution.map(|e| e.statistical),
         "estimates": {
             "i_times_r_volts": e.i_times_r,
             "q_over_c_volts": e.q_over_c,
@@ -474,6 +491,7 @@ pub fn add_json(v: &mut Value, a: &Analysis) {
                     "verdict": r.verdict.as_str(),
                     "reasons": r.reasons,
                     "snr": r.snr,
+                    "threshold_efficiency": r.threshold_efficiency,
                     "range": {
                         "volts": r.noise.range,
                         "per_division": r.noise.per_division,

@@ -295,14 +295,49 @@ pub fn render(a: &Analysis) -> String {
         safety::CHARGE_LIMIT_COULOMBS * 1e6,
         safety::ENERGY_LIMIT_JOULES * 1e3
     );
-    let _ = writeln!(
-        out,
-        "  bleed-down to {:.0} V after switch-off: {} (worst case: {}; threshold IEC 60204-1 §6.2.4, from memory)",
-        safety::SAFE_VOLTS,
-        s.bleed_seconds
-            .map_or_else(|| "over an hour".to_string(), |t| eng(t, "s")),
-        s.bleed_case
-    );
+    if s.never_bleeds.is_empty() {
+        let _ = writeln!(
+            out,
+            "  bleed-down to {:.0} V after switch-off: {} (worst case: {}; threshold IEC 60204-1 §6.2.4, from memory)",
+            safety::SAFE_VOLTS,
+            s.bleed_seconds
+                .map_or_else(|| "over an hour".to_string(), |t| eng(t, "s")),
+            s.bleed_case
+        );
+    } else {
+        wrap(
+            &mut out,
+            "  bleed-down         ",
+            &format!(
+                "NEVER through the divider for the {}: nothing discharges it below {:.0} V (fit a bleeder resistor)",
+                s.never_bleeds.join(", the "),
+                safety::SAFE_VOLTS
+            ),
+        );
+    }
+    for v in &s.verdicts {
+        wrap(
+            &mut out,
+            "  judged             ",
+            &format!(
+                "{}: {}, {}: {} {}",
+                v.place,
+                eng(v.coulombs, "C"),
+                eng(v.joules, "J"),
+                if v.over { "OVER," } else { "within," },
+                v.clause
+            ),
+        );
+    }
+    for &(g, w, rating) in &s.zener_power {
+        let _ = writeln!(
+            out,
+            "  Zener on gap {g}: {} of its {} rating{}",
+            eng(w, "W"),
+            eng(rating, "W"),
+            if w > rating { "  OVER" } else { "" }
+        );
+    }
     if let Some(i) = s.shield_touch_amps {
         let _ = writeln!(
             out,
