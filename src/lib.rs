@@ -29,6 +29,7 @@ pub mod sizing;
 pub mod spread;
 pub mod stability;
 pub mod sweep;
+pub mod timing;
 pub mod train;
 pub mod transient;
 pub mod tube;

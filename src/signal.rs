@@ -46,6 +46,10 @@ pub const RISE_BW_GAUSSIAN: f64 = 0.3396;
 /// pulse, when the design gives none (a quarter of a photoelectron: common practice).
 pub const COUNTING_THRESHOLD: f64 = 0.25;
 
+/// Constant fraction of the pulse's own peak for the constant-fraction timing (a common
+/// setting; a choice of this tool).
+pub const CFD_FRACTION: f64 = 0.2;
+
 /// Default timing threshold as a fraction of the mean pulse (a choice of this tool).
 pub const DEFAULT_THRESHOLD_FRACTION: f64 = 0.2;
 /// Photodiode capacitance assumed for the alternative (a small-area PIN diode under bias plus
@@ -207,8 +211,15 @@ pub struct Timing {
     pub threshold: f64,
     /// Noise-driven jitter `σ_v / slope`, s.
     pub noise_jitter: Option<f64>,
-    /// Photon-statistics spread, s.
+    /// Photon-statistics spread of the leading edge, s: the Monte Carlo of photoelectron
+    /// arrivals ([`crate::timing`]), or the centroid estimate where it could not run.
     pub photon_jitter: f64,
+    /// The centroid estimate `√(σ_TTS² + σ_light²)/√N`, s (beside it for comparison).
+    pub centroid_jitter: f64,
+    /// Constant-fraction timing spread from the same Monte Carlo, with the noise, s.
+    pub cfd_jitter: Option<f64>,
+    /// Whether `photon_jitter` comes from the Monte Carlo.
+    pub from_monte_carlo: bool,
     /// Both in quadrature, s.
     pub total_jitter: Option<f64>,
     /// Walk between the smallest and largest expected pulse, s.
@@ -1116,8 +1127,28 @@ pub fn budget(design: &Design, chain: &Chain) -> Option<SignalBudget> {
         let noise_total = readable.as_ref().map(|x| x.noise.total);
         let slope = w.slope_at_first_crossing(threshold / k).map(|x| x * k);
         let noise_jitter = noise_total.zip(slope).map(|(n, s)| n / s);
-        let photon_jitter =
+        let centroid_jitter =
             (sigma_tts * sigma_tts + light_sigma(&l.shape).powi(2)).sqrt() / npe.max(1.0).sqrt();
+        // One photoelectron's pulse at the instrument, through the same circuit.
+        let one = waveform::simulate(&c, &single, 0.0);
+        let mc = crate::timing::monte_carlo(&crate::timing::TimingInput {
+            shape: &l.shape,
+            photoelectrons: npe,
+            sigma_tts,
+            excess_noise: f,
+            response: &one,
+            response_delay: 6.0 * sigma_ser,
+            threshold,
+            fraction: CFD_FRACTION,
+            trials: crate::timing::TRIALS,
+            seed: 1,
+        });
+        let photon_jitter = mc.map_or(centroid_jitter, |m| m.leading_edge);
+        // The constant-fraction point's noise jitter: noise over the slope there.
+        let cfd_noise = noise_total
+            .zip(w.slope_at_first_crossing(CFD_FRACTION * pulse.peak))
+            .map(|(n, s)| n / s);
+        let cfd_jitter = mc.map(|m| rss(&[m.constant_fraction, cfd_noise.unwrap_or(0.0)]));
         let lo = base * (1.0 - 2.0 * s).max(0.25);
         let hi = base * (1.0 + 2.0 * s);
         // A pulse of height A crosses `th` where the computed pulse crosses `th · peak / A`.
@@ -1132,6 +1163,9 @@ pub fn budget(design: &Design, chain: &Chain) -> Option<SignalBudget> {
             threshold,
             noise_jitter,
             photon_jitter,
+            centroid_jitter,
+            cfd_jitter,
+            from_monte_carlo: mc.is_some(),
             total_jitter: noise_jitter.map(|n| rss(&[n, photon_jitter])),
             walk,
             walk_range: (lo, hi),

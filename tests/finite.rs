@@ -87,6 +87,7 @@ pub const NULLABLE: &[&str] = &[
     "echoes",
     "timing",
     "noise_jitter_s",
+    "cfd_jitter_s",
     "total_jitter_s",
     "walk_s",
     "average_anode_amps",

@@ -258,13 +258,34 @@ pub fn render_text(out: &mut String, a: &Analysis) {
                 (None, false) => "— (needs a readout)".to_string(),
             }
         );
-        let _ = writeln!(
-            out,
-            "  photon statistics   {} (estimate: √(σ_TTS² + σ_light²) / √N_pe)",
-            eng(t.photon_jitter, "s")
-        );
+        if t.from_monte_carlo {
+            wrap(
+                out,
+                "  photon statistics   ",
+                &format!(
+                    "{} (Monte Carlo of photoelectron arrivals, charges and the tube's response through this load, {} trials; the centroid estimate √(σ_TTS² + σ_light²)/√N would say {})",
+                    eng(t.photon_jitter, "s"),
+                    crate::timing::TRIALS,
+                    eng(t.centroid_jitter, "s")
+                ),
+            );
+        } else {
+            let _ = writeln!(
+                out,
+                "  photon statistics   {} (estimate: √(σ_TTS² + σ_light²) / √N_pe)",
+                eng(t.photon_jitter, "s")
+            );
+        }
         if let Some(j) = t.total_jitter {
             let _ = writeln!(out, "  total               {} rms", eng(j, "s"));
+        }
+        if let Some(j) = t.cfd_jitter {
+            let _ = writeln!(
+                out,
+                "  constant fraction   {} rms at {:.0} % of each pulse's own peak (no amplitude walk)",
+                eng(j, "s"),
+                crate::signal::CFD_FRACTION * 100.0
+            );
         }
         let _ = writeln!(
             out,
@@ -429,6 +450,8 @@ fn budget_json(s: &SignalBudget) -> Value {
             "threshold_volts": t.threshold,
             "noise_jitter_s": t.noise_jitter,
             "photon_jitter_s": t.photon_jitter,
+            "photon_jitter_centroid_s": t.centroid_jitter,
+            "cfd_jitter_s": t.cfd_jitter,
             "total_jitter_s": t.total_jitter,
             "walk_s": t.walk,
             "walk_range_volts": [t.walk_range.0, t.walk_range.1],
