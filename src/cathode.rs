@@ -13,14 +13,7 @@
 
 use std::sync::OnceLock;
 
-/// Planck constant, J s (exact in the 2019 SI; CODATA 2018).
-pub const PLANCK: f64 = 6.626_070_15e-34;
-/// Speed of light in vacuum, m/s (exact).
-pub const LIGHT_SPEED: f64 = 299_792_458.0;
-/// Elementary charge, C (exact in the 2019 SI).
-pub const ELEMENTARY_CHARGE: f64 = 1.602_176_634e-19;
-/// Boltzmann constant, J/K (exact in the 2019 SI).
-pub const BOLTZMANN: f64 = 1.380_649e-23;
+pub use crate::constants::{BOLTZMANN, ELEMENTARY_CHARGE, LIGHT_SPEED, PLANCK};
 
 /// `h c / e` in nm·W/A (= 1239.8419843…).
 pub fn hc_over_e_nm() -> f64 {

@@ -13,6 +13,7 @@
 
 pub mod analysis;
 pub mod cathode;
+pub mod constants;
 pub mod design;
 pub mod eseries;
 pub mod light;

@@ -53,8 +53,7 @@ use uom::si::electric_potential::volt;
 use uom::si::electrical_resistance::ohm;
 use uom::si::power::watt;
 
-/// Elementary charge, coulombs (CODATA 2018, exact in the 2019 SI).
-pub const ELEMENTARY_CHARGE: f64 = 1.602_176_634e-19;
+pub use crate::constants::ELEMENTARY_CHARGE;
 /// Fraction of the allowed deviation the bisection aims at, keeping the rest for snapping.
 pub const DEVIATION_MARGIN: f64 = 0.85;
 /// Default power derating: parts run at no more than half their rated power (common practice).

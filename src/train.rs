@@ -21,8 +21,7 @@ use serde::Deserialize;
 use crate::design::{Checker, DesignError, Value};
 use crate::units::Kind;
 
-/// Elementary charge, coulombs (CODATA 2018, exact in the SI).
-pub const ELEMENTARY_CHARGE: f64 = 1.602_176_634e-19;
+pub use crate::constants::ELEMENTARY_CHARGE;
 /// Largest number of pulses a train may hold (keeps a run to seconds).
 pub const MAX_PULSES: usize = 100_000;
 /// Allowed droop for capacitor sizing when none is given (common practice: 1 %).
