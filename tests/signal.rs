@@ -296,6 +296,23 @@ fn ngspice_pulse_through_a_coupling_capacitor() {
     );
 }
 
+/// An open base end (only the anode's capacitance) on a 50 Ω line of one-way `delay`, ended
+/// in `load_r` ∥ `load_c`.
+fn cable_circuit(anode_c: f64, delay: f64, load_r: f64, load_c: f64) -> LoadCircuit {
+    LoadCircuit {
+        base_resistance: None,
+        anode_capacitance: anode_c,
+        anode_resistance: None,
+        coupling: None,
+        cable: Some(Line {
+            delay,
+            impedance: 50.0,
+        }),
+        load_resistance: load_r,
+        load_capacitance: load_c,
+    }
+}
+
 #[test]
 fn ngspice_pulse_down_a_mismatched_cable() {
     if !ngspice_available("ngspice_pulse_down_a_mismatched_cable") {
@@ -303,18 +320,7 @@ fn ngspice_pulse_down_a_mismatched_cable() {
     }
     // 2 m of 50 Ω cable (10 ns) ended in 200 Ω ∥ 10 pF, 5 pF at the anode: the echoes come out
     // of both computations.
-    let c = LoadCircuit {
-        base_resistance: None,
-        anode_capacitance: 5e-12,
-        anode_resistance: None,
-        coupling: None,
-        cable: Some(Line {
-            delay: 10e-9,
-            impedance: 50.0,
-        }),
-        load_resistance: 200.0,
-        load_capacitance: 10e-12,
-    };
+    let c = cable_circuit(5e-12, 10e-9, 200.0, 10e-12);
     compare_with_ngspice(
         "cable",
         &c,
@@ -559,18 +565,7 @@ fn echo_of_a_capacitive_matched_end_matches_ngspice() {
     // returns a bipolar echo of the fast edges; the open base end sends it back. ngspice's
     // lossless line on the same elements gives the reference; the echo's extreme within 2 %
     // of itself.
-    let c = LoadCircuit {
-        base_resistance: None,
-        anode_capacitance: 15e-12,
-        anode_resistance: None,
-        coupling: None,
-        cable: Some(Line {
-            delay: 25e-9,
-            impedance: 50.0,
-        }),
-        load_resistance: 50.0,
-        load_capacitance: 13e-12,
-    };
+    let c = cable_circuit(15e-12, 25e-9, 50.0, 13e-12);
     let pulse = waveform::convolved_pulse(
         &Shape::Exponential {
             rise: 0.9e-9,
