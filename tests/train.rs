@@ -268,3 +268,100 @@ fn vanishing_pulses_keep_every_gain_ratio_at_one() {
         r.initial_gain
     );
 }
+
+/// The benchmark chain (bench/train-chain.ron) with another pattern.
+fn bench_chain(pattern: &str) -> (Design, Base, f64) {
+    let text = std::fs::read_to_string("bench/train-chain.ron").expect("benchmark design");
+    let text = text.replace(r#"Periodic(count: 20, rate: "1 MHz")"#, pattern);
+    let d = parse_str(&text, "train-chain.ron").expect("benchmark design reads");
+    let tube = TubeModel::from_spec(&d.tube).expect("tube calibrates");
+    let base = Base::from_design(&d, tube);
+    let (nv, _) = base.quiescent_state().expect("DC state");
+    let gaps: Vec<f64> = (1..=10).map(|j| nv[j] - nv[j - 1]).collect();
+    let g0 = base.tube.gain_for_gaps(&gaps);
+    let spec = d.train.clone().expect("train block");
+    let qk = cathode_charge(spec.size, &spec.shape, g0);
+    (d, base, qk)
+}
+
+#[test]
+fn exact_quiet_intervals_match_the_step_by_step_solve() {
+    // Reference: the step-by-step BDF2 solve through every quiet interval (the solver as it
+    // was before quiet intervals were crossed exactly, kept as `exact_quiet: false`), an
+    // independent integration of the same equations. Issue 11 asks every pulse's gain and the
+    // capacitor voltages within 1e-4 relative, at 20 and 1000 pulses, 1 MHz and 5 kHz.
+    // Both run at rtol_dev 3e-7: this chain is overdriven (1 mA average at 1 MHz against a
+    // divider current of 0.19 mA, the last gap sags by 18 V), and at the default 3e-5 each
+    // integrator's own error reaches 1e-4 on the later pulses' gains (measured: at 3e-8 the
+    // two agree within 2e-6 on 200 pulses, at 3e-5 they differ by 1e-4).
+    for pattern in [
+        r#"Periodic(count: 20, rate: "1 MHz")"#,
+        r#"Periodic(count: 1000, rate: "1 MHz")"#,
+        r#"Periodic(count: 20, rate: "5 kHz")"#,
+        r#"Periodic(count: 1000, rate: "5 kHz")"#,
+    ] {
+        let (d, base, qk) = bench_chain(pattern);
+        let opts = RunOptions {
+            recovery_band: None,
+            rtol_dev: 3e-7,
+            ..RunOptions::default()
+        };
+        let fast = run(&d, &base, qk, &opts);
+        let slow = run(
+            &d,
+            &base,
+            qk,
+            &RunOptions {
+                exact_quiet: false,
+                ..opts
+            },
+        );
+        assert!(fast.quiet_jumps > 0, "{pattern}: no quiet interval crossed");
+        let (g1f, g1s) = (fast.pulses[0].gain(), slow.pulses[0].gain());
+        for (i, (f, s)) in fast.pulses.iter().zip(&slow.pulses).enumerate() {
+            assert!(
+                rel(f.gain() / g1f, s.gain() / g1s) < 1e-4 && rel(f.gain(), s.gain()) < 1e-4,
+                "{pattern}, pulse {}: {} against {}",
+                i + 1,
+                f.gain(),
+                s.gain()
+            );
+        }
+        for (k, (f, s)) in fast.caps.iter().zip(&slow.caps).enumerate() {
+            assert!(
+                rel(f.at_train_end, s.at_train_end) < 1e-4,
+                "{pattern}, capacitor {k} at the end: {} V against {} V",
+                f.at_train_end,
+                s.at_train_end
+            );
+            let (lf, ls) = (f.initial - f.droop, s.initial - s.droop);
+            assert!(
+                rel(lf, ls) < 1e-4,
+                "{pattern}, capacitor {k} lowest: {lf} V against {ls} V"
+            );
+        }
+        for (f, s) in fast.window_cap_min.iter().zip(&slow.window_cap_min) {
+            assert!(
+                rel(*f, *s) < 1e-4,
+                "{pattern}: window minimum {f} V against {s} V"
+            );
+        }
+        for (f, s) in fast
+            .elements_at_train_end
+            .iter()
+            .zip(&slow.elements_at_train_end)
+        {
+            assert!(
+                rel(*f, *s) < 1e-4,
+                "{pattern}: gap at the end {f} V against {s} V"
+            );
+        }
+        eprintln!(
+            "{pattern}: {} steps ({} quiet) against {}; worst gain ratio {:.6}",
+            fast.steps.0,
+            fast.quiet_jumps,
+            slow.steps.0,
+            fast.pulses.last().unwrap().gain() / g1f
+        );
+    }
+}
