@@ -46,6 +46,7 @@ mod watch;
 
 use band::System;
 use quiet::{Modal, QuietJump};
+pub use steady::SteadyState;
 use watch::Watch;
 
 /// Why a time-domain solve failed.
@@ -310,6 +311,14 @@ impl Base {
     /// Number of dynodes.
     pub fn stages(&self) -> usize {
         self.n
+    }
+
+    /// The slowest time constant of the base with no tube current, seconds (`None` when it
+    /// has no modal form: a node without capacitance).
+    pub fn slowest_time_constant(&self) -> Option<f64> {
+        let (q, _) = self.quiescent_state().ok()?;
+        let md = Modal::new(self, &q)?;
+        md.lambda.iter().copied().reduce(f64::min).map(|l| 1.0 / l)
     }
 
     /// Number of decoupling capacitors.
@@ -961,10 +970,11 @@ impl Base {
             }
         }
         let recovery = watch.recovery();
+        let window_cap_min = watch.window_minima();
         Ok(Run {
             pulses: watch.pulses,
             caps: watch.caps,
-            window_cap_min: watch.window_min,
+            window_cap_min,
             elements_initial,
             elements_at_train_end,
             tube_gaps: (g0_gaps.clone(), tube_gaps_end),

@@ -172,11 +172,11 @@ pub(super) struct Modal {
     /// Decay rate of each mode, 1/s.
     pub lambda: Vec<f64>,
     /// `x = x∞ + V z`, row-major m×m.
-    v: Vec<f64>,
+    pub v: Vec<f64>,
     /// `z = W (x − x∞)`.
-    w: Vec<f64>,
+    pub w: Vec<f64>,
     /// Asymptotic potentials of the unknowns.
-    x_inf: Vec<f64>,
+    pub x_inf: Vec<f64>,
 }
 
 /// Which region each element is in at the potentials `nv`.

@@ -54,7 +54,7 @@ impl Watch {
                 })
                 .collect(),
             window_min: (0..arrivals.len())
-                .flat_map(|_| caps.iter().map(|c| c.initial))
+                .flat_map(|_| caps.iter().map(|_| f64::INFINITY))
                 .collect(),
             caps,
             samples: Vec::new(),
@@ -142,6 +142,23 @@ impl Watch {
             self.recovered_at = Some(cross.max(self.train_end));
         }
         dev < 0.1 * band && time > self.train_end
+    }
+
+    /// The window minima, a window with no state in it (none so far) at the value before the
+    /// train.
+    pub fn window_minima(&self) -> Vec<f64> {
+        let ncaps = self.caps.len().max(1);
+        self.window_min
+            .iter()
+            .enumerate()
+            .map(|(i, v)| {
+                if v.is_finite() {
+                    *v
+                } else {
+                    self.caps[i % ncaps].initial
+                }
+            })
+            .collect()
     }
 
     /// Time after the train until the gain stays within the band (`None` when it had not by
