@@ -609,7 +609,8 @@ fn run() -> ExitCode {
             quiet,
         } => run_size(&requirements, &output, force, quiet),
         Command::Check { design } => match design::load(&design) {
-            Ok(d) => match analysis::analyse(&d) {
+            // A check solves the DC design but runs no pulse train (`report` and `train` do).
+            Ok(d) => match analysis::analyse_with(&d, None) {
                 Ok(a) => {
                     println!("{}: the design reads and solves", design.display());
                     // Plausibility warnings never block, but a check shows them too.

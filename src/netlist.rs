@@ -297,9 +297,12 @@ pub fn train_points(arrivals: &[f64], shape: &Shape, cathode_charge: f64) -> Vec
     let mut out: Vec<(f64, f64)> = times
         .iter()
         .map(|t| {
-            let i: f64 = arrivals
+            // Pulses active at t: arrivals in [t - support, t] (sorted: two binary searches,
+            // so the writer is linear in the pulse count).
+            let hi = arrivals.partition_point(|a| *a <= *t);
+            let lo = arrivals.partition_point(|a| *a < *t - support);
+            let i: f64 = arrivals[lo..hi.max(lo)]
                 .iter()
-                .filter(|a| **a <= *t && *t - **a <= support)
                 .map(|a| shape.value(t - a))
                 .sum();
             (*t, i * cathode_charge)

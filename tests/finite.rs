@@ -72,6 +72,9 @@ pub const NULLABLE: &[&str] = &[
     "droop[].pulse",
     "taper.pct1_amps[]",
     "taper.pct5_amps[]",
+    // train: the steady state (a single pulse has no rate); its quantile (Poisson arrivals only)
+    "train.steady_state",
+    "steady_state.droop_quantile_99",
     // report: signal budget (null without a light block, a readout or a cable; edges beyond the window)
     "photoelectrons_per_pulse",
     "pulse",

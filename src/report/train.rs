@@ -140,6 +140,9 @@ fn section(out: &mut String, t: &TrainAnalysis, a: &Analysis) {
             None => format!("not within 0.1 % after {}", eng(t.recovery_horizon, "s")),
         }
     );
+    if let Some(ss) = &t.steady {
+        steady_text(out, t, ss);
+    }
     let _ = writeln!(
         out,
         "  {:>6} {:>11} {:>13} {:>13}",
@@ -327,6 +330,52 @@ fn section(out: &mut String, t: &TrainAnalysis, a: &Analysis) {
     let _ = writeln!(out);
 }
 
+/// The steady state of the train's rate, and which part of each droop a capacitor can fix.
+fn steady_text(out: &mut String, t: &TrainAnalysis, ss: &pulsetrain::SteadyReport) {
+    let what = match ss.kind {
+        "poisson" => "arrivals at the mean rate for ever",
+        "bursts" => "the bursts repeated for ever",
+        _ => "the pulses repeated for ever",
+    };
+    let _ = writeln!(
+        out,
+        "  steady state           {what} (solved in {} periods of {}): a pulse's gain {:.3} % of the first pulse's",
+        ss.periods_solved,
+        eng(ss.period_s, "s"),
+        ss.gain_ratio * 100.0
+    );
+    if t.droop.is_empty() {
+        return;
+    }
+    let q = ss.droop_quantile_99.is_some();
+    let _ = writeln!(
+        out,
+        "    {:<30} {:>9} {:>15} {:>11}{}",
+        "capacitor (drop, % of its gap)",
+        "droop",
+        "shift (before)",
+        "per pulse",
+        if q { "  exceeded by 1 % of pulses" } else { "" }
+    );
+    for (k, d) in t.droop.iter().enumerate() {
+        let _ = writeln!(
+            out,
+            "    {:<30} {:>8.3} % {:>13.3} % {:>9.3} %{}",
+            d.label,
+            ss.droop_fraction[k] * 100.0,
+            ss.shift_fraction[k] * 100.0,
+            ss.pulse_droop_fraction[k] * 100.0,
+            ss.droop_quantile_99
+                .as_ref()
+                .map_or(String::new(), |q| format!("  {:>8.3} %", q[k] * 100.0))
+        );
+    }
+    let _ = writeln!(
+        out,
+        "    The shift is the DC drop at the average anode current, set by the divider current: no\n    capacitor removes it (a larger divider current or actively held last stages do). The\n    per-pulse part is set by the capacitors."
+    );
+}
+
 /// The JSON value of the train section (`null` when the design gives no train).
 pub fn json(a: &Analysis) -> Value {
     a.train.as_ref().map_or(Value::Null, to_json)
@@ -404,6 +453,19 @@ fn to_json(t: &TrainAnalysis) -> Value {
             "gain_ratio": t.series.gain_ratio.iter().map(|x| fin(*x)).collect::<Vec<_>>(),
             "cap_delta_volts": t.series.cap_delta_volts.iter().map(|c| c.iter().map(|x| fin(*x)).collect::<Vec<_>>()).collect::<Vec<_>>(),
         },
+        "steady_state": t.steady.as_ref().map_or(Value::Null, |ss| json!({
+            "kind": ss.kind,
+            "period_s": fin(ss.period_s),
+            "gain_ratio": fin(ss.gain_ratio),
+            "gap_volts": ss.gap_volts.iter().map(|x| fin(*x)).collect::<Vec<_>>(),
+            "droop_fraction": ss.droop_fraction.iter().map(|x| fin(*x)).collect::<Vec<_>>(),
+            "shift_fraction": ss.shift_fraction.iter().map(|x| fin(*x)).collect::<Vec<_>>(),
+            "pulse_droop_fraction": ss.pulse_droop_fraction.iter().map(|x| fin(*x)).collect::<Vec<_>>(),
+            "droop_quantile_99": ss.droop_quantile_99.as_ref().map_or(Value::Null, |q| {
+                q.iter().map(|x| fin(*x)).collect::<Vec<_>>().into()
+            }),
+            "periods_solved": ss.periods_solved,
+        })),
         "steps": { "accepted": t.steps.0, "rejected": t.steps.1 },
     })
 }

@@ -39,9 +39,15 @@ use crate::tube::TubeModel;
 use uom::si::capacitance::farad;
 use uom::si::electrical_resistance::ohm;
 
-const KL: usize = 5;
-const KU: usize = 3;
-const W: usize = 2 * KL + KU + 1;
+mod band;
+mod quiet;
+mod steady;
+mod watch;
+
+use band::System;
+use quiet::{Modal, QuietJump};
+pub use steady::SteadyState;
+use watch::Watch;
 
 /// Why a time-domain solve failed.
 #[derive(Debug, Clone, PartialEq, thiserror::Error)]
@@ -162,6 +168,9 @@ pub struct RunOptions {
     /// Integrate to exactly this time (seconds) instead of stopping at the train's end or at
     /// recovery; the last sample and the run's final state are then at this time.
     pub stop_at: Option<f64>,
+    /// Cross each quiet interval (no pulse delivering charge) in one exact step of the linear
+    /// RC network; `false` steps through it with BDF2 (the reference path of the tests).
+    pub exact_quiet: bool,
 }
 
 impl Default for RunOptions {
@@ -174,6 +183,7 @@ impl Default for RunOptions {
             recovery_band: Some(1e-3),
             max_steps: 5_000_000,
             stop_at: None,
+            exact_quiet: true,
         }
     }
 }
@@ -208,164 +218,13 @@ pub struct Run {
     pub samples: Vec<Sample>,
     /// Accepted and rejected steps.
     pub steps: (usize, usize),
-}
-
-/// Band LU factorisation with partial pivoting (LINPACK-style storage of the multipliers).
-#[derive(Debug, Clone, Default)]
-struct BandLu {
-    m: usize,
-    ab: Vec<f64>,
-    piv: Vec<usize>,
-}
-
-impl BandLu {
-    fn reset(&mut self, m: usize) {
-        self.m = m;
-        self.ab.clear();
-        self.ab.resize(m * W, 0.0);
-        self.piv.resize(m, 0);
-    }
-    #[inline]
-    fn at(&mut self, r: usize, c: usize) -> &mut f64 {
-        debug_assert!(c + KL >= r && c + KL - r < W);
-        &mut self.ab[r * W + c + KL - r]
-    }
-    #[inline]
-    fn get(&self, r: usize, c: usize) -> f64 {
-        self.ab[r * W + c + KL - r]
-    }
-    fn factor(&mut self) -> bool {
-        let m = self.m;
-        for k in 0..m {
-            let last_row = (k + KL).min(m - 1);
-            let last_col = (k + KL + KU).min(m - 1);
-            let mut p = k;
-            let mut best = self.get(k, k).abs();
-            for r in k + 1..=last_row {
-                let v = self.get(r, k).abs();
-                if v > best {
-                    best = v;
-                    p = r;
-                }
-            }
-            if best == 0.0 || !best.is_finite() {
-                return false;
-            }
-            self.piv[k] = p;
-            if p != k {
-                for c in k..=last_col {
-                    let a = self.get(k, c);
-                    let b = self.get(p, c);
-                    *self.at(k, c) = b;
-                    *self.at(p, c) = a;
-                }
-            }
-            let piv = self.get(k, k);
-            for r in k + 1..=last_row {
-                let f = self.get(r, k) / piv;
-                *self.at(r, k) = f;
-                if f != 0.0 {
-                    for c in k + 1..=last_col {
-                        let u = self.get(k, c);
-                        *self.at(r, c) -= f * u;
-                    }
-                }
-            }
-        }
-        true
-    }
-    fn solve(&self, b: &mut [f64]) {
-        let m = self.m;
-        for k in 0..m {
-            let p = self.piv[k];
-            if p != k {
-                b.swap(k, p);
-            }
-            let bk = b[k];
-            for r in k + 1..=(k + KL).min(m - 1) {
-                b[r] -= self.get(r, k) * bk;
-            }
-        }
-        for k in (0..m).rev() {
-            let mut s = b[k];
-            for c in k + 1..=(k + KL + KU).min(m - 1) {
-                s -= self.get(k, c) * b[c];
-            }
-            b[k] = s / self.get(k, k);
-        }
-    }
-}
-
-/// Linear system in band-plus-border form.
-#[derive(Debug, Clone, Default)]
-struct System {
-    lu: BandLu,
-    border_col: Vec<f64>,
-    border_row: Vec<f64>,
-    corner: f64,
-    res: Vec<f64>,
-    res_border: f64,
-}
-
-impl System {
-    fn reset(&mut self, m: usize) {
-        self.lu.reset(m);
-        self.border_col.clear();
-        self.border_col.resize(m, 0.0);
-        self.border_row.clear();
-        self.border_row.resize(m, 0.0);
-        self.corner = 0.0;
-        self.res.clear();
-        self.res.resize(m, 0.0);
-        self.res_border = 0.0;
-    }
-    #[inline]
-    fn jac(&mut self, r: Var, c: Var, v: f64) {
-        match (r, c) {
-            (Var::Band(i), Var::Band(j)) => *self.lu.at(i, j) += v,
-            (Var::Band(i), Var::Border) => self.border_col[i] += v,
-            (Var::Border, Var::Band(j)) => self.border_row[j] += v,
-            (Var::Border, Var::Border) => self.corner += v,
-            _ => {}
-        }
-    }
-    #[inline]
-    fn residual(&mut self, r: Var, v: f64) {
-        match r {
-            Var::Band(i) => self.res[i] += v,
-            Var::Border => self.res_border += v,
-            Var::Fixed(_) => {}
-        }
-    }
-    /// Solve `J d = F` in place: `res` becomes the band part of `d`; returns the border part.
-    fn solve(&mut self, bordered: bool) -> Option<f64> {
-        if !self.lu.factor() {
-            return None;
-        }
-        self.lu.solve(&mut self.res);
-        if !bordered {
-            return Some(0.0);
-        }
-        let mut y = std::mem::take(&mut self.border_col);
-        self.lu.solve(&mut y);
-        let cz: f64 = self
-            .border_row
-            .iter()
-            .zip(&self.res)
-            .map(|(a, b)| a * b)
-            .sum();
-        let cy: f64 = self.border_row.iter().zip(&y).map(|(a, b)| a * b).sum();
-        let s = self.corner - cy;
-        if s == 0.0 || !s.is_finite() {
-            return None;
-        }
-        let dw = (self.res_border - cz) / s;
-        for (r, yi) in self.res.iter_mut().zip(&y) {
-            *r -= yi * dw;
-        }
-        self.border_col = y;
-        Some(dw)
-    }
+    /// Quiet intervals crossed in one exact step.
+    pub quiet_jumps: usize,
+    /// Lowest voltage of each decoupling capacitor in each pulse's window, volts (pulse-major:
+    /// pulse `i`, capacitor `k` at `i × caps + k`).
+    pub window_cap_min: Vec<f64>,
+    /// Time and node potentials where the run ended.
+    pub final_state: (f64, Vec<f64>),
 }
 
 impl Base {
@@ -452,6 +311,39 @@ impl Base {
     /// Number of dynodes.
     pub fn stages(&self) -> usize {
         self.n
+    }
+
+    /// The slowest time constant of the base with no tube current, seconds (`None` when it
+    /// has no modal form: a node without capacitance).
+    pub fn slowest_time_constant(&self) -> Option<f64> {
+        let (q, _) = self.quiescent_state().ok()?;
+        let md = Modal::new(self, &q)?;
+        md.lambda.iter().copied().reduce(f64::min).map(|l| 1.0 / l)
+    }
+
+    /// Number of decoupling capacitors.
+    pub fn decoupling_count(&self) -> usize {
+        self.decoupling.len()
+    }
+
+    /// Voltage across decoupling capacitor `k` (design order) at the potentials `nv`.
+    pub fn cap_volts(&self, nv: &[f64], k: usize) -> f64 {
+        let (a, b) = self.decoupling[k];
+        nv[a] - nv[b]
+    }
+
+    /// Signal voltage against its ground at the potentials `nv`.
+    pub fn signal_volts(&self, nv: &[f64]) -> f64 {
+        nv[self.signal.0] - nv[self.signal.1]
+    }
+
+    /// Divider element voltages (K–D1 … Dn–return) at the potentials `nv`.
+    pub fn element_volts(&self, nv: &[f64]) -> Vec<f64> {
+        self.elements
+            .iter()
+            .take(self.n + 1)
+            .map(|(a, b, _)| nv[*a] - nv[*b])
+            .collect()
     }
 
     fn nodes(&self) -> usize {
@@ -734,25 +626,35 @@ impl Base {
         qk: f64,
         opts: &RunOptions,
     ) -> Result<Run, TransientError> {
+        self.run_from(None, arrivals, shape, qk, opts)
+    }
+
+    /// [`Base::run`] from the node potentials `start` (at time 0, with no tube current and a
+    /// constant past) instead of the DC state; the records (droop, gain ratio, recovery) stay
+    /// relative to the DC state with no tube current.
+    pub fn run_from(
+        &self,
+        start: Option<&[f64]>,
+        arrivals: &[f64],
+        shape: &Shape,
+        qk: f64,
+        opts: &RunOptions,
+    ) -> Result<Run, TransientError> {
         let n = self.n;
-        let (mut nv, mut t) = self.quiescent_state()?;
+        let (reference, mut t) = self.quiescent_state()?;
+        let mut nv = match start {
+            Some(s) if s.len() == reference.len() => s.to_vec(),
+            _ => reference.clone(),
+        };
         let tube_gaps =
             |nv: &[f64]| -> Vec<f64> { (1..=n + 1).map(|j| nv[j] - nv[j - 1]).collect() };
-        let g0_gaps = tube_gaps(&nv);
+        let g0_gaps = tube_gaps(&reference);
         let initial_gain = self.tube.gain_for_gaps(&g0_gaps);
-        let gain_ratio = |nv: &[f64]| -> f64 {
-            let mut r = 1.0;
-            for j in 1..=n {
-                r *= self.tube.delta(nv[j] - nv[j - 1]).0 / self.tube.delta(g0_gaps[j - 1]).0;
-            }
-            r
-        };
         let support = shape.support();
         let feature = shape.feature();
         let sig_scale = self.signal_scale(qk, shape, initial_gain);
         let (sig_node, gnd_node) = self.signal;
-        let signal = |nv: &[f64]| nv[sig_node] - nv[gnd_node];
-        let signal_initial = signal(&nv);
+        let signal_initial = self.signal_volts(&reference);
         let elements_of = |nv: &[f64]| -> Vec<f64> {
             self.elements
                 .iter()
@@ -760,7 +662,7 @@ impl Base {
                 .map(|(a, b, _)| nv[*a] - nv[*b])
                 .collect()
         };
-        let elements_initial = elements_of(&nv);
+        let elements_initial = elements_of(&reference);
 
         // Error-control weights per monitored quantity: tube gaps, signal, return rail.
         let gap_tol: Vec<f64> = g0_gaps
@@ -780,10 +682,10 @@ impl Base {
         monitored.push((
             rtn,
             n,
-            opts.rtol * (nv[rtn] - nv[n]).abs().max(1.0),
-            nv[rtn] - nv[n],
+            opts.rtol * (reference[rtn] - reference[n]).abs().max(1.0),
+            reference[rtn] - reference[n],
         ));
-        monitored.push((n + 1, rtn, sig_tol, nv[n + 1] - nv[rtn]));
+        monitored.push((n + 1, rtn, sig_tol, reference[n + 1] - reference[rtn]));
         monitored.push((sig_node, gnd_node, sig_tol, signal_initial));
         let mut gap_tol = gap_tol;
         gap_tol[n] = gap_tol[n].max(sig_tol);
@@ -817,6 +719,11 @@ impl Base {
                 .sum::<f64>()
                 * qk
         };
+        // A pulse still delivering charge after `time`.
+        let active = |time: f64| -> bool {
+            let hi = arrivals.partition_point(|a| *a <= time * (1.0 + 1e-14) + 1e-300);
+            hi > 0 && arrivals[hi - 1] + support > time * (1.0 + 1e-12)
+        };
         let in_pulse = |time: f64| -> bool {
             let hi = arrivals.partition_point(|a| *a <= time);
             let lo = arrivals.partition_point(|a| *a < time - support);
@@ -842,44 +749,19 @@ impl Base {
             (None, None) => train_end,
         };
 
-        let mut pulses: Vec<PulseRecord> = arrivals
-            .iter()
-            .map(|a| PulseRecord {
-                start: *a,
-                cathode_charge: 0.0,
-                anode_charge: 0.0,
-                peak_anode_amps: 0.0,
-                peak_signal_volts: 0.0,
-            })
-            .collect();
-        let cap_v = |nv: &[f64], k: usize| {
-            let (a, b) = self.decoupling[k];
-            nv[a] - nv[b]
-        };
-        let mut caps: Vec<CapRecord> = (0..self.decoupling.len())
-            .map(|k| CapRecord {
-                initial: cap_v(&nv, k),
-                droop: 0.0,
-                droop_time: 0.0,
-                droop_pulse: None,
-                at_train_end: cap_v(&nv, k),
-            })
-            .collect();
+        let mut watch = Watch::new(
+            self,
+            &reference,
+            arrivals,
+            opts.record,
+            opts.recovery_band,
+            train_end,
+        );
         let mut elements_at_train_end = elements_initial.clone();
         let mut tube_gaps_end = g0_gaps.clone();
         let mut gap_charges = vec![0.0; n + 1];
-        let mut samples = Vec::new();
-        let record = |samples: &mut Vec<Sample>, time: f64, nv: &[f64], t: &[f64]| {
-            samples.push(Sample {
-                t: time,
-                signal_volts: signal(nv),
-                anode_amps: t[n],
-                cap_volts: (0..self.decoupling.len()).map(|k| cap_v(nv, k)).collect(),
-                gain_ratio: gain_ratio(nv),
-            });
-        };
         if opts.record {
-            record(&mut samples, 0.0, &nv, &t);
+            watch.observe(self, 0.0, &nv, t[n], 0, false);
         }
 
         // History: potentials at the last three accepted times (a DC state has a constant past).
@@ -895,10 +777,9 @@ impl Base {
         let mut trial_t = t.clone();
         let (mut accepted, mut rejected) = (0usize, 0usize);
         let mut ik_prev = cathode(0.0);
-        let mut last_outside: Option<(f64, f64)> = None; // (time, deviation) outside the band
-        let band = opts.recovery_band.unwrap_or(0.0);
-        let mut recovered_at: Option<f64> = None;
         let mut after_bp = true;
+        let mut modal: Option<Modal> = None;
+        let mut quiet_jumps = 0usize;
         // The step budget grows with the train: a few hundred steps resolve one pulse.
         let budget = opts.max_steps.max(400 * arrivals.len() + 100_000);
         while time < t_stop * (1.0 - 1e-15) {
@@ -910,6 +791,54 @@ impl Base {
                         arrivals.len()
                     ),
                 });
+            }
+            // A quiet interval from here to the next arrival (or the end) in one exact step.
+            if opts.exact_quiet && after_bp && !active(time) {
+                let next = arrivals.partition_point(|a| *a <= time * (1.0 + 1e-14) + 1e-300);
+                let window = next;
+                let in_train = time < train_end * (1.0 - 1e-14);
+                let target = arrivals.get(next).copied().unwrap_or(t_stop).min(t_stop);
+                let pre_arrival = next < arrivals.len() && target < t_stop;
+                let jump = QuietJump {
+                    from: time,
+                    to: target,
+                    feature,
+                    h_start,
+                    pre_arrival,
+                    band: opts
+                        .recovery_band
+                        .filter(|_| opts.stop_at.is_none() && !pre_arrival),
+                };
+                if let Some(out) = self.quiet(&jump, &mut modal, &nv, &watch) {
+                    quiet_jumps += 1;
+                    let mut stop = false;
+                    for (ts, state) in &out.states {
+                        stop = watch.observe(self, *ts, state, 0.0, window, in_train);
+                        if stop && opts.stop_at.is_none() && !pre_arrival {
+                            nv.clone_from(state);
+                            time = *ts;
+                            break;
+                        }
+                        stop = false;
+                    }
+                    t.iter_mut().for_each(|x| *x = 0.0);
+                    if stop {
+                        break;
+                    }
+                    let k = out.states.len();
+                    nv.clone_from(&out.states[k - 1].1);
+                    time = out.states[k - 1].0;
+                    if k >= 3 {
+                        for i in 0..3 {
+                            hist_v[i].clone_from(&out.states[k - 1 - i].1);
+                            hist_t[i] = out.states[k - 1 - i].0;
+                        }
+                    }
+                    ik_prev = cathode(time);
+                    h = h_start;
+                    after_bp = true;
+                    continue;
+                }
             }
             while bp_idx < breaks.len() && breaks[bp_idx] <= time * (1.0 + 1e-14) + 1e-300 {
                 bp_idx += 1;
@@ -998,25 +927,13 @@ impl Base {
             let window = arrivals.partition_point(|a| *a <= time * (1.0 + 1e-14) + 1e-300);
             let in_train = time < train_end * (1.0 - 1e-14);
             if window > 0 && in_train {
-                let p = &mut pulses[window - 1];
+                let p = &mut watch.pulses[window - 1];
                 p.cathode_charge += 0.5 * h * (ik_prev + ik_new);
                 p.anode_charge += 0.5 * h * (t[n] + trial_t[n]);
                 p.peak_anode_amps = p.peak_anode_amps.max(trial_t[n]);
-                let s = signal(&trial_nv) - signal_initial;
-                if s.abs() > p.peak_signal_volts.abs() {
-                    p.peak_signal_volts = s;
-                }
             }
             for j in 0..=n {
                 gap_charges[j] += 0.5 * h * (t[j] + trial_t[j]);
-            }
-            for (k, rec) in caps.iter_mut().enumerate() {
-                let d = rec.initial - cap_v(&trial_nv, k);
-                if d > rec.droop {
-                    rec.droop = d;
-                    rec.droop_time = t_new;
-                    rec.droop_pulse = Some(window.max(1) - 1);
-                }
             }
             ik_prev = ik_new;
             hist_v.rotate_right(1);
@@ -1029,34 +946,13 @@ impl Base {
             if landing && (time - train_end).abs() <= 1e-12 * train_end.max(1e-30) {
                 elements_at_train_end = elements_of(&nv);
                 tube_gaps_end = tube_gaps(&nv);
-                for (k, rec) in caps.iter_mut().enumerate() {
-                    rec.at_train_end = cap_v(&nv, k);
+                for (k, rec) in watch.caps.iter_mut().enumerate() {
+                    rec.at_train_end = self.cap_volts(&nv, k);
                 }
             }
-            if opts.record {
-                record(&mut samples, time, &nv, &t);
-            }
-            // Recovery: when, after the train, the gain last entered the band.
-            if opts.recovery_band.is_some() && time >= train_end * (1.0 - 1e-14) {
-                let dev = (gain_ratio(&nv) - 1.0).abs();
-                if dev >= band {
-                    last_outside = Some((time, dev));
-                    recovered_at = None;
-                } else if recovered_at.is_none() {
-                    // Interpolate the crossing between the last point outside and this one.
-                    let cross = match last_outside {
-                        Some((to, dout)) if dout > dev => {
-                            to + (time - to) * (dout - band) / (dout - dev)
-                        }
-                        Some((to, _)) => to,
-                        None => train_end,
-                    };
-                    recovered_at = Some(cross.max(train_end));
-                }
-                // Stop once the gain is well inside the band (a tenth of it).
-                if dev < 0.1 * band && time > train_end && opts.stop_at.is_none() {
-                    break;
-                }
+            let stop = watch.observe(self, time, &nv, t[n], window, in_train);
+            if stop && opts.stop_at.is_none() {
+                break;
             }
             after_bp = landing;
             let grow = if err > 0.0 {
@@ -1066,14 +962,6 @@ impl Base {
             };
             h *= grow;
         }
-        let recovery = match opts.recovery_band {
-            None => None,
-            Some(_) => match (recovered_at, last_outside) {
-                (Some(at), _) => Some(at - train_end),
-                (None, None) => Some(0.0),
-                (None, Some(_)) => None,
-            },
-        };
         if opts.recovery_band.is_none() || train_end <= 0.0 {
             // Make sure the train-end values are set even when the loop stopped there.
             if (time - train_end).abs() <= 1e-12 * train_end.max(1e-30) {
@@ -1081,20 +969,25 @@ impl Base {
                 tube_gaps_end = tube_gaps(&nv);
             }
         }
+        let recovery = watch.recovery();
+        let window_cap_min = watch.window_minima();
         Ok(Run {
-            pulses,
-            caps,
+            pulses: watch.pulses,
+            caps: watch.caps,
+            window_cap_min,
             elements_initial,
             elements_at_train_end,
             tube_gaps: (g0_gaps.clone(), tube_gaps_end),
             gap_charges,
-            signal_initial,
+            signal_initial: watch.signal_initial,
             train_end,
             recovery,
             recovery_horizon,
             initial_gain,
-            samples,
+            samples: watch.samples,
             steps: (accepted, rejected),
+            quiet_jumps,
+            final_state: (time, nv),
         })
     }
 }
@@ -1104,34 +997,4 @@ impl Base {
 struct Scratch {
     sys: System,
     x: Vec<f64>,
-}
-
-#[cfg(test)]
-mod tests {
-    use super::*;
-
-    #[test]
-    fn band_lu_matches_a_dense_solution() {
-        // A 7×7 band matrix needing row exchanges; the solution is known by construction.
-        let m = 7;
-        let mut lu = BandLu::default();
-        lu.reset(m);
-        let mut dense = vec![0.0; m * m];
-        for r in 0..m {
-            for c in r.saturating_sub(KL)..=(r + KU).min(m - 1) {
-                let v = ((r * 7 + c * 3) % 11) as f64 - 4.5 + if r == c { 1e-3 } else { 0.0 };
-                *lu.at(r, c) = v;
-                dense[r * m + c] = v;
-            }
-        }
-        let x: Vec<f64> = (0..m).map(|i| i as f64 - 2.5).collect();
-        let mut b: Vec<f64> = (0..m)
-            .map(|r| (0..m).map(|c| dense[r * m + c] * x[c]).sum())
-            .collect();
-        assert!(lu.factor());
-        lu.solve(&mut b);
-        for (a, e) in b.iter().zip(&x) {
-            assert!((a - e).abs() < 1e-9, "{a} vs {e}");
-        }
-    }
 }
