@@ -4,7 +4,7 @@
 //! photons per pulse, a pulse shape in time and a rate; the optical path adds a coupling fraction
 //! and an optional filter. Steady background light is a separate photon flux.
 //!
-//! Equations (physics brief §7):
+//! Equations (docs/physics.md §7):
 //! - photons in a pulse of energy `E` at wavelength `λ`: `E λ / (h c)`; for a spectrum, `E`
 //!   divided by the mean photon energy `Σ p(λ) h c / λ` of the photon distribution `p`;
 //! - a pulse given as peak power × width carries `E = P_peak ∫ s(t) dt` with the shape's own

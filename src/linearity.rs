@@ -1,4 +1,4 @@
-//! DC linearity: how the gain moves as the light rises (docs/physics.md, "Linearity").
+//! DC linearity: how the gain moves as the light rises (docs/physics.md §12).
 //!
 //! The curve is traced in the cathode current (which cannot fold back), from an ideal anode
 //! current of 1e-4 of the quiescent divider current to three times it, on log-spaced points,

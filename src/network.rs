@@ -1,4 +1,4 @@
-//! The DC operating point of the divider with the tube's own currents (physics brief §3).
+//! The DC operating point of the divider with the tube's own currents (docs/physics.md §3).
 //!
 //! Electrodes K, D1..Dn, P. Potentials are taken relative to the cathode, so the return rail
 //! (ground for a cathode-negative supply, +HV for an anode-positive one) sits at `+Vs`; both

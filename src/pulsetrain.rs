@@ -1,5 +1,5 @@
 //! What a pulse train does to a base: per-pulse gain, droop, recovery, pulse linearity,
-//! capacitor sizing and the tapered-divider comparison (physics brief §4–5).
+//! capacitor sizing and the tapered-divider comparison (docs/physics.md §4–5).
 //!
 //! Everything here drives [`crate::transient::Base::run`]; nothing does IO.
 //! - **Gain of a pulse**: anode charge over cathode charge in the pulse's window (arrival to

@@ -1,4 +1,4 @@
-//! High-voltage safety figures shown on every report (physics brief §9; SAFETY.md).
+//! High-voltage safety figures shown on every report (docs/physics.md §9; SAFETY.md).
 //!
 //! - Stored energy `E = C V^2 / 2` and charge `Q = C V` of every capacitor the design names.
 //! - Bleed-down after switch-off: the base is integrated in time (backward Euler, steps growing

@@ -1,6 +1,6 @@
 //! The signal budget: light → photoelectrons → charge → the pulse at the load → readable or not.
 //!
-//! Equations and sources (physics brief §6–8):
+//! Equations and sources (docs/physics.md §6–8):
 //! - photoelectrons collected at D1 per pulse `N_pe = Σ N_ph p(λ) QE(λ) T(λ) · coupling · η_1`;
 //!   charge `Q = N_pe · M · e` with `M = G / η_1` the multiplication of the dynodes (S. N. Ahmed,
 //!   *Physics and Engineering of Radiation Detection*, §6.5, for `Q = N G e`);
@@ -22,7 +22,7 @@
 //!   spread `√(σ_TTS² + σ_light²) / √N_pe` (an estimate); walk between the smallest and largest
 //!   expected pulse (mean ± 2 σ of the amplitude) measured on the computed waveform;
 //! - a PIN photodiode with a transimpedance amplifier: closed-loop bandwidth
-//!   `≈ √(GBW / (2π R_f C_in))` (physics brief §8), so `GBW = 2π R_f C_in BW²`.
+//!   `≈ √(GBW / (2π R_f C_in))` (docs/physics.md §8), so `GBW = 2π R_f C_in BW²`.
 //!
 //! No IO; every figure is finite or absent, never NaN.
 
@@ -704,7 +704,7 @@ pub fn judge(
 
 /// Fraction of single photoelectrons whose charge exceeds `fraction` of the mean, for a gamma
 /// (Polya) distribution of relative variance `f − 1` (the chain's excess noise factor; the
-/// model of docs/physics.md "Photon counting", from memory): `Q(k, k·fraction)` with
+/// model of docs/physics.md §11, from memory): `Q(k, k·fraction)` with
 /// `k = 1/(f − 1)`, the regularised upper incomplete gamma function.
 pub fn threshold_efficiency(fraction: f64, f: f64) -> f64 {
     let var = (f - 1.0).max(1e-6);
@@ -795,7 +795,7 @@ pub fn noise(c: &LoadCircuit, r: &ReadoutSpec, peak: f64) -> Noise {
     );
     let (range, per_division) = range_for(peak, r);
     // An oscilloscope's noise grows with V/div above its front end's floor; a digitiser's is a
-    // fixed fraction of its full scale (common practice, docs/physics.md "Noise at the range").
+    // fixed fraction of its full scale (common practice, docs/physics.md §11).
     let instrument = match r.division_volts {
         Some(_) => r.noise_rms.max(r.noise_per_division * range),
         None => r.noise_rms * range / r.sensitive_full_scale,

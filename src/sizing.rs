@@ -972,7 +972,7 @@ pub fn size(req: &Requirements) -> Result<Sized, SizingError> {
         ));
         match (&charge, req.capacitors) {
             (Some((q, how)), Some((series, droop))) => r2.push(format!(
-                "Decoupling: charge per pulse {} ({how}); the last gap gives about Q, the one before Q/delta_n, … (physics brief §5); C (1 − {:.0} % tolerance) ≥ Q_i / ({:.2} % × V_gap) by ΔV = Q/C, snapped up in {}, where the {} stray alone does not hold the droop; ratings at least {}× the gap voltage (common practice).",
+                "Decoupling: charge per pulse {} ({how}); the last gap gives about Q, the one before Q/delta_n, … (docs/physics.md §5); C (1 − {:.0} % tolerance) ≥ Q_i / ({:.2} % × V_gap) by ΔV = Q/C, snapped up in {}, where the {} stray alone does not hold the droop; ratings at least {}× the gap voltage (common practice).",
                 format_eng(*q, "C"),
                 req.capacitor_tolerance * 100.0,
                 droop * 100.0,

@@ -605,7 +605,7 @@ pub fn run(
         })
         .collect();
     // Decoupling: gap volts each capacitor sees and the charge it gives (last gap ≈ Q, the one
-    // before Q/δ_n, …; physics brief §5).
+    // before Q/δ_n, …; docs/physics.md §5).
     let caps: Vec<(usize, f64, f64)> = design
         .decoupling
         .iter()

@@ -1,6 +1,5 @@
 //! Timing from the photoelectrons themselves: a seeded Monte Carlo of photoelectron arrivals
-//! through the tube's response and the load network (docs/physics.md, "Noise at the range,
-//! and timing").
+//! through the tube's response and the load network (docs/physics.md §11).
 //!
 //! With few photoelectrons a leading-edge discriminator fires on the first (or the first few)
 //! of them, so its jitter follows the order statistics of the arrivals (for exponential light

@@ -1,6 +1,6 @@
 //! The tube: secondary emission per stage, the gain law, and the space-charge limit of a gap.
 //!
-//! Equations (physics brief §2 and §4):
+//! Equations (docs/physics.md §2 and §4):
 //! - per-dynode secondary-emission ratio `delta = a * V^k`, with `V` the accelerating voltage of
 //!   the gap before the dynode (IUPAC Gold Book, "gain of a photomultiplier": `G = eta * sigma^n`;
 //!   S. N. Ahmed, *Physics and Engineering of Radiation Detection*, 2007, §6.5 for `delta = a V^alpha`);

@@ -1,7 +1,7 @@
 //! The pulse at the load: the anode current through the anode network, cable and instrument
 //! input, computed in time, and the figures measured on the result.
 //!
-//! Circuit (physics brief §6). The tube is a current source into the anode node, which carries
+//! Circuit (docs/physics.md §6). The tube is a current source into the anode node, which carries
 //! the anode capacitance and, when fitted, the anode resistor to AC ground (the decoupled supply
 //! rail). A coupling capacitor, when fitted, sits in series between the anode and the cable. A
 //! lossless coaxial cable of impedance `Z0` and one-way delay `T` joins the base to the load: the

@@ -207,7 +207,7 @@ fn bleed_down_of_one_capacitor_is_rc_ln_ratio() {
 
 #[test]
 fn linearity_is_output_against_light_with_its_ceiling() {
-    // docs/physics.md "Linearity": the curve is presented against the ideal current G0·I_k,
+    // docs/physics.md §12: the curve is presented against the ideal current G0·I_k,
     // which rises with the light, so the axis never runs backwards; the ceiling is the most
     // anode current the divider delivers. An independent scan (2000 cold-started solves over
     // the same light range, no continuation) must find no larger current than the ceiling,

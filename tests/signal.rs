@@ -387,7 +387,7 @@ fn every_builtin_cathode_has_a_peak_and_cutoffs() {
 
 #[test]
 fn signal_to_noise_is_taken_at_the_range_the_pulse_needs() {
-    // docs/physics.md "Noise at the range": an oscilloscope's noise grows with V/div above its
+    // docs/physics.md §11: an oscilloscope's noise grows with V/div above its
     // floor (common practice), so the S/N that matters is at the range where the pulse fits on
     // screen. The range is the smallest 1–2–5 step from the most sensitive one that holds the
     // peak within three quarters of the screen; the report names it and uses it.
@@ -560,7 +560,7 @@ fn echo_of_a_capacitive_matched_end_matches_ngspice() {
     if !ngspice_available("echo_of_a_capacitive_matched_end_matches_ngspice") {
         return;
     }
-    // docs/physics.md "Where the signal goes": the far end's Γ(ω) = (Z_L − Z0)/(Z_L + Z0),
+    // docs/physics.md §10: the far end's Γ(ω) = (Z_L − Z0)/(Z_L + Z0),
     // Z_L = R/(1 + jωRC), is a high-pass for R = Z0, so a "matched" 50 Ω ∥ 13 pF input still
     // returns a bipolar echo of the fast edges; the open base end sends it back. ngspice's
     // lossless line on the same elements gives the reference; the echo's extreme within 2 %
@@ -595,7 +595,7 @@ fn echo_of_a_capacitive_matched_end_matches_ngspice() {
 
 #[test]
 fn energy_resolution_statistical_term_is_poisson() {
-    // docs/physics.md "Energy resolution": R_stat = 2.355·√(F/N) (Poisson statistics of the
+    // docs/physics.md §11: R_stat = 2.355·√(F/N) (Poisson statistics of the
     // photoelectrons with the chain's excess noise factor); N = 500, F = 1.2 → 11.54 % FWHM
     // (shared reference values, computed). The intrinsic term adds in quadrature.
     let e = signal::energy_resolution(500.0, 1.2, None).unwrap();

@@ -146,7 +146,7 @@ fn ngspice_agrees_on_twenty_pulses_at_one_microsecond() {
 #[test]
 fn charge_drawn_from_each_capacitor_is_its_voltage_step_times_c() {
     // Definition of capacitance, Q = C ΔV, with Kirchhoff's current law (charge conservation)
-    // on the electrodes of the decoupled chain below each capacitor (physics brief §5). During
+    // on the electrodes of the decoupled chain below each capacitor (docs/physics.md §5). During
     // a pulse far shorter than every R·C the resistors carry nothing worth counting, so the
     // charge capacitor g gives equals the net electron charge leaving those electrodes,
     // ∫(t_g − t_8) dt (gap 8's current enters the chain at D8), less what the strays at the
@@ -235,7 +235,7 @@ fn single_capacitor_recovers_with_the_thevenin_time_constant() {
 
 #[test]
 fn vanishing_pulses_keep_every_gain_ratio_at_one() {
-    // Linear limit (the small-signal gain law, physics brief §2): pulses of a millionth of a
+    // Linear limit (the small-signal gain law, docs/physics.md §2): pulses of a millionth of a
     // photoelectron cannot move the gap voltages, so every pulse's gain equals the first's
     // to within 1e-9.
     let (d, base, qk) = chain(

@@ -249,7 +249,7 @@ fn check_shows_the_warnings_too() {
 
 #[test]
 fn steady_light_that_would_saturate_the_tube() {
-    // Photons per second × QE × e × gain (physics brief §7): 1 µW of room-level light at
+    // Photons per second × QE × e × gain (docs/physics.md §7): 1 µW of room-level light at
     // 450 nm on a bialkali cathode asks for far more than the tube's average-current rating.
     let demo =
         std::fs::read_to_string(crate::common::crate_path("designs/rooftop-paddle.ron")).unwrap();

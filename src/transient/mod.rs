@@ -1,4 +1,4 @@
-//! Time-domain solve of the whole base under a pulse train (physics brief §4–5).
+//! Time-domain solve of the whole base under a pulse train (docs/physics.md §4–5).
 //!
 //! The circuit is the DC network of [`crate::network`] with every capacitor the base holds: the
 //! stray capacitance of each tube gap (K–D1 … Dn–P), the decoupling capacitors (across a gap or

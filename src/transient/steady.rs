@@ -1,4 +1,4 @@
-//! Steady state of a continuous rate (physics brief §13).
+//! Steady state of a continuous rate (docs/physics.md §13).
 //!
 //! - **Periodic**: the state `x0` at the start of a period that one period maps to itself,
 //!   `x0 = Φ(x0)`, found by shooting: quasi-Newton on `F(x) = x − Φ(x)` with Broyden's update
