@@ -251,9 +251,41 @@ enum Command {
     },
 }
 
+/// `eprintln!` that never panics: a message that cannot be shown is no reason to crash.
+macro_rules! say {
+    ($($t:tt)*) => {{
+        let _ = writeln!(std::io::stderr(), $($t)*);
+    }};
+}
+
 fn fail(msg: impl std::fmt::Display, code: Exit) -> ExitCode {
-    eprintln!("dynode: error: {msg}");
+    say!("dynode: error: {msg}");
     ExitCode::from(code as u8)
+}
+
+/// Write `bytes` to standard output and flush. A write that fails (a full disk) is an error
+/// with a message and exit 2; a closed pipe (`| head`) ends quietly with exit 2, as the reader
+/// has gone and no one is left to read a message.
+fn print_out(bytes: &[u8]) -> Result<(), ExitCode> {
+    let mut stdout = std::io::stdout().lock();
+    match stdout.write_all(bytes).and_then(|_| stdout.flush()) {
+        Ok(()) => Ok(()),
+        Err(e) if e.kind() == std::io::ErrorKind::BrokenPipe => {
+            Err(ExitCode::from(Exit::BadInput as u8))
+        }
+        Err(e) => Err(fail(
+            format!("standard output: cannot write: {e}; the output is incomplete"),
+            Exit::BadInput,
+        )),
+    }
+}
+
+/// [`print_out`] as the command's exit code.
+fn print_exit(text: &str) -> ExitCode {
+    match print_out(text.as_bytes()) {
+        Ok(()) => ExitCode::from(Exit::Ok as u8),
+        Err(code) => code,
+    }
 }
 
 /// Read and check a design, and check that the output target may be written, before any
@@ -295,14 +327,10 @@ fn emit(text: &str, out: &OutputArgs, input: &Path) -> Result<(), ExitCode> {
             output::write_atomic(path, text.as_bytes(), &[input], out.force)
                 .map_err(|e| fail(e, Exit::BadInput))?;
             if !out.quiet {
-                eprintln!("dynode: wrote {}", path.display());
+                say!("dynode: wrote {}", path.display());
             }
         }
-        None => {
-            let mut stdout = std::io::stdout().lock();
-            // A closed pipe (e.g. `| head`) is not an error.
-            let _ = stdout.write_all(text.as_bytes());
-        }
+        None => print_out(text.as_bytes())?,
     }
     Ok(())
 }
@@ -430,7 +458,7 @@ fn write_plots(
     match output::write_figures(dir, figs, inputs, out.force) {
         Ok(paths) => {
             if !out.quiet {
-                eprintln!(
+                say!(
                     "dynode: wrote {} figure files in {}",
                     paths.len(),
                     dir.display()
@@ -475,8 +503,8 @@ fn run_size(requirements: &Path, output: &Path, force: bool, quiet: bool) -> Exi
         return fail(e, Exit::BadInput);
     }
     if !quiet {
-        eprint!("{}", sizing::summary(&sized));
-        eprintln!(
+        let _ = write!(std::io::stderr(), "{}", sizing::summary(&sized));
+        say!(
             "dynode: wrote {}; check it with `dynode report {}`",
             output.display(),
             output.display()
@@ -506,8 +534,12 @@ fn run() -> ExitCode {
     match cli.command {
         Command::Completions { shell } => {
             use clap::CommandFactory;
-            clap_complete::generate(shell, &mut Cli::command(), "dynode", &mut std::io::stdout());
-            ExitCode::from(Exit::Ok as u8)
+            let mut script = Vec::new();
+            clap_complete::generate(shell, &mut Cli::command(), "dynode", &mut script);
+            match print_out(&script) {
+                Ok(()) => ExitCode::from(Exit::Ok as u8),
+                Err(code) => code,
+            }
         }
         Command::Spread {
             design,
@@ -612,12 +644,12 @@ fn run() -> ExitCode {
             // A check solves the DC design but runs no pulse train (`report` and `train` do).
             Ok(d) => match analysis::analyse_with(&d, None) {
                 Ok(a) => {
-                    println!("{}: the design reads and solves", design.display());
+                    let mut text = format!("{}: the design reads and solves\n", design.display());
                     // Plausibility warnings never block, but a check shows them too.
                     for w in &a.warnings {
-                        println!("warning: {w}");
+                        text.push_str(&format!("warning: {w}\n"));
                     }
-                    ExitCode::from(Exit::Ok as u8)
+                    print_exit(&text)
                 }
                 Err(e) => fail(&e, analysis_exit(&e)),
             },
@@ -653,7 +685,7 @@ fn run() -> ExitCode {
                 match output::write_figures(dir, figs, &[design.as_path()], out.force) {
                     Ok(paths) => {
                         if !out.quiet {
-                            eprintln!(
+                            say!(
                                 "dynode: wrote {} figure files in {}",
                                 paths.len(),
                                 dir.display()
@@ -665,7 +697,7 @@ fn run() -> ExitCode {
             }
             if strict && !a.warnings.is_empty() {
                 if !out.quiet {
-                    eprintln!(
+                    say!(
                         "dynode: {} warning(s) and --strict: exit 1",
                         a.warnings.len()
                     );
@@ -674,10 +706,7 @@ fn run() -> ExitCode {
             }
             ExitCode::from(Exit::Ok as u8)
         }
-        Command::Cathodes => {
-            print!("{}", cathode_catalogue());
-            ExitCode::from(Exit::Ok as u8)
-        }
+        Command::Cathodes => print_exit(&cathode_catalogue()),
         Command::LightMatch {
             design,
             lines,
@@ -831,6 +860,7 @@ fn run() -> ExitCode {
 }
 
 fn main() -> ExitCode {
+    output::install_interrupt_cleanup();
     run()
 }
 
@@ -990,6 +1020,5 @@ fn light_match_command(design: &Path, lines: &[f64], photons: Option<f64>) -> Ex
         }
     }
     let _ = writeln!(out, "\n{}", dynode::safety::CLOSING_CAUTION);
-    print!("{out}");
-    ExitCode::from(Exit::Ok as u8)
+    print_exit(&out)
 }

@@ -92,8 +92,18 @@ fn circuit(design: &Design, tube: &TubeModel, source: Source) -> String {
     let vs = design.supply_magnitude();
     let rtn = node(design, n + 2);
     let mut s = String::new();
-    let _ = writeln!(s, "* dynode netlist: {}", design.name.replace('\n', " "));
-    let _ = writeln!(s, "* from design file {}", design.source);
+    // User text on comment lines only, one line each: a line break in a name would start a
+    // line that the simulator runs (a `.control` block can run shell commands).
+    let _ = writeln!(
+        s,
+        "* dynode netlist: {}",
+        crate::report::one_line(&design.name)
+    );
+    let _ = writeln!(
+        s,
+        "* from design file {}",
+        crate::report::one_line(&design.source)
+    );
     let _ = writeln!(
         s,
         "* HIGH VOLTAGE: this circuit describes a base that can kill. See SAFETY.md."

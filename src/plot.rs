@@ -235,6 +235,82 @@ fn range(values: impl Iterator<Item = f64>, scale: Scale) -> (f64, f64) {
     }
 }
 
+/// Largest magnitude an axis end may have, and the most decades a log axis spans. Past them
+/// plotters' tick search loops for ever or allocates without bound (a range reaching the end of
+/// f64, or a tick step lost in the rounding of its start), and no figure of this tool needs more.
+const AXIS_LIMIT: f64 = 1e200;
+const LOG_DECADES: f64 = 30.0;
+/// Most points drawn per series: a longer series is thinned to the extremes of each slice of
+/// the data (so peaks stay), which keeps the SVG small whatever the computed series' length.
+const MAX_POINTS: usize = 4000;
+
+/// An axis range plotters can draw: finite ends within [`AXIS_LIMIT`], a span that the tick
+/// step does not lose in rounding, and a log range positive and at most [`LOG_DECADES`] wide
+/// (the top kept; lines below are cut).
+fn bounded(r: (f64, f64), scale: Scale) -> (f64, f64) {
+    match scale {
+        Scale::Linear => {
+            let fix = |v: f64| {
+                if v.is_nan() {
+                    0.0
+                } else {
+                    v.clamp(-AXIS_LIMIT, AXIS_LIMIT)
+                }
+            };
+            let (lo, hi) = (fix(r.0.min(r.1)), fix(r.0.max(r.1)));
+            let min_span = (lo.abs().max(hi.abs()) * 1e-9).max(1e-150);
+            if hi - lo < min_span {
+                let c = 0.5 * (lo + hi);
+                (c - min_span, c + min_span)
+            } else {
+                (lo, hi)
+            }
+        }
+        Scale::Log => {
+            let fix = |v: f64| {
+                if v > 0.0 {
+                    v.clamp(1.0 / AXIS_LIMIT, AXIS_LIMIT)
+                } else {
+                    1.0 / AXIS_LIMIT
+                }
+            };
+            let (lo, hi) = (fix(r.0.min(r.1)), fix(r.0.max(r.1)));
+            let widest = 10f64.powf(LOG_DECADES);
+            if hi < lo * (1.0 + 1e-9) {
+                (lo / 2.0, lo * 2.0)
+            } else if hi / lo > widest {
+                (hi / widest, hi)
+            } else {
+                (lo, hi)
+            }
+        }
+    }
+}
+
+/// At most [`MAX_POINTS`] points, keeping the first, the last and each slice's lowest and
+/// highest point in their order.
+fn thinned(points: &[(f64, f64)]) -> Vec<(f64, f64)> {
+    if points.len() <= MAX_POINTS {
+        return points.to_vec();
+    }
+    let slices = MAX_POINTS / 2 - 1;
+    let per = points.len().div_ceil(slices);
+    let mut out = Vec::with_capacity(MAX_POINTS);
+    for chunk in points.chunks(per) {
+        let by_y = |a: &&(f64, f64), b: &&(f64, f64)| a.1.total_cmp(&b.1);
+        let lo = chunk.iter().enumerate().min_by(|a, b| by_y(&a.1, &b.1));
+        let hi = chunk.iter().enumerate().max_by(|a, b| by_y(&a.1, &b.1));
+        if let (Some((i, p)), Some((j, q))) = (lo, hi) {
+            let (first, second) = if i <= j { (*p, *q) } else { (*q, *p) };
+            out.push(first);
+            if i != j {
+                out.push(second);
+            }
+        }
+    }
+    out
+}
+
 fn tick_text(v: f64, axis: &Axis, integer: bool) -> String {
     if integer {
         return format!("{}", v.round() as i64);
@@ -517,10 +593,15 @@ fn render<DB: DrawingBackend>(root: DrawingArea<DB, Shift>, fig: &Figure) -> Res
     if let Some((lo, hi)) = fig.y_limits {
         yr = (lo, hi);
     }
+    let xr = bounded(xr, if bars { Scale::Linear } else { fig.x.scale });
+    let yr = bounded(yr, fig.y.scale);
     // A log axis over less than about a decade and a half would carry no tick labels (they
     // sit at powers of ten): draw such a range linearly instead.
     let narrow = |r: (f64, f64), scale: Scale| scale == Scale::Log && r.1 / r.0 < 30.0;
     let mut fig = fig.clone();
+    for s in &mut fig.series {
+        s.points = thinned(&s.points);
+    }
     if narrow(yr, fig.y.scale) {
         fig.y.scale = Scale::Linear;
     }
@@ -562,9 +643,31 @@ pub fn svg(fig: &Figure) -> Result<String, PlotError> {
 
 /// Render a figure as PNG into the file at `path` (the caller handles atomic placement).
 pub fn png(fig: &Figure, path: &Path) -> Result<(), PlotError> {
-    let root = BitMapBackend::new(path, (WIDTH, HEIGHT)).into_drawing_area();
-    render(root, fig).map_err(|reason| PlotError::Draw {
+    let bytes = png_bytes(fig)?;
+    std::fs::write(path, bytes).map_err(|e| PlotError::Draw {
+        figure: fig.name.clone(),
+        reason: e.to_string(),
+    })
+}
+
+/// Render a figure as PNG bytes (RGB, 8 bits), for a write that the caller makes atomic.
+pub fn png_bytes(fig: &Figure) -> Result<Vec<u8>, PlotError> {
+    let fail = |reason: String| PlotError::Draw {
         figure: fig.name.clone(),
         reason,
-    })
+    };
+    let mut rgb = vec![0u8; WIDTH as usize * HEIGHT as usize * 3];
+    {
+        let root = BitMapBackend::with_buffer(&mut rgb, (WIDTH, HEIGHT)).into_drawing_area();
+        render(root, fig).map_err(fail)?;
+    }
+    let mut out = Vec::new();
+    {
+        let mut enc = png::Encoder::new(&mut out, WIDTH, HEIGHT);
+        enc.set_color(png::ColorType::Rgb);
+        enc.set_depth(png::BitDepth::Eight);
+        let mut w = enc.write_header().map_err(|e| fail(e.to_string()))?;
+        w.write_image_data(&rgb).map_err(|e| fail(e.to_string()))?;
+    }
+    Ok(out)
 }

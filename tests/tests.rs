@@ -11,6 +11,8 @@ mod common;
 mod core;
 /// Numerical edge cases; no NaN or infinity in any command's JSON.
 mod edge_cases;
+/// Output safety: planted links, device nodes, hostile file names, full disk, closed pipe.
+mod file_safety;
 /// Shared check for non-finite figures in reports (also used by the fuzz target).
 mod finite;
 /// Golden reports of every demo, so a restructuring cannot move a figure silently.

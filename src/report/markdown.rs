@@ -14,6 +14,33 @@ fn plain(s: &str) -> String {
         .replace('>', "&gt;")
 }
 
+/// One line of a user's text (a file name, the design's name) as literal Markdown text: on one
+/// line, no raw HTML, and every character that Markdown could read as inline markup (code,
+/// emphasis, links, tables, strike-through, escapes) escaped with a backslash (CommonMark §2.4);
+/// `(` and `)` need none once `[` and `]` are escaped.
+fn literal(s: &str) -> String {
+    let mut out = String::new();
+    for c in crate::report::one_line(s).chars() {
+        match c {
+            '&' => out.push_str("&amp;"),
+            '<' => out.push_str("&lt;"),
+            '>' => out.push_str("&gt;"),
+            '\\' | '`' | '*' | '_' | '[' | ']' | '#' | '|' | '~' | '!' => {
+                out.push('\\');
+                out.push(c);
+            }
+            c => out.push(c),
+        }
+    }
+    out
+}
+
+/// A code fence longer than any run of backticks in `text`, so the text cannot close it.
+fn fence(text: &str) -> String {
+    let longest = text.split(|c| c != '`').map(str::len).max().unwrap_or(0);
+    "`".repeat(longest.max(2) + 1)
+}
+
 fn cell(s: &str) -> String {
     s.replace('|', "\\|")
 }
@@ -53,9 +80,9 @@ pub fn render(a: &Analysis) -> String {
     }
     let _ = writeln!(
         out,
-        "\n# {}\n\ndynode report of design file `{}`\n",
-        plain(&d.name),
-        d.source
+        "\n# {}\n\ndynode report of design file {}\n",
+        literal(&d.name),
+        literal(&d.source)
     );
     if let Some(n) = &d.notes {
         let _ = writeln!(out, "{}\n", plain(n));
@@ -69,7 +96,8 @@ pub fn render(a: &Analysis) -> String {
     let _ = writeln!(out, "## DC linearity\n");
     table_md(&mut out, &tables::linearity(a), true);
     for (title, text) in crate::report::extra_sections(a) {
-        let _ = writeln!(out, "## {title}\n\n```text\n{}\n```\n", text.trim_end());
+        let f = fence(&text);
+        let _ = writeln!(out, "## {title}\n\n{f}text\n{}\n{f}\n", text.trim_end());
     }
     let _ = writeln!(out, "## Safety\n");
     table_md(&mut out, &tables::stored_charge(a), false);

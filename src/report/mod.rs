@@ -17,6 +17,20 @@ pub mod train;
 
 use crate::analysis::Analysis;
 
+/// A user's text (a file name, a design name) on one line: every control character (line
+/// breaks included, also U+0085, U+2028 and U+2029) and every bidirectional or invisible
+/// formatting character becomes `?`, so that it can neither start a new line in a netlist
+/// comment or a Markdown heading nor disguise what it says.
+pub fn one_line(s: &str) -> String {
+    s.chars()
+        .map(|c| {
+            let invisible = matches!(c, '\u{200B}'..='\u{200F}' | '\u{202A}'..='\u{202E}'
+                | '\u{2028}' | '\u{2029}' | '\u{2060}'..='\u{2069}' | '\u{FEFF}');
+            if c.is_control() || invisible { '?' } else { c }
+        })
+        .collect()
+}
+
 /// Output formats of `report`.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
 pub enum Format {
