@@ -14,6 +14,7 @@ use std::path::Path;
 use serde::de::{self, Visitor};
 use serde::{Deserialize, Deserializer};
 
+use crate::limits;
 use crate::units::{
     self, Capacitance, ElectricCurrent, ElectricPotential, ElectricalResistance, Kind, Power,
 };
@@ -105,7 +106,7 @@ impl<'de> Deserialize<'de> for Value {
 impl fmt::Display for Value {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
         match self {
-            Value::Number(x) => write!(f, "{x}"),
+            Value::Number(x) => write!(f, "{}", units::show_number(*x)),
             Value::Text(s) => write!(f, "\"{s}\""),
         }
     }
@@ -643,19 +644,33 @@ impl Checker<'_> {
         lo: f64,
         hi: f64,
     ) -> Result<f64, DesignError> {
-        let x = self.positive(field, v, kind)?;
-        if x < lo || x > hi {
+        let range = crate::limits::Range {
+            kind,
+            lo,
+            hi,
+            open_lo: false,
+            percent: false,
+        };
+        self.within(field, v, &range)
+    }
+
+    /// A positive quantity inside `range` (from [`crate::limits`], shared with `sweep` and
+    /// the command line); the message prints the range exactly as it is enforced.
+    pub(crate) fn within(
+        &self,
+        field: &str,
+        v: &Value,
+        range: &crate::limits::Range,
+    ) -> Result<f64, DesignError> {
+        let x = self.positive(field, v, range.kind)?;
+        if !range.contains(x) {
             return Err(self.fail(
                 field,
-                {
-                    let sym = if kind == Kind::Resistance { "Ω" } else { kind.symbol() };
-                    format!(
-                        "{v} ({}) is outside the plausible range {} to {} for this field; check the unit prefix",
-                        units::format_eng(x, sym),
-                        units::format_eng(lo, sym),
-                        units::format_eng(hi, sym)
-                    )
-                },
+                format!(
+                    "{v} ({}) is outside the plausible range {} for this field; check the unit prefix",
+                    range.show(x),
+                    range.describe()
+                ),
             ));
         }
         Ok(x)
@@ -736,6 +751,9 @@ pub fn syntax_error(file: &str, text: &str, e: &ron::error::SpannedError) -> Des
     if matches!(e.code, ron::Error::ExpectedComma) && fraction_at(text, line, col) {
         message = "expected a whole number here, without a decimal point".to_string();
     }
+    if let Some(better) = stray_character_at(text, line, col) {
+        message = better;
+    }
     if let Some(hint) = unclosed_string_before(text, line) {
         message.push_str(&format!(
             "; line {hint} has an odd number of quotes: a string there may not be closed"
@@ -751,6 +769,55 @@ pub fn syntax_error(file: &str, text: &str, e: &ron::error::SpannedError) -> Des
         col,
         message,
     }
+}
+
+/// A character at `line:col` that the parser's own words would misname: an invisible one (a
+/// byte-order mark inside the file, a zero-width space, a no-break space) or a second comma.
+fn stray_character_at(text: &str, line: usize, col: usize) -> Option<String> {
+    let src = text.lines().nth(line.saturating_sub(1))?;
+    let chars: Vec<char> = src.chars().collect();
+    let i = col.saturating_sub(1);
+    // The parser may point at the end of the last token read: look from the character before
+    // the place to the first one after it that is not ASCII white space (on later lines too).
+    let offset: usize = text
+        .lines()
+        .take(line.saturating_sub(1))
+        .map(|l| l.chars().count() + 1)
+        .sum::<usize>()
+        + i.saturating_sub(1);
+    let mut near: Vec<char> = text.chars().skip(offset).take(2).collect();
+    near.extend(
+        text.chars()
+            .skip(offset + 2)
+            .skip_while(|c| c.is_ascii_whitespace())
+            .take(1),
+    );
+    let invisible = near.iter().find_map(|c| {
+        Some(match c {
+            '\u{FEFF}' => (*c, "a byte-order mark"),
+            '\u{200B}' => (*c, "a zero-width space"),
+            '\u{200C}' | '\u{200D}' | '\u{2060}' => (*c, "a zero-width joiner"),
+            '\u{00A0}' | '\u{202F}' => (*c, "a no-break space"),
+            '\u{200E}' | '\u{200F}' | '\u{202A}'..='\u{202E}' | '\u{2066}'..='\u{2069}' => {
+                (*c, "a direction control")
+            }
+            _ => return None,
+        })
+    });
+    if let Some((c, name)) = invisible {
+        return Some(format!(
+            "found an invisible character at or just after this place, U+{:04X} ({name}), probably pasted with the text; delete it",
+            c as u32
+        ));
+    }
+    let before = chars[..i.min(chars.len())]
+        .iter()
+        .rev()
+        .find(|c| !c.is_whitespace());
+    if chars.get(i) == Some(&',') && before == Some(&',') {
+        return Some("found two commas in a row; delete one".to_string());
+    }
+    None
 }
 
 /// Whether the text at `line:col` is the `.5` of a number like `10.5`.
@@ -1107,20 +1174,26 @@ fn check(raw: RawDesign, file: &str) -> Result<Design, DesignError> {
             gain,
             exponent,
         } => {
-            let v = c.ranged("tube.gain.volts", volts, Kind::Voltage, 1.0, 1e5)?;
-            if !(gain.is_finite() && *gain > 1.0) {
+            let v = c.within("tube.gain.volts", volts, &limits::TUBE_VOLTS)?;
+            if !limits::TUBE_GAIN.contains(*gain) {
                 return Err(c.fail(
                     "tube.gain.gain",
-                    format!("expected a gain above 1, found {gain}"),
+                    format!(
+                        "expected a gain {}, found {}",
+                        limits::TUBE_GAIN.describe(),
+                        units::show_number(*gain)
+                    ),
                 ));
             }
             if let Some(k) = exponent
-                && !(k.is_finite() && *k > 0.2 && *k < 1.5)
+                && !limits::GAIN_EXPONENT.contains(*k)
             {
                 return Err(c.fail(
                         "tube.gain.exponent",
                         format!(
-                            "expected a secondary-emission exponent k between 0.2 and 1.5 (typically 0.7–0.8), found {k}"
+                            "expected a secondary-emission exponent k from {} (typically 0.7–0.8), found {}",
+                            limits::GAIN_EXPONENT.describe(),
+                            units::show_number(*k)
                         ),
                     ));
             }
@@ -1143,9 +1216,16 @@ fn check(raw: RawDesign, file: &str) -> Result<Design, DesignError> {
             let mut out = Vec::with_capacity(points.len());
             for (i, (v, g)) in points.iter().enumerate() {
                 let field = format!("tube.gain.points[{i}]");
-                let v = c.ranged(&field, v, Kind::Voltage, 1.0, 1e5)?;
-                if !(g.is_finite() && *g > 1.0) {
-                    return Err(c.fail(&field, format!("expected a gain above 1, found {g}")));
+                let v = c.within(&field, v, &limits::TUBE_VOLTS)?;
+                if !limits::TUBE_GAIN.contains(*g) {
+                    return Err(c.fail(
+                        &field,
+                        format!(
+                            "expected a gain {}, found {}",
+                            limits::TUBE_GAIN.describe(),
+                            units::show_number(*g)
+                        ),
+                    ));
                 }
                 if let Some((pv, pg)) = out
                     .last()
@@ -1199,42 +1279,39 @@ fn check(raw: RawDesign, file: &str) -> Result<Design, DesignError> {
         None => (TYPICAL_COLLECTION, true),
         Some(v) => {
             let x = c.quantity("tube.collection", v, Kind::Ratio)?;
-            if !(x > 0.0 && x <= 1.0) {
+            if !limits::COLLECTION.contains(x) {
                 return Err(c.fail(
                     "tube.collection",
-                    format!("expected a fraction in (0, 1], found {v}"),
+                    format!(
+                        "expected a fraction {}, found {v}",
+                        limits::COLLECTION.describe()
+                    ),
                 ));
             }
             (x, false)
         }
     };
-    let max_supply = c.ranged(
+    let max_supply = c.within(
         "tube.limits.max_supply",
         &t.limits.max_supply,
-        Kind::Voltage,
-        1.0,
-        1e5,
+        &limits::TUBE_VOLTS,
     )?;
     let max_gap = match &t.limits.max_gap {
         None => None,
-        Some(v) => Some(c.ranged("tube.limits.max_gap", v, Kind::Voltage, 1.0, 1e5)?),
+        Some(v) => Some(c.within("tube.limits.max_gap", v, &limits::TUBE_VOLTS)?),
     };
-    let max_anode = c.ranged(
+    let max_anode = c.within(
         "tube.limits.max_anode_current",
         &t.limits.max_anode_current,
-        Kind::Current,
-        1e-12,
-        1.0,
+        &limits::MAX_ANODE_CURRENT,
     )?;
     let pulse_linearity = match &t.pulse_linearity {
         None => None,
         Some(p) => {
-            let i = c.ranged(
+            let i = c.within(
                 "tube.pulse_linearity.peak_current",
                 &p.peak_current,
-                Kind::Current,
-                1e-6,
-                100.0,
+                &limits::PULSE_PEAK_CURRENT,
             )?;
             let dev = match &p.deviation {
                 None => 0.02,
@@ -1246,12 +1323,10 @@ fn check(raw: RawDesign, file: &str) -> Result<Design, DesignError> {
                     format!("expected a gain deviation between 0 and 50 %, found {dev}"),
                 ));
             }
-            let vg = c.ranged(
+            let vg = c.within(
                 "tube.pulse_linearity.last_gap",
                 &p.last_gap,
-                Kind::Voltage,
-                1.0,
-                1e4,
+                &limits::PULSE_LAST_GAP,
             )?;
             Some((
                 ElectricCurrent::new::<ampere>(i),
@@ -1275,6 +1350,17 @@ fn check(raw: RawDesign, file: &str) -> Result<Design, DesignError> {
     // Supply
     let s = &raw.supply;
     let sv = c.quantity("supply.volts", &s.volts, Kind::Voltage)?;
+    // The magnitude first: "-0 V" is too small, whatever its sign.
+    if sv.abs() < limits::SUPPLY_VOLTS.lo {
+        return Err(c.fail(
+            "supply.volts",
+            format!(
+                "expected a high voltage of at least {} V in magnitude, found {}",
+                units::show_number(limits::SUPPLY_VOLTS.lo),
+                s.volts
+            ),
+        ));
+    }
     match s.polarity {
         Polarity::CathodeNegative if sv >= 0.0 => {
             return Err(c.fail(
@@ -1308,18 +1394,9 @@ fn check(raw: RawDesign, file: &str) -> Result<Design, DesignError> {
             ),
         ));
     }
-    if sv.abs() < 10.0 {
-        return Err(c.fail(
-            "supply.volts",
-            format!(
-                "expected a high voltage of at least 10 V in magnitude, found {}",
-                s.volts
-            ),
-        ));
-    }
     let current_limit = match &s.current_limit {
         None => None,
-        Some(v) => Some(c.ranged("supply.current_limit", v, Kind::Current, 1e-9, 10.0)?),
+        Some(v) => Some(c.within("supply.current_limit", v, &limits::SUPPLY_CURRENT_LIMIT)?),
     };
     let supply_resistance = match &s.output_resistance {
         None => None,
@@ -1371,15 +1448,13 @@ fn check(raw: RawDesign, file: &str) -> Result<Design, DesignError> {
         }
         elements.push(match e {
             RawElement::Series(count, v) => {
-                let each = c.ranged(&field, v, Kind::Resistance, 1.0, 1e11)?;
+                let each = c.within(&field, v, &limits::RESISTOR)?;
                 Element::Resistor(ElectricalResistance::new::<ohm>(each * *count as f64))
             }
-            RawElement::R(v) => Element::Resistor(ElectricalResistance::new::<ohm>(c.ranged(
+            RawElement::R(v) => Element::Resistor(ElectricalResistance::new::<ohm>(c.within(
                 &field,
                 v,
-                Kind::Resistance,
-                1.0,
-                1e11,
+                &limits::RESISTOR,
             )?)),
             RawElement::Zener {
                 volts,
@@ -1387,7 +1462,7 @@ fn check(raw: RawDesign, file: &str) -> Result<Design, DesignError> {
                 power,
                 leakage,
             } => {
-                let vz = c.ranged(&format!("{field}.volts"), volts, Kind::Voltage, 1.0, 1e4)?;
+                let vz = c.within(&format!("{field}.volts"), volts, &limits::ZENER_VOLTS)?;
                 let rz = c.ranged(
                     &format!("{field}.dynamic"),
                     dynamic,
@@ -1460,13 +1535,7 @@ fn check(raw: RawDesign, file: &str) -> Result<Design, DesignError> {
                 (CapStyle::ToReturn(*dynode as usize), value, rating)
             }
         };
-        let value = c.ranged(
-            &format!("{field}.value"),
-            value,
-            Kind::Capacitance,
-            1e-13,
-            1e-4,
-        )?;
+        let value = c.within(&format!("{field}.value"), value, &limits::DECOUPLING)?;
         let rating = match rating {
             None => None,
             Some(r) => Some(ElectricPotential::new::<volt>(c.ranged(
@@ -1495,7 +1564,7 @@ fn check(raw: RawDesign, file: &str) -> Result<Design, DesignError> {
     }
     let stray = match &d.stray {
         None => TYPICAL_STRAY_FARADS,
-        Some(v) => c.ranged("divider.stray", v, Kind::Capacitance, 1e-15, 1e-9)?,
+        Some(v) => c.within("divider.stray", v, &limits::STRAY)?,
     };
     let shield_resistor = match &d.shield_resistor {
         None => None,
@@ -1506,7 +1575,7 @@ fn check(raw: RawDesign, file: &str) -> Result<Design, DesignError> {
     let l = &raw.load;
     let load_resistance = match &l.resistance {
         Value::Text(t) if t.trim().eq_ignore_ascii_case("open") => None,
-        v => Some(c.ranged("load.resistance", v, Kind::Resistance, 1.0, 1e9)?),
+        v => Some(c.within("load.resistance", v, &limits::LOAD_RESISTANCE)?),
     };
     let base_resistance = match &l.at_base {
         None => None,
@@ -1514,15 +1583,15 @@ fn check(raw: RawDesign, file: &str) -> Result<Design, DesignError> {
     };
     let load_capacitance = match &l.capacitance {
         None => 10e-12,
-        Some(v) => c.ranged("load.capacitance", v, Kind::Capacitance, 1e-15, 1e-6)?,
+        Some(v) => c.within("load.capacitance", v, &limits::LOAD_CAPACITANCE)?,
     };
     let anode_resistor = match &l.anode_resistor {
         None => None,
-        Some(v) => Some(c.ranged("load.anode_resistor", v, Kind::Resistance, 1.0, 1e9)?),
+        Some(v) => Some(c.within("load.anode_resistor", v, &limits::ANODE_RESISTOR)?),
     };
     let coupling = match &l.coupling {
         None => None,
-        Some(v) => Some(c.ranged("load.coupling", v, Kind::Capacitance, 1e-13, 1e-4)?),
+        Some(v) => Some(c.within("load.coupling", v, &limits::COUPLING)?),
     };
     let coupling_rating = match &l.coupling_rating {
         None => None,
@@ -1563,13 +1632,11 @@ fn check(raw: RawDesign, file: &str) -> Result<Design, DesignError> {
     let (resistor_power, resistor_wv, resistor_tol, resistors_assumed) = match &raw.resistors {
         None => (0.25, 250.0, 0.01, true),
         Some(r) => {
-            let p = c.ranged("resistors.power", &r.power, Kind::Power, 1e-3, 100.0)?;
-            let wv = c.ranged(
+            let p = c.within("resistors.power", &r.power, &limits::RESISTOR_POWER)?;
+            let wv = c.within(
                 "resistors.working_voltage",
                 &r.working_voltage,
-                Kind::Voltage,
-                1.0,
-                1e5,
+                &limits::RESISTOR_WORKING_VOLTAGE,
             )?;
             let tol = match &r.tolerance {
                 None => 0.01,
@@ -1619,12 +1686,10 @@ fn check(raw: RawDesign, file: &str) -> Result<Design, DesignError> {
 
     let anode_current = match &raw.operating {
         None => max_anode * 0.1,
-        Some(o) => c.ranged(
+        Some(o) => c.within(
             "operating.anode_current",
             &o.anode_current,
-            Kind::Current,
-            1e-15,
-            10.0,
+            &limits::ANODE_CURRENT,
         )?,
     };
 

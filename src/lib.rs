@@ -17,6 +17,7 @@ pub mod constants;
 pub mod design;
 pub mod eseries;
 pub mod light;
+pub mod limits;
 pub mod linearity;
 pub mod netlist;
 pub mod network;

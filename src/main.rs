@@ -338,7 +338,10 @@ fn emit(text: &str, out: &OutputArgs, input: &Path) -> Result<(), ExitCode> {
 fn ratio(text: &str) -> Result<f64, String> {
     match units::parse(text, Kind::Ratio) {
         Ok(v) if (0.0..1.0).contains(&v) => Ok(v),
-        Ok(v) => Err(format!("expected a fraction from 0 to 100 %, found {v}")),
+        Ok(v) => Err(format!(
+            "expected a fraction from 0 up to (not including) 100 %, found {} %",
+            units::show_number(v * 100.0)
+        )),
         Err(e) => Err(e.to_string()),
     }
 }
@@ -368,11 +371,31 @@ fn run_spread(
     {
         return fail(e, Exit::BadInput);
     }
-    if cfg.samples == 0 || cfg.samples > 10_000_000 {
-        return fail("--samples: expected 1 to 10 000 000", Exit::BadInput);
+    let (lo, hi) = dynode::limits::SPREAD_SAMPLES;
+    if !(lo..=hi).contains(&cfg.samples) {
+        return fail(
+            format!("--samples: expected {lo} to {hi}, found {}", cfg.samples),
+            Exit::BadInput,
+        );
     }
-    if !(cfg.sigmas.is_finite() && cfg.sigmas > 0.0) {
-        return fail("--sigmas: expected a positive number", Exit::BadInput);
+    if cfg.linearity_samples > dynode::limits::SPREAD_LINEARITY_SAMPLES {
+        return fail(
+            format!(
+                "--linearity-samples: expected 0 to {} (each costs about 80 solves), found {}",
+                dynode::limits::SPREAD_LINEARITY_SAMPLES,
+                cfg.linearity_samples
+            ),
+            Exit::BadInput,
+        );
+    }
+    if !(cfg.sigmas.is_finite() && cfg.sigmas > 0.0 && cfg.sigmas <= 10.0) {
+        return fail(
+            format!(
+                "--sigmas: expected a number of standard deviations above 0 up to 10, found {}",
+                units::show_number(cfg.sigmas)
+            ),
+            Exit::BadInput,
+        );
     }
     if !(cfg.tube_gain_sigma.is_finite() && (0.0..3.0).contains(&cfg.tube_gain_sigma)) {
         return fail("--tube-gain-sigma: expected 0 to 3", Exit::BadInput);
@@ -779,12 +802,18 @@ fn run() -> ExitCode {
             let anode = match &anode_current {
                 None => d.anode_current,
                 Some(t) => match units::parse(t, Kind::Current) {
-                    Ok(v) if v > 0.0 => {
+                    Ok(v) if dynode::limits::ANODE_CURRENT.contains(v) => {
                         dynode::units::ElectricCurrent::new::<uom::si::electric_current::ampere>(v)
                     }
-                    Ok(_) => {
+                    Ok(v) => {
                         return fail(
-                            "--anode-current: expected a positive current",
+                            format!(
+                                "--anode-current: {} (the design file's range for operating.anode_current)",
+                                dynode::limits::ANODE_CURRENT
+                                    .check(v)
+                                    .err()
+                                    .unwrap_or_default()
+                            ),
                             Exit::BadInput,
                         );
                     }
@@ -916,20 +945,26 @@ fn light_match_command(design: &Path, lines: &[f64], photons: Option<f64>) -> Ex
         Ok(d) => d,
         Err(e) => return fail(e, Exit::BadInput),
     };
-    if let Some(bad) = lines
-        .iter()
-        .find(|nm| !(nm.is_finite() && (100.0..=2000.0).contains(*nm)))
-    {
+    use dynode::limits::{PHOTONS, WAVELENGTH};
+    if let Some(bad) = lines.iter().find(|nm| !WAVELENGTH.contains(**nm * 1e-9)) {
         return fail(
-            format!("--lines: expected wavelengths between 100 and 2000 nm, found {bad}"),
+            format!(
+                "--lines: expected wavelengths in nm from {}, found {}",
+                WAVELENGTH.describe(),
+                units::show_number(*bad)
+            ),
             Exit::BadInput,
         );
     }
     if let Some(p) = photons
-        && !(p.is_finite() && p > 0.0 && p < 1e20)
+        && !PHOTONS.contains(p)
     {
         return fail(
-            format!("--photons: expected a positive number of photons per pulse, found {p}"),
+            format!(
+                "--photons: expected a number of photons per pulse {}, found {}",
+                PHOTONS.describe(),
+                units::show_number(p)
+            ),
             Exit::BadInput,
         );
     }

@@ -368,14 +368,21 @@ fn quantity(
             units::parse(t, kind).map_err(|e| field_err(file, field, format!("{e} (found {v})")))?
         }
     };
-    if !(x >= lo && x <= hi) {
+    let range = crate::limits::Range {
+        kind,
+        lo,
+        hi,
+        open_lo: false,
+        percent: kind == Kind::Ratio,
+    };
+    if !range.contains(x) {
         return Err(field_err(
             file,
             field,
             format!(
-                "{v} is outside the plausible range {} to {} for this field; check the unit prefix",
-                format_eng(lo, kind.symbol()),
-                format_eng(hi, kind.symbol())
+                "{v} ({}) is outside the plausible range {} for this field; check the unit prefix",
+                range.show(x),
+                range.describe()
             ),
         ));
     }
@@ -391,11 +398,15 @@ pub fn parse_requirements(text: &str, file: &str) -> Result<Requirements, Sizing
     let stages = raw.tube.stages;
     let target_gain = match raw.target {
         RawTarget::Gain(g) => {
-            if !(g.is_finite() && g > 1.0 && g < 1e12) {
+            if !crate::limits::TUBE_GAIN.contains(g) {
                 return Err(field_err(
                     f,
                     "target",
-                    format!("expected a gain between 1 and 1e12, found {g}"),
+                    format!(
+                        "expected a gain {} (the design file's range), found {}",
+                        crate::limits::TUBE_GAIN.describe(),
+                        units::show_number(g)
+                    ),
                 )
                 .into());
             }

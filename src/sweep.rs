@@ -477,10 +477,28 @@ pub fn run(design: &Design, axes: &[Axis]) -> Sweep {
 }
 
 /// Check the axes against a design before running (index ranges, gain-law kind).
+/// Check that every axis names a field of this design and that its values lie in the field's
+/// plausible range, the same as the design file's ([`crate::limits`]).
 pub fn check_axes(design: &Design, axes: &[Axis]) -> Result<(), String> {
     for a in axes {
         let mut d = design.clone();
         set_field(&mut d, &a.path, a.values[0])?;
+        let generic = match (a.path.find('['), a.path.find(']')) {
+            (Some(i), Some(j)) if j > i => format!("{}[i]{}", &a.path[..i], &a.path[j + 1..]),
+            _ => a.path.clone(),
+        };
+        let zener = generic == "divider.gaps[i]"
+            && field_kind(&a.path)
+                .and_then(|(_, i)| i)
+                .and_then(|i| design.elements.get(i))
+                .is_some_and(|e| matches!(e, Element::Zener(..)));
+        if let Some(range) = crate::limits::of_field(&generic, zener) {
+            for v in &a.values {
+                range.check(*v).map_err(|e| {
+                    format!("{}: {e} (the design file's range for this field)", a.path)
+                })?;
+            }
+        }
     }
     Ok(())
 }

@@ -6,9 +6,13 @@
 //! and refuses text whose unit belongs to another kind ("4.7 uV" where a capacitance belongs).
 //! Only this edge knows about text; everything inward receives uom quantities or checked f64.
 //!
-//! Prefixes follow the SI brochure (BIPM, 9th edition): f p n u/µ m k M G T. `K` is accepted for
-//! kilo as resistor markings commonly use it (common practice); `R` as an ohm sign and the
-//! "4k7" style (the prefix standing for the decimal point, IEC 60062) are accepted for resistance.
+//! Prefixes follow the SI brochure (BIPM, 9th edition, with the 2022 additions) from q to Q;
+//! c, d, da and h only before a unit symbol ("500 cm"). `K` is accepted for kilo as resistor
+//! markings commonly use it (common practice), SPICE's `Meg` for mega, spelled-out names
+//! ("kilovolt", "nanofarads"), and the marking style "4k7", "4n7" (the prefix standing for the
+//! decimal point, IEC 60062); `R` is an ohm sign for resistances ("4R7", "100R"). The ohm sign
+//! U+2126 reads as the Greek capital omega; an invisible character (a byte-order mark, a
+//! zero-width space) is refused and named.
 
 use std::fmt;
 
@@ -157,7 +161,7 @@ impl fmt::Display for QuantityError {
 fn unit_kind(symbol: &str) -> Option<Kind> {
     Some(match symbol {
         "V" | "v" => Kind::Voltage,
-        "ohm" | "ohms" | "Ohm" | "Ω" | "R" | "Ohms" => Kind::Resistance,
+        "ohm" | "ohms" | "Ohm" | "Ω" | "\u{2126}" | "R" | "Ohms" => Kind::Resistance,
         "F" => Kind::Capacitance,
         "A" => Kind::Current,
         "W" => Kind::Power,
@@ -170,19 +174,133 @@ fn unit_kind(symbol: &str) -> Option<Kind> {
     })
 }
 
+/// SI prefixes (BIPM, 9th edition, with the 2022 additions), `u`/`µ`/`μ` for micro and `K` for
+/// kilo (resistor markings). `R` is ronna only where it cannot be the ohm sign; the prefixes
+/// for small powers of ten (c, d, h) stand only before a unit symbol ([`bare_prefix`]).
 fn prefix_factor(c: char) -> Option<f64> {
     Some(match c {
+        'q' => 1e-30,
+        'r' => 1e-27,
+        'y' => 1e-24,
+        'z' => 1e-21,
+        'a' => 1e-18,
         'f' => 1e-15,
         'p' => 1e-12,
         'n' => 1e-9,
         'u' | 'µ' | 'μ' => 1e-6,
         'm' => 1e-3,
+        'c' => 1e-2,
+        'd' => 1e-1,
+        'h' => 1e2,
         'k' | 'K' => 1e3,
         'M' => 1e6,
         'G' => 1e9,
         'T' => 1e12,
+        'P' => 1e15,
+        'E' => 1e18,
+        'Z' => 1e21,
+        'Y' => 1e24,
+        'R' => 1e27,
+        'Q' => 1e30,
         _ => return None,
     })
+}
+
+/// Whether prefix `c` may stand alone after a number ("10n", "470k"). Centi, deci and hecto
+/// may not: "2 h" and "1 d" read as hours and days, "5 c" as nothing.
+fn bare_prefix(c: char) -> bool {
+    !matches!(c, 'c' | 'd' | 'h')
+}
+
+/// The prefixes listed in messages.
+const PREFIXES: &str = "q r y z a f p n u/µ m c d (da) h k M G T P E Z Y R Q, or Meg";
+
+/// Spelled-out prefixes and units ("kilovolt", "nanofarads", "megohm").
+fn spelled(rest: &str, kind: Kind) -> Option<f64> {
+    const PREFIX_NAMES: &[(&str, f64)] = &[
+        ("quecto", 1e-30),
+        ("ronto", 1e-27),
+        ("yocto", 1e-24),
+        ("zepto", 1e-21),
+        ("atto", 1e-18),
+        ("femto", 1e-15),
+        ("pico", 1e-12),
+        ("nano", 1e-9),
+        ("micro", 1e-6),
+        ("milli", 1e-3),
+        ("centi", 1e-2),
+        ("deci", 1e-1),
+        ("deca", 1e1),
+        ("deka", 1e1),
+        ("hecto", 1e2),
+        ("kilo", 1e3),
+        ("mega", 1e6),
+        ("meg", 1e6),
+        ("giga", 1e9),
+        ("tera", 1e12),
+        ("peta", 1e15),
+        ("exa", 1e18),
+        ("zetta", 1e21),
+        ("yotta", 1e24),
+        ("ronna", 1e27),
+        ("quetta", 1e30),
+    ];
+    let names: &[&str] = match kind {
+        Kind::Voltage => &["volt"],
+        Kind::Resistance => &["ohm"],
+        Kind::Capacitance => &["farad"],
+        Kind::Current => &["ampere", "amp"],
+        Kind::Power => &["watt"],
+        Kind::Time => &["second", "sec"],
+        Kind::Frequency => &["hertz"],
+        Kind::Charge => &["coulomb"],
+        Kind::Energy => &["joule"],
+        Kind::Length => &["metre", "meter"],
+        Kind::Ratio => &["percent"],
+    };
+    let word = rest.to_lowercase();
+    let word = word.strip_suffix('s').unwrap_or(&word);
+    let unit = |w: &str| names.contains(&w) || (kind == Kind::Frequency && w == "hertz");
+    if unit(word) {
+        return Some(1.0);
+    }
+    PREFIX_NAMES.iter().find_map(|(p, f)| {
+        let tail = word.strip_prefix(p)?;
+        // "megohm": the prefix's last vowel merges with the unit's first.
+        (unit(tail) || (kind == Kind::Resistance && tail == "hm")).then_some(*f)
+    })
+}
+
+/// An invisible or look-alike character that a copy and paste may bring into a value,
+/// named for the message: (code point, name).
+fn invisible(text: &str) -> Option<(char, &'static str)> {
+    text.chars().find_map(|c| {
+        let name = match c {
+            '\u{FEFF}' => "byte-order mark",
+            '\u{200B}' => "zero-width space",
+            '\u{200C}' => "zero-width non-joiner",
+            '\u{200D}' => "zero-width joiner",
+            '\u{200E}' | '\u{200F}' => "direction mark",
+            '\u{2060}' => "word joiner",
+            '\u{00AD}' => "soft hyphen",
+            '\u{202A}'..='\u{202E}' | '\u{2066}'..='\u{2069}' => "direction control",
+            '\n' | '\r' => "line break",
+            c if c.is_control() && c != '\t' => "control character",
+            _ => return None,
+        };
+        Some((c, name))
+    })
+}
+
+/// A number for a message: as written for everyday sizes, in scientific notation otherwise
+/// (never 1e300 digit by digit).
+pub fn show_number(x: f64) -> String {
+    let a = x.abs();
+    if x == 0.0 || !x.is_finite() || (1e-4..1e7).contains(&a) {
+        format!("{x}")
+    } else {
+        format!("{x:e}")
+    }
 }
 
 /// Split the leading number (sign, digits, point, exponent) from the rest.
@@ -220,12 +338,28 @@ pub fn parse(text: &str, kind: Kind) -> Result<f64, QuantityError> {
         expected: kind,
         reason,
     };
-    let t = text.trim();
+    if let Some((c, name)) = invisible(text) {
+        return Err(err(format!(
+            "the text holds an invisible character, U+{:04X} ({name}); delete it and type the value again",
+            c as u32
+        )));
+    }
+    // No-break spaces (copied from documents) are spaces; the ohm sign U+2126 is the letter Ω.
+    let normalised: String = text
+        .chars()
+        .map(|c| match c {
+            '\u{00A0}' | '\u{202F}' | '\u{2009}' | '\t' => ' ',
+            '\u{2126}' => 'Ω',
+            c => c,
+        })
+        .collect();
+    let t = normalised.trim();
     if t.is_empty() {
         return Err(err("the text is empty".into()));
     }
     let lower = t.to_ascii_lowercase();
-    if lower.contains("nan") || lower.contains("inf") {
+    let unsigned = lower.trim_start_matches(['+', '-']);
+    if unsigned.starts_with("nan") || unsigned.starts_with("inf") {
         return Err(err(format!("\"{t}\" is not a finite number")));
     }
     let (num, rest) = split_number(t);
@@ -237,22 +371,28 @@ pub fn parse(text: &str, kind: Kind) -> Result<f64, QuantityError> {
         .map_err(|_| err(format!("\"{num}\" is not a number")))?;
     let mut rest = rest.trim_start();
 
-    // Marking style "4k7", "4R7", "2M2": a prefix (or R) between digit groups.
-    if kind == Kind::Resistance && !num.contains('.') && !num.contains(['e', 'E']) {
+    // Marking style "4k7", "4R7", "2M2", "4n7", "4n7F" (IEC 60062): a prefix (or R for ohms)
+    // standing for the decimal point, an optional unit symbol after the second digit group.
+    if !num.contains(['.', 'e', 'E']) && num.chars().any(|c| c.is_ascii_digit()) {
         let mut chars = rest.chars();
         if let Some(c) = chars.next() {
             let tail = chars.as_str();
-            if !tail.is_empty() && tail.chars().all(|d| d.is_ascii_digit()) {
-                let factor = if c == 'R' {
-                    Some(1.0)
-                } else {
-                    prefix_factor(c)
-                };
-                if let Some(f) = factor {
-                    let frac: f64 = format!("0.{tail}").parse().unwrap_or(0.0);
-                    let v = (value.abs() + frac) * f * value.signum();
-                    return finite(v, t, kind);
-                }
+            let digits = tail.len() - tail.trim_start_matches(|d: char| d.is_ascii_digit()).len();
+            let (frac, unit) = tail.split_at(digits);
+            let unit_ok = unit.is_empty() || unit_kind(unit.trim_start()) == Some(kind);
+            let factor = if c == 'R' && kind == Kind::Resistance {
+                Some(1.0)
+            } else if c == 'R' || !bare_prefix(c) {
+                None
+            } else {
+                prefix_factor(c)
+            };
+            if let (Some(f), false, true, false) =
+                (factor, frac.is_empty(), unit_ok, kind == Kind::Ratio)
+            {
+                let frac: f64 = format!("0.{frac}").parse().unwrap_or(0.0);
+                let v = (value.abs() + frac) * f * value.signum();
+                return finite(v, t, kind);
             }
         }
     }
@@ -286,6 +426,28 @@ pub fn parse(text: &str, kind: Kind) -> Result<f64, QuantityError> {
         return Err(err(format!("\"{t}\" is a percentage, not {}", kind.name())));
     }
 
+    // SPICE's "Meg" (SPICE reads "M" as milli; here "M" is mega as in SI, so both agree).
+    for meg in ["Meg", "meg", "MEG"] {
+        if let Some(after) = rest.strip_prefix(meg) {
+            let after = after.trim_start();
+            if after.is_empty() || unit_kind(after) == Some(kind) {
+                return finite(value * 1e6, t, kind);
+            }
+        }
+    }
+    // Spelled out: "1.2 kilovolts", "470 kiloohm", "10 nanofarads".
+    if rest.chars().count() > 2
+        && rest.chars().all(char::is_alphabetic)
+        && let Some(f) = spelled(rest, kind)
+    {
+        return finite(value * f, t, kind);
+    }
+    // Deca, the one two-letter prefix.
+    if let Some(after) = rest.strip_prefix("da")
+        && unit_kind(after.trim_start()) == Some(kind)
+    {
+        return finite(value * 10.0, t, kind);
+    }
     // Whole rest a unit symbol?
     if let Some(k) = unit_kind(rest) {
         // "m" alone for a non-length kind means milli with no unit (e.g. "10m" ohm).
@@ -294,6 +456,8 @@ pub fn parse(text: &str, kind: Kind) -> Result<f64, QuantityError> {
         }
         if rest.chars().count() == 1
             && let Some(f) = prefix_factor(rest.chars().next().unwrap_or(' '))
+            && bare_prefix(rest.chars().next().unwrap_or(' '))
+            && !(rest == "R" && kind == Kind::Resistance)
         {
             return finite(value * f, t, kind);
         }
@@ -311,6 +475,12 @@ pub fn parse(text: &str, kind: Kind) -> Result<f64, QuantityError> {
         value *= f;
         rest = after.trim_start();
         if rest.is_empty() {
+            if !bare_prefix(first) {
+                return Err(err(format!(
+                    "\"{first}\" alone is not read as a prefix (it could mean hours, days or a typing slip); write the unit after it, e.g. \"{first}{}\", or use a prefix from {PREFIXES}",
+                    kind.symbol()
+                )));
+            }
             return finite(value, t, kind);
         }
         return match unit_kind(rest) {
@@ -320,17 +490,18 @@ pub fn parse(text: &str, kind: Kind) -> Result<f64, QuantityError> {
                 k.name(),
                 kind.name()
             ))),
-            None => Err(err(format!("\"{rest}\" is not a known unit"))),
+            None => Err(err(format!(
+                "\"{rest}\" is not a known unit; write {} with an optional SI prefix",
+                kind.symbol()
+            ))),
         };
     }
     if first.is_alphabetic() {
         if after.is_empty() || unit_kind(after.trim_start()) == Some(kind) {
-            return Err(err(format!(
-                "\"{first}\" is not an SI prefix (f p n u m k M G T)"
-            )));
+            return Err(err(format!("\"{first}\" is not an SI prefix ({PREFIXES})")));
         }
         return Err(err(format!(
-            "\"{rest}\" is not a unit of {}; write {} with an optional SI prefix (f p n u m k M G T)",
+            "\"{rest}\" is not a unit of {}; write {} with an optional SI prefix ({PREFIXES}), or spelled out (\"kilovolt\")",
             kind.noun(),
             kind.symbol()
         )));
@@ -378,6 +549,11 @@ pub fn format_eng(value: f64, unit: &str) -> String {
     }
     if value == 0.0 {
         return format!("0 {unit}");
+    }
+    // Beyond the prefixes from f to T, scientific notation where the femto prefix would show
+    // "0.00": never "0.00 fC" for 3.9e-19 C nor "0.00 fV" for 1e-300 V.
+    if !(0.005e-15..999.5e12).contains(&value.abs()) {
+        return format!("{value:.2e} {unit}");
     }
     let (scale, p) = engineering_prefix(value.abs(), "µ", 0.9995);
     let x = value / scale;
@@ -446,6 +622,62 @@ mod tests {
             "{e}"
         );
         assert_eq!(Kind::Energy.noun(), "energy");
+    }
+
+    #[test]
+    fn every_si_prefix_and_common_spellings() {
+        // SI brochure, 9th edition (2019) and the 2022 additions (ronna, quetta, ronto, quecto).
+        assert!(close(parse("500 cm", Kind::Length).unwrap(), 5.0));
+        assert!(close(parse("3 dam", Kind::Length).unwrap(), 30.0));
+        assert!(close(parse("2 aC", Kind::Charge).unwrap(), 2e-18));
+        assert!(close(parse("1 PHz", Kind::Frequency).unwrap(), 1e15));
+        assert!(close(parse("1 qC", Kind::Charge).unwrap(), 1e-30));
+        assert!(close(parse("4n7", Kind::Capacitance).unwrap(), 4.7e-9));
+        assert!(close(parse("4n7F", Kind::Capacitance).unwrap(), 4.7e-9));
+        assert!(close(parse("0.47Meg", Kind::Resistance).unwrap(), 4.7e5));
+        assert!(close(parse("1meg", Kind::Resistance).unwrap(), 1e6));
+        assert!(close(
+            parse("1.2 kilovolts", Kind::Voltage).unwrap(),
+            1200.0
+        ));
+        assert!(close(
+            parse("10 nanofarad", Kind::Capacitance).unwrap(),
+            1e-8
+        ));
+        assert!(close(parse("2 megohm", Kind::Resistance).unwrap(), 2e6));
+        assert!(close(parse("100R", Kind::Resistance).unwrap(), 100.0));
+        // The ohm sign U+2126 and the Greek capital omega U+03A9 alike.
+        assert!(close(
+            parse("4.7 k\u{2126}", Kind::Resistance).unwrap(),
+            4700.0
+        ));
+        assert!(close(
+            parse("4.7 k\u{03A9}", Kind::Resistance).unwrap(),
+            4700.0
+        ));
+        // Centi, deci and hecto never alone: "2 h" is not 200 s.
+        let e = parse("2 h", Kind::Time).unwrap_err();
+        assert!(
+            e.to_string().contains("alone is not read as a prefix"),
+            "{e}"
+        );
+        // An invisible character is named.
+        let e = parse("\u{FEFF}100 V", Kind::Voltage).unwrap_err();
+        assert!(e.to_string().contains("U+FEFF (byte-order mark)"), "{e}");
+        let e = parse("10\u{200B}0 V", Kind::Voltage).unwrap_err();
+        assert!(e.to_string().contains("zero-width space"), "{e}");
+        assert!(close(
+            parse("1100\u{00A0}V", Kind::Voltage).unwrap(),
+            1100.0
+        ));
+    }
+
+    #[test]
+    fn numbers_in_messages_stay_short() {
+        assert_eq!(show_number(1e300), "1e300");
+        assert_eq!(show_number(250.0), "250");
+        assert_eq!(format_eng(1e-300, "V"), "1.00e-300 V");
+        assert_eq!(format_eng(1e300, "V"), "1.00e300 V");
     }
 
     #[test]

@@ -220,14 +220,15 @@ fn a_closed_pipe_ends_quietly_without_a_panic() {
     let dir = temp_dir("closed-pipe");
     let design = copy_demo(&dir, "d.ron");
     for args in printing_commands(&design) {
-        let mut child = Command::new(BIN)
+        // A pipe whose reader has gone before the run starts, so that every write meets it.
+        let (reader, writer) = std::io::pipe().expect("pipe");
+        drop(reader);
+        let o = Command::new(BIN)
             .args(&args)
-            .stdout(Stdio::piped())
+            .stdout(writer)
             .stderr(Stdio::piped())
-            .spawn()
-            .expect("spawn");
-        drop(child.stdout.take()); // the reader goes before anything is read
-        let o = child.wait_with_output().expect("wait");
+            .output()
+            .expect("run");
         let err = stderr(&o);
         assert_eq!(o.status.code(), Some(2), "{args:?}: {err}");
         assert!(!err.contains("panicked"), "{args:?}: {err}");

@@ -341,16 +341,16 @@ pub struct SignalSpec {
 fn wavelength(c: &Checker, field: &str, v: &Value) -> Result<f64, DesignError> {
     // A length carries its unit ("405 nm"), as every quantity but volts and ohms does.
     let m = c.positive(field, v, Kind::Length)?;
-    let nm = m * 1e9;
-    if !(100.0..=2500.0).contains(&nm) {
+    if !crate::limits::WAVELENGTH.contains(m) {
         return Err(c.fail(
             field,
             format!(
-                "expected a wavelength between 100 nm and 2500 nm such as \"405 nm\", found {v}"
+                "expected a wavelength from {} such as \"405 nm\", found {v}",
+                crate::limits::WAVELENGTH.describe()
             ),
         ));
     }
-    Ok(nm)
+    Ok(m * 1e9)
 }
 
 fn table(
@@ -478,10 +478,14 @@ fn check_light(c: &Checker, l: &RawLight) -> Result<LightSpec, DesignError> {
                 ))
             }
             RawAmount::Photons(n) => {
-                if !(n.is_finite() && *n > 0.0 && *n < 1e22) {
+                if !crate::limits::PHOTONS.contains(*n) {
                     return Err(c.fail(
                         format!("{field}.Photons"),
-                        format!("expected a positive number of photons, found {n}"),
+                        format!(
+                            "expected a number of photons {}, found {}",
+                            crate::limits::PHOTONS.describe(),
+                            units::show_number(*n)
+                        ),
                     ));
                 }
                 Ok((*n, format!("{n:.3e} photons per pulse")))
@@ -502,7 +506,7 @@ fn check_light(c: &Checker, l: &RawLight) -> Result<LightSpec, DesignError> {
     };
     let mut intrinsic = None;
     let shape_of = |field: &str, s: Option<RawShape>, default: RawShape, w: &Value| {
-        let width = c.ranged(field, w, Kind::Time, 1e-12, 1e-2)?;
+        let width = c.within(field, w, &crate::limits::LIGHT_PULSE_WIDTH)?;
         Ok::<Shape, DesignError>(match s.unwrap_or(default) {
             RawShape::Gaussian => Shape::Gaussian { fwhm: width },
             RawShape::Rectangular => Shape::Rectangular { width },
@@ -610,10 +614,10 @@ fn check_light(c: &Checker, l: &RawLight) -> Result<LightSpec, DesignError> {
                     format!("expected a positive energy in MeV, found {deposited_mev}"),
                 ));
             }
-            let decay = c.ranged("light.source.decay", decay, Kind::Time, 1e-11, 1e-3)?;
+            let decay = c.within("light.source.decay", decay, &crate::limits::LIGHT_DECAY)?;
             let rise = match rise {
                 None => 0.0,
-                Some(v) => c.ranged("light.source.rise", v, Kind::Time, 1e-12, 1e-3)?,
+                Some(v) => c.within("light.source.rise", v, &crate::limits::LIGHT_PULSE_WIDTH)?,
             };
             if rise >= decay {
                 return Err(c.fail(
@@ -641,10 +645,13 @@ fn check_light(c: &Checker, l: &RawLight) -> Result<LightSpec, DesignError> {
         None => 1.0,
         Some(v) => {
             let x = c.quantity("light.coupling", v, Kind::Ratio)?;
-            if !(x > 0.0 && x <= 1.0) {
+            if !crate::limits::LIGHT_COUPLING.contains(x) {
                 return Err(c.fail(
                     "light.coupling",
-                    format!("expected a fraction in (0, 1] such as \"30 %\", found {v}"),
+                    format!(
+                        "expected a fraction from {} such as \"30 %\", found {v}",
+                        crate::limits::LIGHT_COUPLING.describe()
+                    ),
                 ));
             }
             x
@@ -773,7 +780,11 @@ fn check_readout(c: &Checker, r: &RawReadout) -> Result<ReadoutSpec, DesignError
     let cable = match &r.cable {
         None => None,
         Some(k) => {
-            let length = c.ranged("readout.cable.length", &k.length, Kind::Length, 1e-3, 1e4)?;
+            let length = c.within(
+                "readout.cable.length",
+                &k.length,
+                &crate::limits::CABLE_LENGTH,
+            )?;
             let impedance = c.ranged(
                 "readout.cable.impedance",
                 &k.impedance,

@@ -1,0 +1,227 @@
+//! One table of plausible ranges, shared by the design file, the requirements file, `sweep`
+//! values and command-line options, so that a value one of them accepts the others accept too.
+//!
+//! A range catches unit slips ("4.7 uF" for nF) and keeps every accepted input inside what the
+//! solver and the renderers handle in bounded time and memory: a gain of 1e307 overflows the
+//! currents, a millisecond light pulse or a ten-kilometre cable makes the computed pulse a
+//! series of millions of points. The limits are this tool's choices, wide against practice.
+
+use crate::units::{self, Kind};
+
+/// A plausible range for one quantity. `lo` is excluded when `open_lo`, `hi` is included.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Range {
+    /// Kind of quantity (fixes the units accepted and shown).
+    pub kind: Kind,
+    /// Lower limit, SI base units.
+    pub lo: f64,
+    /// Upper limit, SI base units.
+    pub hi: f64,
+    /// Whether `lo` itself is refused ("above 1").
+    pub open_lo: bool,
+    /// Whether a ratio is shown as a percentage ("30 %") rather than a plain number.
+    pub percent: bool,
+}
+
+const fn r(kind: Kind, lo: f64, hi: f64) -> Range {
+    Range {
+        kind,
+        lo,
+        hi,
+        open_lo: false,
+        percent: false,
+    }
+}
+
+/// A fraction shown as a percentage.
+pub const fn fraction(lo: f64, hi: f64) -> Range {
+    Range {
+        kind: Kind::Ratio,
+        lo,
+        hi,
+        open_lo: false,
+        percent: true,
+    }
+}
+
+/// Relative slack at the limits, so that a limit written in other units ("300 nm" read as
+/// 3.0000000000000004e-7 m) is accepted exactly as printed.
+const SLACK: f64 = 1e-9;
+
+impl Range {
+    /// Whether `x` lies in the range (finite, and within the limits up to rounding).
+    pub fn contains(&self, x: f64) -> bool {
+        let above = if self.open_lo {
+            x > self.lo * (1.0 + SLACK) || (self.lo == 0.0 && x > 0.0)
+        } else {
+            x >= self.lo * (1.0 - SLACK)
+        };
+        x.is_finite() && above && x <= self.hi * (1.0 + SLACK)
+    }
+
+    /// The range in words, as it is enforced: "1 Ω to 100 GΩ", "above 1 up to 1e10".
+    pub fn describe(&self) -> String {
+        let lo = self.show(self.lo);
+        let hi = self.show(self.hi);
+        if self.open_lo {
+            format!("above {lo} up to {hi}")
+        } else {
+            format!("{lo} to {hi}")
+        }
+    }
+
+    /// `x` if it lies in the range, else a message naming the range and the value.
+    pub fn check(&self, x: f64) -> Result<f64, String> {
+        if self.contains(x) {
+            Ok(x)
+        } else {
+            Err(format!(
+                "{} is outside the plausible range {}",
+                self.show(x),
+                self.describe()
+            ))
+        }
+    }
+
+    /// A value of this range for a message.
+    pub fn show(&self, x: f64) -> String {
+        if self.percent {
+            format!("{} %", units::show_number(x * 100.0))
+        } else {
+            show(x, self.kind)
+        }
+    }
+}
+
+/// A value for a message, in the units a reader would write it.
+pub fn show(x: f64, kind: Kind) -> String {
+    match kind {
+        Kind::Ratio => units::show_number(x),
+        Kind::Resistance => units::format_eng(x, "Ω"),
+        k => units::format_eng(x, k.symbol()),
+    }
+}
+
+/// Supply voltage magnitude.
+pub const SUPPLY_VOLTS: Range = r(Kind::Voltage, 10.0, 1e5);
+/// Supply current limit.
+pub const SUPPLY_CURRENT_LIMIT: Range = r(Kind::Current, 1e-9, 10.0);
+/// A divider resistor (each part of a series string).
+pub const RESISTOR: Range = r(Kind::Resistance, 1.0, 1e11);
+/// A Zener diode's voltage.
+pub const ZENER_VOLTS: Range = r(Kind::Voltage, 1.0, 1e4);
+/// A decoupling capacitor.
+pub const DECOUPLING: Range = r(Kind::Capacitance, 1e-13, 1e-4);
+/// Stray capacitance per gap.
+pub const STRAY: Range = r(Kind::Capacitance, 1e-15, 1e-9);
+/// Load resistance.
+pub const LOAD_RESISTANCE: Range = r(Kind::Resistance, 1.0, 1e9);
+/// Load capacitance.
+pub const LOAD_CAPACITANCE: Range = r(Kind::Capacitance, 1e-15, 1e-6);
+/// Anode resistor.
+pub const ANODE_RESISTOR: Range = r(Kind::Resistance, 1.0, 1e9);
+/// Coupling capacitor.
+pub const COUPLING: Range = r(Kind::Capacitance, 1e-13, 1e-4);
+/// Secondary-emission exponent k of `delta = a V^k`.
+pub const GAIN_EXPONENT: Range = r(Kind::Ratio, 0.2, 1.5);
+/// A tube gain (reference point or table point): above 1, at most 1e10 (twenty stages of a
+/// high-gain dynode material reach about 1e9).
+pub const TUBE_GAIN: Range = Range {
+    kind: Kind::Ratio,
+    lo: 1.0,
+    hi: 1e10,
+    open_lo: true,
+    percent: false,
+};
+/// A voltage of the tube's gain law or limits.
+pub const TUBE_VOLTS: Range = r(Kind::Voltage, 1.0, 1e5);
+/// Cathode–D1 collection efficiency.
+pub const COLLECTION: Range = Range {
+    kind: Kind::Ratio,
+    lo: 0.0,
+    hi: 1.0,
+    open_lo: true,
+    percent: true,
+};
+/// Fraction of the light that reaches the cathode (`light.coupling`).
+pub const LIGHT_COUPLING: Range = fraction(1e-12, 1.0);
+/// The tube's rated average anode current.
+pub const MAX_ANODE_CURRENT: Range = r(Kind::Current, 1e-12, 1.0);
+/// Peak current of the pulse-linearity figure.
+pub const PULSE_PEAK_CURRENT: Range = r(Kind::Current, 1e-6, 100.0);
+/// Last-gap voltage of the pulse-linearity figure.
+pub const PULSE_LAST_GAP: Range = r(Kind::Voltage, 1.0, 1e4);
+/// A resistor's power rating.
+pub const RESISTOR_POWER: Range = r(Kind::Power, 1e-3, 100.0);
+/// A resistor's working voltage.
+pub const RESISTOR_WORKING_VOLTAGE: Range = r(Kind::Voltage, 1.0, 1e5);
+/// The average anode current a report is made at (`operating`, `netlist --anode-current`).
+pub const ANODE_CURRENT: Range = r(Kind::Current, 1e-15, 10.0);
+/// Width of a light pulse (FWHM, rectangle width): a pulse of the computed waveform is
+/// sampled finely over its whole width, so the width bounds its memory and time.
+pub const LIGHT_PULSE_WIDTH: Range = r(Kind::Time, 1e-12, 1e-5);
+/// Decay time of a scintillator-like light pulse (same reason).
+pub const LIGHT_DECAY: Range = r(Kind::Time, 1e-11, 1e-5);
+/// Length of the signal cable (its delay and echoes are computed point by point).
+pub const CABLE_LENGTH: Range = r(Kind::Length, 1e-3, 1e3);
+/// A wavelength (light lines, `light-match --lines`).
+pub const WAVELENGTH: Range = r(Kind::Length, 100e-9, 2500e-9);
+/// Photons at the cathode per pulse (`light-match --photons`, the design's light).
+pub const PHOTONS: Range = Range {
+    kind: Kind::Ratio,
+    lo: 0.0,
+    hi: 1e20,
+    open_lo: true,
+    percent: false,
+};
+/// `spread --samples` (a million samples take about 0.5 GB and half a minute on 2 cores).
+pub const SPREAD_SAMPLES: (usize, usize) = (1, 1_000_000);
+/// `spread --linearity-samples`.
+pub const SPREAD_LINEARITY_SAMPLES: usize = 10_000;
+
+/// The range of a sweepable field (`sweep::FIELDS`), by its generic path (`divider.gaps[i]`);
+/// `zener` selects the Zener voltage for a gap that holds a Zener.
+pub fn of_field(generic: &str, zener: bool) -> Option<Range> {
+    Some(match generic {
+        "supply.volts" => SUPPLY_VOLTS,
+        "supply.current_limit" => SUPPLY_CURRENT_LIMIT,
+        "divider.gaps[i]" if zener => ZENER_VOLTS,
+        "divider.gaps[i]" => RESISTOR,
+        "divider.decoupling[i].value" => DECOUPLING,
+        "divider.stray" => STRAY,
+        "load.resistance" => LOAD_RESISTANCE,
+        "load.capacitance" => LOAD_CAPACITANCE,
+        "load.anode_resistor" => ANODE_RESISTOR,
+        "load.coupling" => COUPLING,
+        "tube.gain.exponent" => GAIN_EXPONENT,
+        "tube.gain.gain" => TUBE_GAIN,
+        "tube.gain.volts" | "tube.limits.max_supply" | "tube.limits.max_gap" => TUBE_VOLTS,
+        "tube.collection" => COLLECTION,
+        "tube.limits.max_anode_current" => MAX_ANODE_CURRENT,
+        "tube.pulse_linearity.peak_current" => PULSE_PEAK_CURRENT,
+        "tube.pulse_linearity.last_gap" => PULSE_LAST_GAP,
+        "resistors.power" => RESISTOR_POWER,
+        "resistors.working_voltage" => RESISTOR_WORKING_VOLTAGE,
+        "operating.anode_current" => ANODE_CURRENT,
+        _ => return None,
+    })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn limits_are_accepted_as_printed() {
+        // "300 nm" parses to 3.0000000000000004e-7 m: the printed limit must be accepted.
+        let nm300 = units::parse("300 nm", Kind::Length).unwrap();
+        assert!(r(Kind::Length, 1e-10, 3e-7).contains(nm300));
+        assert!(!TUBE_GAIN.contains(1.0));
+        assert!(TUBE_GAIN.contains(1e10));
+        assert!(!TUBE_GAIN.contains(1.1e10));
+        assert!(!COLLECTION.contains(0.0));
+        assert!(COLLECTION.contains(1.0));
+        assert_eq!(TUBE_GAIN.describe(), "above 1 up to 1e10");
+        assert_eq!(RESISTOR.describe(), "1.00 Ω to 100 GΩ");
+    }
+}
