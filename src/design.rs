@@ -1268,9 +1268,27 @@ fn check(raw: RawDesign, file: &str) -> Result<Design, DesignError> {
                 if !(w.is_finite() && *w > 0.0) {
                     return Err(c.fail(
                         format!("tube.reference_ratio[{i}]"),
-                        format!("expected a positive weight, found {w}"),
+                        format!(
+                            "expected a positive weight, found {}",
+                            units::show_number(*w)
+                        ),
                     ));
                 }
+            }
+            let (lo, hi) = r
+                .iter()
+                .fold((f64::INFINITY, 0.0f64), |(a, b), w| (a.min(*w), b.max(*w)));
+            if hi > lo * limits::WEIGHT_SPREAD {
+                let i = r.iter().position(|w| *w == hi).unwrap_or(0);
+                return Err(c.fail(
+                    format!("tube.reference_ratio[{i}]"),
+                    format!(
+                        "expected weights within a factor of {} of each other, found {} beside {}",
+                        units::show_number(limits::WEIGHT_SPREAD),
+                        units::show_number(hi),
+                        units::show_number(lo)
+                    ),
+                ));
             }
             r.clone()
         }
@@ -1708,6 +1726,25 @@ fn check(raw: RawDesign, file: &str) -> Result<Design, DesignError> {
                 units::format_eng(max_gap, "V")
             ),
         ));
+    }
+
+    // The gain this supply gives under this divider (no tube current) must be a tube's gain:
+    // a gain law calibrated far from the supply (1 V reference, 100 kV supply) would
+    // otherwise give currents of hundreds of digits.
+    if let Ok(model) = crate::tube::TubeModel::from_spec(&tube) {
+        let gaps = linear_gap_voltages(&elements, sv.abs());
+        let g = model.gain_for_gaps(&gaps);
+        if !(g.is_finite() && g <= limits::TUBE_GAIN.hi) {
+            return Err(c.fail(
+                "supply.volts",
+                format!(
+                    "the gain law (tube.gain) gives a gain of {} at {} under this divider, above the plausible {}; check tube.gain against the supply",
+                    units::show_number(g),
+                    units::format_eng(sv.abs(), "V"),
+                    units::show_number(limits::TUBE_GAIN.hi)
+                ),
+            ));
+        }
     }
 
     let mut signal = check_signal(&c, &raw)?;

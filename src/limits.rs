@@ -174,6 +174,10 @@ pub const PHOTONS: Range = Range {
     open_lo: true,
     percent: false,
 };
+/// Largest ratio between two weights of `tube.reference_ratio` (real ratios stay within 10).
+pub const WEIGHT_SPREAD: f64 = 100.0;
+/// `spread --sigmas`: standard deviations per stated tolerance.
+pub const SPREAD_SIGMAS: Range = r(Kind::Ratio, 0.5, 10.0);
 /// `spread --samples` (a million samples take about 0.5 GB and half a minute on 2 cores).
 pub const SPREAD_SAMPLES: (usize, usize) = (1, 1_000_000);
 /// `spread --linearity-samples`.

@@ -388,10 +388,11 @@ fn run_spread(
             Exit::BadInput,
         );
     }
-    if !(cfg.sigmas.is_finite() && cfg.sigmas > 0.0 && cfg.sigmas <= 10.0) {
+    if !dynode::limits::SPREAD_SIGMAS.contains(cfg.sigmas) {
         return fail(
             format!(
-                "--sigmas: expected a number of standard deviations above 0 up to 10, found {}",
+                "--sigmas: expected a number of standard deviations per tolerance from {}, found {}",
+                dynode::limits::SPREAD_SIGMAS.describe(),
                 units::show_number(cfg.sigmas)
             ),
             Exit::BadInput,
@@ -456,6 +457,15 @@ fn run_spread(
         Ok(s) => s,
         Err(e) => return fail(&e, analysis_exit(&e)),
     };
+    if s.failed >= s.config.samples {
+        return fail(
+            format!(
+                "{}: every one of the {} samples failed to solve; no statistics to show (are the tolerances far too wide?)",
+                d.source, s.config.samples
+            ),
+            Exit::SolveFailed,
+        );
+    }
     let text = match format {
         DataFormat::Json => report::spread::json(&s),
         DataFormat::Text => report::spread::text(&s),

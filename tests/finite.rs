@@ -192,7 +192,7 @@ pub fn text_non_finite(text: &str) -> Option<String> {
     for line in text.lines() {
         let words = line.split(|c: char| c.is_whitespace() || c == '(' || c == ')' || c == ',');
         for w in words {
-            let w = w.trim_start_matches(['-', '+']);
+            let w = w.trim_start_matches(['-', '+', '±']);
             if matches!(w, "NaN" | "nan" | "inf" | "-inf" | "Infinity" | "n/a") {
                 return Some(line.to_string());
             }

@@ -9,6 +9,8 @@ mod circuit;
 mod common;
 /// The core model against textbook laws and worked examples.
 mod core;
+/// A seeded corpus of hostile designs and options through every command: bounded, finite.
+mod corpus;
 /// Numerical edge cases; no NaN or infinity in any command's JSON.
 mod edge_cases;
 /// Output safety: planted links, device nodes, hostile file names, full disk, closed pipe.
