@@ -1235,14 +1235,20 @@ fn check(raw: RawDesign, file: &str) -> Result<Design, DesignError> {
                         return Err(c.fail(
                             &field,
                             format!(
-                                "expected voltages in increasing order, found {v} V after {pv} V"
+                                "expected voltages in increasing order, found {} V after {} V",
+                                units::show_number(v),
+                                units::show_number(pv)
                             ),
                         ));
                     }
                     if *g <= pg {
                         return Err(c.fail(
                             &field,
-                            format!("expected the gain to rise with voltage, found {g} after {pg}"),
+                            format!(
+                                "expected the gain to rise with voltage, found {} after {}",
+                                units::show_number(*g),
+                                units::show_number(pg)
+                            ),
                         ));
                     }
                 }

@@ -1,7 +1,8 @@
 //! Fuzz target: arbitrary bytes through the whole pipeline a design file goes through:
 //! UTF-8 check, RON parse, validation, tube calibration, divider solve, linearity, safety,
-//! every report format and the netlist. A panic anywhere, or a non-finite number in a report,
-//! is a finding.
+//! every report format (HTML with its figures inline as SVG), one figure as PNG and the
+//! netlist. A panic anywhere, a non-finite number in a report, or user text escaping its
+//! netlist comment line, is a finding.
 #![no_main]
 
 use clap::ValueEnum;
@@ -45,6 +46,16 @@ fuzz_target!(|data: &[u8]| {
     );
     if let Some(bad) = finite::text_non_finite_except(&netlist, &theirs) {
         panic!("the netlist holds a non-finite number: {bad}");
+    }
+    // User text stays on its comment lines: one `.control` block, the tool's own.
+    let controls = netlist
+        .lines()
+        .filter(|l| l.trim_start().to_ascii_lowercase().starts_with(".control"))
+        .count();
+    assert!(controls <= 1, "user text started a .control line in the netlist");
+    // One figure through the PNG encoder too (the SVGs went into the HTML report).
+    if let Some(fig) = dynode::report::figures::all(&analysis).first() {
+        dynode::plot::png_bytes(fig).expect("a figure renders");
     }
     let json = dynode::report::json::to_value(&analysis);
     if let Some(path) = finite::json_unexpected_null(&json) {
