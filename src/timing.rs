@@ -21,6 +21,10 @@ use rand_distr::{Distribution, Gamma, Normal, Poisson};
 /// Trials of the timing Monte Carlo in a report.
 pub const TRIALS: usize = 400;
 
+/// Most photoelectrons expected in the timing window for the Monte Carlo to run (bounds its
+/// cost at about `TRIALS ×` this many draws).
+pub const MAX_IN_WINDOW: f64 = 10_000.0;
+
 /// What the Monte Carlo needs.
 #[derive(Debug, Clone, PartialEq)]
 pub struct TimingInput<'a> {
@@ -83,8 +87,17 @@ pub fn monte_carlo(input: &TimingInput) -> Option<TimingSpread> {
     let h: Vec<f64> = (0..((h_len / dt).ceil() as usize).clamp(1, grid))
         .map(|i| interp(input.response, i as f64 * dt + input.response_delay))
         .collect();
+    // Only the photoelectrons that can arrive inside the window are drawn: their number is
+    // Poisson with the window's share of the mean (thinning of a Poisson process). A pulse
+    // that puts more than MAX_IN_WINDOW of them there is left to the centroid estimate (its
+    // edge is then smooth and the Monte Carlo's cost would grow with the light).
+    let share = cdf_at(&cdf, t1 + 6.0 * input.sigma_tts);
+    let mean_in = input.photoelectrons * share;
+    if !(mean_in > 0.0) || mean_in > MAX_IN_WINDOW {
+        return None;
+    }
     let mut rng = ChaCha8Rng::seed_from_u64(input.seed);
-    let count = Poisson::new(input.photoelectrons.max(1e-9)).ok()?;
+    let count = Poisson::new(mean_in.max(1e-9)).ok()?;
     let var = (input.excess_noise - 1.0).max(1e-6);
     let gain = Gamma::new(1.0 / var, var).ok()?;
     let tts = Normal::new(0.0, input.sigma_tts.max(0.0)).ok()?;
@@ -97,8 +110,8 @@ pub fn monte_carlo(input: &TimingInput) -> Option<TimingSpread> {
             continue;
         }
         bins.iter_mut().for_each(|x| *x = 0.0);
-        for _ in 0..n.min(200_000) {
-            let u: f64 = rng.random();
+        for _ in 0..n {
+            let u: f64 = share * rng.random::<f64>();
             let t = sample_cdf(&cdf, u) + tts.sample(&mut rng);
             let x = (t - t0) / dt;
             if x < 0.0 || x >= (grid - 1) as f64 {
@@ -157,6 +170,20 @@ fn shape_cdf(shape: &Shape, n: usize) -> Vec<(f64, f64)> {
         out.iter_mut().for_each(|p| p.1 /= acc);
     }
     out
+}
+
+/// The distribution function at `t` (linear between the table's points).
+fn cdf_at(cdf: &[(f64, f64)], t: f64) -> f64 {
+    let i = cdf.partition_point(|p| p.0 < t);
+    if i == 0 {
+        return 0.0;
+    }
+    if i >= cdf.len() {
+        return 1.0;
+    }
+    let (t0, f0) = cdf[i - 1];
+    let (t1, f1) = cdf[i];
+    f0 + (t - t0) / (t1 - t0) * (f1 - f0)
 }
 
 fn sample_cdf(cdf: &[(f64, f64)], u: f64) -> f64 {
