@@ -93,7 +93,7 @@ pub fn monte_carlo(input: &TimingInput) -> Option<TimingSpread> {
     // edge is then smooth and the Monte Carlo's cost would grow with the light).
     let share = cdf_at(&cdf, t1 + 6.0 * input.sigma_tts);
     let mean_in = input.photoelectrons * share;
-    if !(mean_in > 0.0) || mean_in > MAX_IN_WINDOW {
+    if mean_in.is_nan() || mean_in <= 0.0 || mean_in > MAX_IN_WINDOW {
         return None;
     }
     let mut rng = ChaCha8Rng::seed_from_u64(input.seed);
