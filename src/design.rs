@@ -6,7 +6,7 @@
 //! name the file and either the `line:col` that ron reports or the field path
 //! (`divider.gaps[3]`) with what was expected. Nothing downstream sees raw text.
 //!
-//! The schema is documented field by field in DEVELOPERS.md and by the commented demo designs.
+//! The schema is documented field by field in docs/design-file.md and by the commented demo designs.
 
 use std::fmt;
 use std::path::Path;
@@ -905,7 +905,7 @@ fn describe_ron_error(code: &ron::Error, text: &str) -> String {
             m
         }
         E::MissingStructField { field, outer } => format!(
-            "{} lacks the required field `{field}` (see the design file schema in DEVELOPERS.md)",
+            "{} lacks the required field `{field}` (see the design file schema in docs/design-file.md)",
             outer
                 .as_deref()
                 .map_or_else(|| "this block".to_string(), place_name)

@@ -55,7 +55,7 @@ struct OutputArgs {
 enum DataFormat {
     /// Plain text for a terminal or a lab notebook.
     Text,
-    /// JSON, SI base units (keys in DEVELOPERS.md).
+    /// JSON, SI base units (keys in docs/json.md).
     Json,
 }
 
@@ -215,7 +215,7 @@ enum Command {
     },
     /// Vary one or two fields of the design and tabulate gain, divider current, linearity.
     #[command(
-        after_help = "Example:\n  dynode sweep designs/rooftop-paddle.ron --vary supply.volts=900V..1500V:13\n  dynode sweep designs/rooftop-paddle.ron --vary divider.gaps[10]=470k..2M:9:log --vary operating.anode_current=1uA..20uA:4\n\nFields: supply.volts, divider.gaps[i], load.resistance, tube.gain.exponent, operating.anode_current, … (DEVELOPERS.md lists them all)."
+        after_help = "Example:\n  dynode sweep designs/rooftop-paddle.ron --vary supply.volts=900V..1500V:13\n  dynode sweep designs/rooftop-paddle.ron --vary divider.gaps[10]=470k..2M:9:log --vary operating.anode_current=1uA..20uA:4\n\nFields: supply.volts, divider.gaps[i], load.resistance, tube.gain.exponent, operating.anode_current, … (docs/design-file.md lists them all)."
     )]
     Sweep {
         /// The design file (RON).
@@ -234,7 +234,7 @@ enum Command {
     },
     /// Size a base from a requirements file: supply, divider, preferred values, capacitors.
     #[command(
-        after_help = "Example:\n  dynode size designs/requirements/paddle-rebuild.ron -o paddle-sized.ron\n  dynode report paddle-sized.ron\n\nThe requirements schema is in DEVELOPERS.md (\"Requirements file\")."
+        after_help = "Example:\n  dynode size designs/requirements/paddle-rebuild.ron -o paddle-sized.ron\n  dynode report paddle-sized.ron\n\nThe requirements schema is in docs/design-file.md (\"Requirements file\")."
     )]
     Size {
         /// The requirements file (RON).

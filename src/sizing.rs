@@ -2,7 +2,7 @@
 //! values, series parts, decoupling capacitors (`dynode size`).
 //!
 //! The requirements file reuses the design file's `tube` and `load` blocks and adds what a
-//! builder knows about the job (schema in DEVELOPERS.md, "Requirements file"). The computation:
+//! builder knows about the job (schema in docs/design-file.md, "Requirements file"). The computation:
 //!
 //! 1. **Supply voltage from the gain law under the ratio.** With `delta_i = a (V s_i)^k` on the
 //!    multiplying gaps (shares `s_i` of the supply), `ln G = ln eta + n ln a + k Σ ln(V s_i)`, so

@@ -610,7 +610,7 @@ mod tests {
         assert!(parse("", Kind::Voltage).is_err());
         assert!(parse("V", Kind::Voltage).is_err());
         assert!(parse("1e999 V", Kind::Voltage).is_err());
-        // Decision documented in DEVELOPERS.md: currents, capacitances, times… need a unit.
+        // Decision documented in docs/design-file.md: currents, capacitances, times… need a unit.
         let e = parse("100", Kind::Current).unwrap_err();
         assert!(e.to_string().contains("has no unit"), "{e}");
         assert!(parse("100u", Kind::Current).is_ok());

@@ -7,7 +7,7 @@
 //! atomic replacement).
 //!
 //! The expectations are this project's own contract for its messages (README: exit codes;
-//! DEVELOPERS.md: design file schema), so the outside reference here is the corpus itself: each
+//! docs/design-file.md), so the outside reference here is the corpus itself: each
 //! row states by hand where the mistake is and which words must explain it.
 
 use std::path::{Path, PathBuf};

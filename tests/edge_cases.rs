@@ -281,7 +281,7 @@ const JSON_COMMANDS: &[&[&str]] = &[
 ];
 
 /// The same for designs with a `train` block: trains of one pulse and of a thousand (the
-/// 100 000-pulse case takes minutes; it is run by hand, DEVELOPERS.md "Numerical edge cases").
+/// 100 000-pulse case takes minutes; it is run by hand, docs/testing.md).
 const TRAIN_JSON_COMMANDS: &[&[&str]] = &[
     &[
         "train",

@@ -2,7 +2,7 @@
 //! fuzz target (which includes this file by path).
 //!
 //! serde_json writes a non-finite f64 as `null`, so a NaN in the JSON report hides as a null.
-//! The check therefore allows `null` only where DEVELOPERS.md documents "null where a figure
+//! The check therefore allows `null` only where docs/json.md documents "null where a figure
 //! does not exist" ([`NULLABLE`]); a null anywhere else is a non-finite number that slipped
 //! through. Text reports print a non-finite figure as `n/a`, `NaN` or `inf`.
 #![allow(dead_code)]
@@ -11,7 +11,7 @@ use serde_json::Value;
 
 /// Where a value may be `null` because the figure does not exist for some designs: a key
 /// (anywhere) or the end of a path with array indices written `[]`. Add an entry only together
-/// with its line in the JSON schemas of DEVELOPERS.md.
+/// with its line in the JSON schemas of docs/json.md.
 pub const NULLABLE: &[&str] = &[
     // report: tube_model
     "fit_rms_ln_gain",
@@ -58,7 +58,7 @@ pub const NULLABLE: &[&str] = &[
     "rows[].sensitivity",
     "rows[].dissipation_watts",
     "rows[].linearity_1pct_amps",
-    // train (DEVELOPERS.md, "Train JSON"): no train block; limits not reached; scans not made
+    // train (docs/json.md, "Train JSON"): no train block; limits not reached; scans not made
     "train",
     "train.recovery_s",
     "train.average_anode_amps",

@@ -1,5 +1,5 @@
 //! Hostile input as property tests, so CI exercises what the fuzz target explores at length
-//! (DEVELOPERS.md, "Fuzzing"): arbitrary bytes, and valid designs mutated byte by byte or
+//! (fuzz/README.md): arbitrary bytes, and valid designs mutated byte by byte or
 //! value by value, go through parse, validation, solve and every report format. Nothing may
 //! panic; a design that is refused is refused with a message naming the file; a design that is
 //! accepted reports finite figures only.

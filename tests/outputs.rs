@@ -157,12 +157,12 @@ fn html_is_self_contained() {
     );
 }
 
-/// Every key in the first column of the JSON schema table in DEVELOPERS.md.
+/// Every key in the first column of the JSON schema table in docs/json.md.
 fn documented_keys() -> Vec<String> {
-    let doc = std::fs::read_to_string(crate_path("DEVELOPERS.md")).unwrap();
+    let doc = std::fs::read_to_string(crate_path("docs/json.md")).unwrap();
     let start = doc
         .find("## JSON schema")
-        .expect("DEVELOPERS.md has a JSON schema section");
+        .expect("docs/json.md has a JSON schema section");
     let section = &doc[start..];
     let end = section[3..].find("\n## ").map_or(section.len(), |i| i + 3);
     let mut keys = Vec::new();

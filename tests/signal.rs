@@ -330,7 +330,7 @@ fn ngspice_pulse_down_a_mismatched_cable() {
 
 #[test]
 fn every_demo_reports_the_signal_keys() {
-    // The JSON contract in DEVELOPERS.md: the signal keys exist on every demo (null without a
+    // The JSON contract in docs/json.md: the signal keys exist on every demo (null without a
     // light block), and the demos with light give a verdict and a 25-point sweep.
     let mut with_light = 0;
     for path in demo_designs() {

@@ -3,7 +3,7 @@
 //! Format: one JSON object. Wire format: numbers are SI base units (volts, amperes, watts,
 //! ohms, farads, coulombs, joules, seconds); fractions are plain numbers (0.01 = 1 %); a figure
 //! that does not exist (a limit not reached) is `null`. The keys are documented in
-//! DEVELOPERS.md ("JSON schema"); a test checks every documented key on every demo design.
+//! docs/json.md ("JSON schema"); a test checks every documented key on every demo design.
 
 use serde_json::{Value, json};
 

@@ -2,7 +2,7 @@
 //! readability, timing, background, the photodiode alternative and the load sweep.
 //!
 //! Text and JSON renderings of [`crate::signal::SignalBudget`]; the JSON keys are documented in
-//! DEVELOPERS.md ("JSON schema"). Numbers are magnitudes: the anode pulse itself is
+//! docs/json.md ("JSON schema"). Numbers are magnitudes: the anode pulse itself is
 //! negative-going.
 
 use std::fmt::Write;
@@ -61,7 +61,7 @@ pub fn render_text(out: &mut String, a: &Analysis) {
         wrap(
             out,
             "  ",
-            "No light block in the design: add `light: Some((...))` (and `readout: Some((...))`) to get photoelectrons, the pulse at the load, a verdict and a load sweep. See DEVELOPERS.md.",
+            "No light block in the design: add `light: Some((...))` (and `readout: Some((...))`) to get photoelectrons, the pulse at the load, a verdict and a load sweep. See docs/design-file.md.",
         );
         let _ = writeln!(out);
         return;

@@ -1,6 +1,6 @@
 //! Rendering of `dynode spread`: text and JSON, cautions first and last as in every report.
 //!
-//! JSON keys are documented in DEVELOPERS.md ("JSON schema: spread"); SI base units, fractions
+//! JSON keys are documented in docs/json.md ("JSON schema: spread"); SI base units, fractions
 //! as plain numbers.
 
 use std::fmt::Write;

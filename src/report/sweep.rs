@@ -1,6 +1,6 @@
 //! Rendering of `dynode sweep`: a table (text) or rows (JSON), cautions first and last.
 //!
-//! JSON keys are documented in DEVELOPERS.md ("JSON schema: sweep").
+//! JSON keys are documented in docs/json.md ("JSON schema: sweep").
 
 use std::fmt::Write;
 
