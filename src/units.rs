@@ -535,10 +535,11 @@ pub fn engineering_prefix(a: f64, micro: &'static str, slack: f64) -> (f64, &'st
         (1e-6, micro),
         (1e-9, "n"),
         (1e-12, "p"),
+        (1e-15, "f"),
     ]
     .into_iter()
     .find(|(s, _)| a >= *s * slack)
-    .unwrap_or((1e-15, "f"))
+    .unwrap_or((1e-18, "a"))
 }
 
 /// Format a value in SI base units with an engineering prefix and the unit symbol,
@@ -550,9 +551,9 @@ pub fn format_eng(value: f64, unit: &str) -> String {
     if value == 0.0 {
         return format!("0 {unit}");
     }
-    // Beyond the prefixes from f to T, scientific notation where the femto prefix would show
-    // "0.00": never "0.00 fC" for 3.9e-19 C nor "0.00 fV" for 1e-300 V.
-    if !(0.005e-15..999.5e12).contains(&value.abs()) {
+    // Beyond the prefixes from a to T, scientific notation where the atto prefix would show
+    // "0.00": "386 aC" for 3.86e-19 C, never "0.00 aV" for 1e-300 V.
+    if !(0.005e-18..999.5e12).contains(&value.abs()) {
         return format!("{value:.2e} {unit}");
     }
     let (scale, p) = engineering_prefix(value.abs(), "µ", 0.9995);

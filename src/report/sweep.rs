@@ -72,7 +72,7 @@ pub fn text(design: &Design, s: &Sweep) -> String {
     let _ = writeln!(
         out,
         "{head}{:>9} {:>10} {:>10} {:>9} {:>9} {:>7} {:>9} {:>10}  verdict",
-        "supply", "gain G0", "gain(op)", "dev(op)", "divider", "dlnG/dV", "power", "±1 % lim."
+        "supply", "gain G0", "gain(op)", "dev(op)", "divider", "dlnG/dlnV", "power", "±1 % lim."
     );
     for r in &s.rows {
         let mut line = String::new();
