@@ -229,6 +229,22 @@ pub fn ngspice_wave(
     (t, v)
 }
 
+/// Peak and 10–90 % rise within 1 % of ngspice's.
+fn assert_peak_and_rise_agree(
+    name: &str,
+    ours: &waveform::PulseFigures,
+    theirs: &waveform::PulseFigures,
+) {
+    assert!(
+        rel(ours.peak, theirs.peak) < 0.01,
+        "{name}: peak {} vs {}",
+        ours.peak,
+        theirs.peak
+    );
+    let (a, b) = (ours.rise.unwrap(), theirs.rise.unwrap());
+    assert!(rel(a, b) < 0.01, "{name}: rise {a} vs {b}");
+}
+
 fn compare_with_ngspice(name: &str, c: &LoadCircuit, body: &str) {
     // ngspice .tran of the same current pulse (general-purpose circuit simulator as the
     // reference): peak and 10–90 % rise within 1 %.
@@ -244,14 +260,7 @@ fn compare_with_ngspice(name: &str, c: &LoadCircuit, body: &str) {
     let (t, v) = ngspice_wave(name, &pulse, body, pulse.end() + 40.0 * c.time_constant());
     let theirs = waveform::Waveform { t, v }.measure();
     eprintln!("{name}: dynode {ours:?}\n{name}: ngspice {theirs:?}");
-    assert!(
-        rel(ours.peak, theirs.peak) < 0.01,
-        "peak {} vs {}",
-        ours.peak,
-        theirs.peak
-    );
-    let (a, b) = (ours.rise.unwrap(), theirs.rise.unwrap());
-    assert!(rel(a, b) < 0.01, "rise {a} vs {b}");
+    assert_peak_and_rise_agree(name, &ours, &theirs);
     if ours.undershoot.max(theirs.undershoot) > 0.01 * ours.peak {
         // The undershoot is a small difference of large terms: 2 % of itself.
         assert!(
@@ -544,14 +553,7 @@ fn rise_of_wide_and_slow_light_pulses_matches_ngspice_on_the_analytic_current() 
         let theirs =
             ngspice_points(name, &pts, "R1 a 0 50\nC1 a 0 30p\nVo a out 0", stop).measure();
         eprintln!("{name}: dynode {ours:?}\n{name}: ngspice {theirs:?}");
-        let (a, b) = (ours.rise.unwrap(), theirs.rise.unwrap());
-        assert!(rel(a, b) < 0.01, "{name}: rise {a} vs {b}");
-        assert!(
-            rel(ours.peak, theirs.peak) < 0.01,
-            "{name}: peak {} vs {}",
-            ours.peak,
-            theirs.peak
-        );
+        assert_peak_and_rise_agree(name, &ours, &theirs);
     }
 }
 

@@ -133,6 +133,16 @@ impl System {
             Var::Fixed(_) => {}
         }
     }
+    /// Stamp a two-terminal branch carrying `i` from `a` to `b` with conductance `g`.
+    #[inline]
+    pub(super) fn branch(&mut self, a: Var, b: Var, i: f64, g: f64) {
+        self.residual(a, i);
+        self.residual(b, -i);
+        self.jac(a, a, g);
+        self.jac(a, b, -g);
+        self.jac(b, a, -g);
+        self.jac(b, b, g);
+    }
     /// Solve `J d = F` in place: `res` becomes the band part of `d`; returns the border part.
     pub(super) fn solve(&mut self, bordered: bool) -> Option<f64> {
         if !self.lu.factor() {

@@ -408,24 +408,11 @@ impl Base {
         sys.reset(self.unknowns());
         for &(a, b, part) in &self.elements {
             let (i, g) = part.current(nv[a] - nv[b]);
-            let (va, vb) = (self.var(a), self.var(b));
-            sys.residual(va, i);
-            sys.residual(vb, -i);
-            sys.jac(va, va, g);
-            sys.jac(va, vb, -g);
-            sys.jac(vb, va, -g);
-            sys.jac(vb, vb, g);
+            sys.branch(self.var(a), self.var(b), i, g);
         }
         for (c, &(a, b, farads)) in self.caps.iter().enumerate() {
             let i = farads * (alpha0 * (nv[a] - nv[b]) + hist[c]);
-            let g = farads * alpha0;
-            let (va, vb) = (self.var(a), self.var(b));
-            sys.residual(va, i);
-            sys.residual(vb, -i);
-            sys.jac(va, va, g);
-            sys.jac(va, vb, -g);
-            sys.jac(vb, va, -g);
-            sys.jac(vb, vb, g);
+            sys.branch(self.var(a), self.var(b), i, farads * alpha0);
         }
         let tube = &self.tube;
         for j in 1..=n + 1 {
