@@ -505,6 +505,7 @@ pub fn analyse_with(
             excess_noise: t.excess_noise_factor(&tube_gaps),
             divider_amps: quiescent_amps,
             max_anode_amps: max_ia,
+            first_stage_gain: tube_gaps.first().map_or(1.0, |v| t.delta(*v).0),
         },
     );
     if let Some(s) = &signal {

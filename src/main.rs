@@ -992,6 +992,7 @@ fn light_match_command(design: &Path, lines: &[f64], photons: Option<f64>) -> Ex
             .tube
             .max_anode_current
             .get::<uom::si::electric_current::ampere>(),
+        first_stage_gain: a.op.tube_gap_volts().first().map_or(1.0, |v| t.delta(*v).0),
     };
     let photons = photons
         .or(a.signal.as_ref().map(|s| s.photons_at_cathode))
