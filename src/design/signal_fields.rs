@@ -987,7 +987,18 @@ fn density(c: &Checker, field: &str, v: &Value, range: &Range) -> Result<f64, De
         }
         other => other.clone(),
     };
-    c.within(field, &v, range)
+    c.within(field, &v, range).map_err(|e| match e {
+        DesignError::Field {
+            file,
+            field,
+            message,
+        } => DesignError::Field {
+            file,
+            field,
+            message: format!("{message} (a noise density, per √Hz)"),
+        },
+        other => other,
+    })
 }
 
 fn check_front_end(c: &Checker, f: &RawFrontEnd) -> Result<FrontEnd, DesignError> {
