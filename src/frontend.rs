@@ -171,10 +171,14 @@ impl FrontEnd {
                     }
                     InstrumentResponse::Gaussian => {
                         let sigma = gaussian_sigma(a.bandwidth);
+                        // The output at samples at least σ/20 apart (finer adds nothing the
+                        // Gaussian does not smooth away, and would make the convolution
+                        // quadratic in their number); every input segment is integrated.
                         let x = with_tail(w, 6.0 * sigma, sigma / 4.0);
+                        let at = thin(&x, sigma / 20.0).t;
                         Waveform {
-                            v: gaussian_filter(&x.t, &x.v, sigma),
-                            t: x.t,
+                            v: gaussian_filter(&at, &x.t, &x.v, sigma),
+                            t: at,
                         }
                     }
                 };
@@ -244,29 +248,48 @@ impl ChargePreamp {
         let tau = self.shaping_time;
         let tau_f = self.feedback_resistance * self.feedback_capacitance;
         let n = self.order as f64;
+        // The preamplifier on the input's own samples: C_f dv/dt = i − v/R_f with
+        // i = v_in/R_in, i.e. a low-pass of x = v_in R_f/R_in with τ_f = R_f C_f (exact for
+        // the piecewise-linear input, however fine its steps).
+        let k = self.feedback_resistance / self.input_resistance;
+        let x: Vec<f64> = w.v.iter().map(|v| v * k).collect();
+        let csa = Waveform {
+            v: low_pass(&w.t, &x, tau_f),
+            t: w.t.clone(),
+        };
         let t_end = w.t.last().copied().unwrap_or(0.0);
-        // The charge arrives within the input's computed span; the shaped pulse peaks n τ
-        // after it and is followed for ten more τ.
-        let fine_end = w.measure().t_peak + (n + 10.0) * tau;
+        let y_end = csa.v.last().copied().unwrap_or(0.0);
+        // The shaper needs steps of τ/200, not the input's: the preamplifier's output at
+        // least that far apart, a uniform grid of τ/200 from where the input first reaches a
+        // thousandth of its peak until (n + 10) τ after its peak, and a slow tail.
         let h = tau / 200.0;
-        let mut t: Vec<f64> = w.t.clone();
-        let steps = (fine_end / h).ceil() as usize;
-        t.extend((0..=steps).map(|i| i as f64 * h));
-        // A slow tail after that, so that a long feedback decay is seen to settle.
-        let tail_end = fine_end.max(t_end) + 4.0 * tau;
-        let mut x = fine_end.max(t_end);
-        while x < tail_end {
-            x += tau / 4.0;
-            t.push(x);
-        }
+        let f = w.measure();
+        let top = w.v.iter().fold(0.0f64, |m, v| m.max(v.abs()));
+        let start =
+            w.t.iter()
+                .zip(&w.v)
+                .find(|(_, v)| v.abs() > 1e-3 * top)
+                .map_or(0.0, |(t, _)| *t);
+        let fine_end = f.t_peak + (n + 10.0) * tau;
+        let mut t = thin(&csa, h).t;
+        let steps = ((fine_end - start).max(0.0) / h).ceil() as usize;
+        t.extend((0..=steps).map(|i| start + i as f64 * h));
+        let tail_from = fine_end.max(t_end);
+        t.extend((1..=16).map(|i| tail_from + i as f64 * tau / 4.0));
         t.sort_by(f64::total_cmp);
         t.dedup_by(|a, b| (*a - *b).abs() <= 1e-15 * b.abs().max(1e-30));
-        // The preamplifier: C_f dv/dt = i − v/R_f with i = v_in/R_in, i.e. a low-pass of
-        // x = v_in R_f/R_in with τ_f = R_f C_f.
-        let k = self.feedback_resistance / self.input_resistance;
-        let vin: Vec<f64> = t.iter().map(|&s| interp(w, s) * k).collect();
-        let mut y = low_pass(&t, &vin, tau_f);
-        // CR: the input minus its low-pass.
+        // After the input ends the preamplifier only decays.
+        let mut y: Vec<f64> = t
+            .iter()
+            .map(|&s| {
+                if s <= t_end {
+                    interp(&csa, s)
+                } else {
+                    y_end * (-(s - t_end) / tau_f).exp()
+                }
+            })
+            .collect();
+        // CR: the input minus its low-pass; then n RC integrators.
         let lp = low_pass(&t, &y, tau);
         y.iter_mut().zip(&lp).for_each(|(a, b)| *a -= b);
         for _ in 0..self.order {
@@ -314,6 +337,19 @@ pub fn gaussian_sigma(bw: f64) -> f64 {
     std::f64::consts::LN_2.sqrt() / (2.0 * std::f64::consts::PI * bw)
 }
 
+/// `w` with its samples at least `step` apart (the first and last kept).
+fn thin(w: &Waveform, step: f64) -> Waveform {
+    let mut out = Waveform::default();
+    for (i, (&t, &v)) in w.t.iter().zip(&w.v).enumerate() {
+        let last = out.t.last().copied();
+        if last.is_none_or(|l| t - l >= step) || i + 1 == w.t.len() {
+            out.t.push(t);
+            out.v.push(v);
+        }
+    }
+    out
+}
+
 /// `w` followed by zero input for `extra` seconds at steps `h` (at most 4000 steps).
 fn with_tail(w: &Waveform, extra: f64, h: f64) -> Waveform {
     let mut out = w.clone();
@@ -350,12 +386,12 @@ pub fn low_pass(t: &[f64], x: &[f64], tau: f64) -> Vec<f64> {
     y
 }
 
-/// The exact convolution of `x` (linear between the samples) with a Gaussian of `sigma`, at
-/// the same times: per segment `(x0 + β(t − s0))[Φ(u1) − Φ(u0)] + βσ[φ(u0) − φ(u1)]`.
-fn gaussian_filter(t: &[f64], x: &[f64], sigma: f64) -> Vec<f64> {
+/// The exact convolution of `x` (linear between the samples `t`) with a Gaussian of `sigma`,
+/// at the times `at`: per segment `(x0 + β(t − s0))[Φ(u1) − Φ(u0)] + βσ[φ(u0) − φ(u1)]`.
+fn gaussian_filter(at: &[f64], t: &[f64], x: &[f64], sigma: f64) -> Vec<f64> {
     let phi = |u: f64| (-0.5 * u * u).exp() / (2.0 * std::f64::consts::PI).sqrt();
     let cdf = |u: f64| 0.5 * erfc(-u / std::f64::consts::SQRT_2);
-    t.iter()
+    at.iter()
         .map(|&ti| {
             let lo = t
                 .partition_point(|s| *s < ti - 8.0 * sigma)
