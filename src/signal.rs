@@ -800,6 +800,8 @@ pub fn judge(
 /// (Polya) distribution of relative variance `f − 1` (the chain's excess noise factor; the
 /// model of docs/physics.md §11, from memory): `Q(k, k·fraction)` with
 /// `k = 1/(f − 1)`, the regularised upper incomplete gamma function.
+/// The reports use the fuller spectrum of [`crate::counting`] (this gamma part, an
+/// under-amplified exponential part and the baseline noise), built on the same function.
 pub fn threshold_efficiency(fraction: f64, f: f64) -> f64 {
     let var = (f - 1.0).max(1e-6);
     let k = 1.0 / var;
