@@ -864,7 +864,7 @@ fn run() -> ExitCode {
                 let g0 = match base.quiescent_state() {
                     Ok((nv, _)) => {
                         let gaps: Vec<f64> =
-                            (1..=d.tube.stages).map(|j| nv[j] - nv[j - 1]).collect();
+                            (1..=d.tube.stages + 1).map(|j| nv[j] - nv[j - 1]).collect();
                         a.network.tube.gain_for_gaps(&gaps)
                     }
                     Err(e) => return fail(format!("{}: {e}", d.source), Exit::SolveFailed),
@@ -1004,7 +1004,7 @@ fn light_match_command(design: &Path, lines: &[f64], photons: Option<f64>) -> Ex
             .tube
             .max_anode_current
             .get::<uom::si::electric_current::ampere>(),
-        first_stage_gain: a.op.tube_gap_volts().first().map_or(1.0, |v| t.delta(*v).0),
+        first_stage_gain: t.deltas(&a.op.tube_gap_volts()).next().unwrap_or(1.0),
     };
     let photons = photons
         .or(a.signal.as_ref().map(|s| s.photons_at_cathode))

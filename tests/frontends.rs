@@ -302,7 +302,7 @@ fn single_photoelectron_spectrum_against_a_poisson_cascade() {
     let a = dynode::analysis::analyse(&d).unwrap();
     let t = &a.network.tube;
     let gaps = a.op.tube_gap_volts();
-    let deltas: Vec<f64> = gaps[..t.stages].iter().map(|v| t.delta(*v).0).collect();
+    let deltas: Vec<f64> = t.deltas(&gaps).collect();
     let s = a.signal.as_ref().unwrap();
     let mut rng = ChaCha8Rng::seed_from_u64(16);
     let trials = 200_000;
