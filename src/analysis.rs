@@ -520,6 +520,7 @@ pub fn analyse_with(
             excess_noise: t.excess_noise_factor(&tube_gaps),
             divider_amps: quiescent_amps,
             max_anode_amps: max_ia,
+            first_stage_gain: t.deltas(&tube_gaps).next().unwrap_or(1.0),
         },
     );
     if let Some(s) = &signal {

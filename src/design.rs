@@ -144,6 +144,12 @@ pub struct RawDesign {
     /// The instrument reading the pulses (signal budget).
     #[serde(default)]
     pub readout: Option<RawReadout>,
+    /// An amplifier between the signal path and the instrument.
+    #[serde(default)]
+    pub front_end: Option<RawFrontEnd>,
+    /// Photon counting: dark rate, dead time, coincidence window.
+    #[serde(default)]
+    pub counting: Option<RawCounting>,
 }
 
 /// The tube block.
@@ -174,6 +180,9 @@ pub struct RawTube {
     /// Transit-time spread, FWHM (signal budget).
     #[serde(default)]
     pub transit_spread: Option<Value>,
+    /// Transit time at a stated supply voltage (timing benches).
+    #[serde(default)]
+    pub transit_time: Option<RawTransit>,
     /// Share of the secondary-emission exponent on the gap that collects a dynode's
     /// secondaries (the rest is on the gap that accelerates its primaries).
     #[serde(default)]
@@ -572,11 +581,12 @@ impl Design {
     /// anode must have one of them).
     pub fn signal_load_resistance(&self) -> f64 {
         let g = |r: Option<ElectricalResistance>| r.map_or(0.0, |r| 1.0 / r.get::<ohm>());
-        let input = self
-            .signal
-            .readout
-            .as_ref()
-            .map_or(0.0, |r| 1.0 / r.input_resistance);
+        // The far end's input: the front end's when one is fitted, else the instrument's.
+        let input = match (&self.signal.front_end, &self.signal.readout) {
+            (Some(f), _) => 1.0 / f.input().0,
+            (None, Some(r)) => 1.0 / r.input_resistance,
+            (None, None) => 0.0,
+        };
         1.0 / (g(self.base_resistance) + g(self.load_resistance) + input)
     }
 
@@ -1118,6 +1128,25 @@ const FIELD_NAMES: &[&str] = &[
     "length",
     "impedance",
     "velocity",
+    "average_pulses",
+    // front end, photon counting, timing
+    "front_end",
+    "feedback_capacitance",
+    "feedback_resistance",
+    "shaping_time",
+    "order",
+    "shaper_gain",
+    "noise_density",
+    "noise_current",
+    "enc_electrons",
+    "counting",
+    "dark_rate",
+    "dead_time",
+    "coincidence_window",
+    "other_rate",
+    "under_amplified",
+    "transit_time",
+    "time",
 ];
 
 /// Levenshtein distance, for suggestions.
@@ -1817,6 +1846,7 @@ fn check(raw: RawDesign, file: &str) -> Result<Design, DesignError> {
         && load_resistance.is_none()
         && base_resistance.is_none()
         && signal.readout.is_none()
+        && signal.front_end.is_none()
     {
         return Err(c.fail(
             "load.resistance",

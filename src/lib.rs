@@ -14,8 +14,10 @@
 pub mod analysis;
 pub mod cathode;
 pub mod constants;
+pub mod counting;
 pub mod design;
 pub mod eseries;
+pub mod frontend;
 pub mod light;
 pub mod limits;
 pub mod linearity;

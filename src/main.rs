@@ -1004,6 +1004,7 @@ fn light_match_command(design: &Path, lines: &[f64], photons: Option<f64>) -> Ex
             .tube
             .max_anode_current
             .get::<uom::si::electric_current::ampere>(),
+        first_stage_gain: t.deltas(&a.op.tube_gap_volts()).next().unwrap_or(1.0),
     };
     let photons = photons
         .or(a.signal.as_ref().map(|s| s.photons_at_cathode))

@@ -551,6 +551,8 @@ pub fn parse_requirements(text: &str, file: &str) -> Result<Requirements, Sizing
         train: None,
         light: None,
         readout: None,
+        front_end: None,
+        counting: None,
     };
     let base = design::check_raw(placeholder, f).map_err(|e| match e {
         DesignError::Field {

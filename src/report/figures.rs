@@ -169,11 +169,16 @@ pub fn train_droop(t: &crate::pulsetrain::TrainAnalysis) -> Option<Figure> {
 pub fn pulse(s: &crate::signal::SignalBudget) -> Figure {
     let w = &s.waveform;
     let p = &s.pulse;
+    let place = if s.front_end.is_some() {
+        "the front end's output"
+    } else {
+        "the load"
+    };
     let mut f = Figure::new(
         "pulse",
-        "Pulse at the load (computed waveform)",
+        &format!("Pulse at {place} (computed waveform)"),
         Axis::linear("time", Some("s")),
-        Axis::linear("signal at the load (magnitude)", Some("V")),
+        Axis::linear(&format!("signal at {place} (magnitude)"), Some("V")),
     )
     .with(
         "computed pulse",
@@ -184,11 +189,50 @@ pub fn pulse(s: &crate::signal::SignalBudget) -> Figure {
     f.markers.push(Marker::Y(0.1 * p.peak, "10 %".to_string()));
     if let Some(r) = p.rise {
         f.title = format!(
-            "Pulse at the load: peak {}, 10–90 % rise {}",
+            "Pulse at {place}: peak {}, 10–90 % rise {}",
             crate::units::format_eng(p.peak, "V"),
             crate::units::format_eng(r, "s")
         );
     }
+    f.legend = crate::plot::Legend::UpperRight;
+    f
+}
+
+/// The single-photoelectron spectrum with the noise, and the discriminator threshold.
+pub fn spe_spectrum(c: &crate::counting::PhotonCounting) -> Figure {
+    let sp = &c.spectrum;
+    let k = (sp.p.len() / 400).max(1);
+    let pts: Vec<(f64, f64)> =
+        sp.x.chunks(k)
+            .zip(sp.p.chunks(k))
+            .map(|(xs, ps)| {
+                (
+                    xs.iter().sum::<f64>() / xs.len() as f64,
+                    ps.iter().sum::<f64>() / (sp.dx * ps.len() as f64),
+                )
+            })
+            .collect();
+    let mut f = Figure::new(
+        "spe-spectrum",
+        &format!(
+            "Single-photoelectron spectrum: {:.1} % above the threshold{}",
+            c.threshold_efficiency * 100.0,
+            c.peak_to_valley
+                .map_or_else(String::new, |p| format!(", peak-to-valley {p:.2}"))
+        ),
+        Axis::linear(
+            "charge over the dynode multiplication (1 = mean photoelectron)",
+            None,
+        ),
+        Axis::linear("probability density", None),
+    )
+    .with(
+        "gamma + exponential, with the baseline noise",
+        Style::Line,
+        pts,
+    );
+    f.markers
+        .push(Marker::X(c.threshold.1, "threshold".to_string()));
     f.legend = crate::plot::Legend::UpperRight;
     f
 }
@@ -287,6 +331,9 @@ pub fn all(a: &Analysis) -> Vec<Figure> {
         v.push(cathode(a));
         if s.sweep.rows.len() > 1 {
             v.extend(load_sweep(s));
+        }
+        if let Some(c) = &s.counting {
+            v.push(spe_spectrum(c));
         }
     }
     if let Some(t) = &a.train {
