@@ -19,6 +19,7 @@ pub mod eseries;
 pub mod light;
 pub mod limits;
 pub mod linearity;
+pub mod multiplier;
 pub mod netlist;
 pub mod network;
 pub mod output;
