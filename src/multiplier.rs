@@ -33,9 +33,9 @@ use uom::si::f64::{Capacitance, ElectricPotential, ElectricalResistance, Frequen
 use uom::si::frequency::hertz;
 
 /// Backward-Euler steps in one drive period.
-pub const STEPS_PER_PERIOD: usize = 4000;
+pub const STEPS_PER_PERIOD: usize = 2000;
 /// Shooting iterations before giving up.
-const MAX_SHOOTING: usize = 40;
+const MAX_SHOOTING: usize = 25;
 /// Plain periods run before shooting, to let the diodes settle into their conduction pattern.
 const WARM_UP_PERIODS: usize = 3;
 /// Conductance across every junction, siemens (ngspice's default GMIN).
@@ -460,13 +460,22 @@ pub fn steady_state(
         ckt.period(&mut x, false, None, &mut ws)?;
     }
     let scale = total.abs() + 1.0;
+    // Shooting with a backtracking line search: the period map bends where a diode starts or
+    // stops conducting, and a full Newton step from a point near one such bend can land far
+    // from the solution; a step is kept only if it shrinks the periodic residual.
+    let residual = |x: &[f64], ws: &mut Work| -> Result<f64, MultiplierError> {
+        let mut end = x.to_vec();
+        ckt.period(&mut end, false, None, ws)?;
+        Ok(x.iter()
+            .zip(&end)
+            .fold(0.0f64, |a, (s, e)| a.max((s - e).abs())))
+    };
     let mut iterations = 0;
     loop {
         if iterations >= MAX_SHOOTING {
             return Err(MultiplierError::Shooting(MAX_SHOOTING));
         }
         iterations += 1;
-        let start = x.clone();
         let mut end = x.clone();
         ckt.period(&mut end, true, None, &mut ws)?;
         // (M − I) dx = −(Φ(x) − x)
@@ -474,25 +483,37 @@ pub fn steady_state(
         for i in 0..m {
             a[i * m + i] -= 1.0;
         }
-        let mut rhs: Vec<f64> = (0..m).map(|i| start[i] - end[i]).collect();
+        let mut rhs: Vec<f64> = (0..m).map(|i| x[i] - end[i]).collect();
         let resid = rhs.iter().fold(0.0f64, |a, r| a.max(r.abs()));
         if resid < 1e-9 * scale {
-            x = start;
             break;
         }
         let mut piv = vec![0; m];
         lu_factor(&mut a, m, &mut piv).ok_or(MultiplierError::Shooting(iterations))?;
         lu_solve(&a, m, &piv, &mut rhs);
         let big = rhs.iter().fold(0.0f64, |a, d| a.max(d.abs()));
-        let k = if big > 0.2 * scale {
+        let mut lambda = if big > 0.2 * scale {
             0.2 * scale / big
         } else {
             1.0
         };
-        x = start.iter().zip(&rhs).map(|(s, d)| s + k * d).collect();
-        if !x.iter().all(|v| v.is_finite()) {
-            return Err(MultiplierError::Shooting(iterations));
+        let mut accepted = None;
+        for _ in 0..5 {
+            let trial: Vec<f64> = x.iter().zip(&rhs).map(|(s, d)| s + lambda * d).collect();
+            if trial.iter().all(|v| v.is_finite()) {
+                let r = residual(&trial, &mut ws)?;
+                if r < (1.0 - 0.25 * lambda) * resid {
+                    accepted = Some(trial);
+                    break;
+                }
+            }
+            lambda *= 0.5;
         }
+        x = match accepted {
+            Some(t) => t,
+            // No step helps: a plain period moves towards the steady state all the same.
+            None => end,
+        };
     }
     // One recorded period at the steady state: the output at the base and, separately, the
     // multiplier's own output s_n.
