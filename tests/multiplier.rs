@@ -93,16 +93,22 @@ fn run(text: &str, dir: &std::path::Path, name: &str) -> std::collections::HashM
 /// Our steady state against ngspice's: droop of the peak output and ripple before and after
 /// the filter, within 5 % (the brief's tolerance; measured agreement is a fraction of that).
 fn compare(m: &Multiplier, load_ohms: f64, periods: usize, name: &str) {
-    let dir = temp_dir(&format!("multiplier-{name}"));
-    let ours = multiplier::steady_state(m, ElectricalResistance::new::<ohm>(load_ohms)).unwrap();
-    // `periods` from the textbook's loaded charges, enough for ngspice's own slowest mode to
-    // decay (measured: the demo's filter and 12 MΩ load settle within 1 % only after some
-    // 3000 periods; 4 stages into 8 MΩ without a filter within 300).
-    let spice = run(
+    compare_text(
+        m,
+        load_ohms,
         &netlist::write_multiplier(m, load_ohms, periods),
-        &dir,
         name,
     );
+}
+
+/// As [`compare`], with the netlist given.
+fn compare_text(m: &Multiplier, load_ohms: f64, text: &str, name: &str) {
+    let dir = temp_dir(&format!("multiplier-{name}"));
+    let ours = multiplier::steady_state(m, ElectricalResistance::new::<ohm>(load_ohms)).unwrap();
+    // The netlist runs from the textbook's loaded charges for enough periods that ngspice's
+    // own slowest mode has decayed (measured: the demo's filter and 12 MΩ load settle within
+    // 1 % only after some 3000 periods; 4 stages into 8 MΩ without a filter within 300).
+    let spice = run(text, &dir, name);
     let top_max = spice["vtop_max"];
     let droop = ours.no_load_volts - top_max;
     let ripple = spice["vtop_pp"];
@@ -161,5 +167,17 @@ fn the_demo_supply_matches_ngspice() {
         .as_ref()
         .expect("the demo describes its supply");
     let m = d.multiplier.unwrap();
-    compare(&m, sm.steady.load_ohms, 4000, "demo");
+    // The netlist as a user gets it: `dynode netlist --supply` (4000 periods).
+    let out = Command::new(env!("CARGO_BIN_EXE_dynode"))
+        .args(["netlist", "--supply", "-q"])
+        .arg(crate_path("designs/multiplier-fed.ron"))
+        .output()
+        .unwrap();
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    let text = String::from_utf8(out.stdout).unwrap();
+    compare_text(&m, sm.steady.load_ohms, &text, "demo");
 }

@@ -41,14 +41,14 @@ pub fn model_body(a: &Analysis) -> Option<String> {
     let out = &mut text;
     let _ = writeln!(
         out,
-        "  {}-stage Cockcroft–Walton multiplier, {} per capacitor, driven at {} with {} peak{}",
+        "  {}-stage Cockcroft–Walton multiplier, {} per capacitor, driven at {} with {} peak\n  {}",
         m.stages,
         eng(m.capacitance_farads, "F"),
         eng(m.frequency_hz, "Hz"),
         eng(m.amplitude_volts, "V"),
         match (m.filter_ohms, m.filter_farads) {
-            (Some(r), Some(c)) => format!(", RC filter {} and {}", eng(r, "Ω"), eng(c, "F")),
-            _ => ", no filter".to_string(),
+            (Some(r), Some(c)) => format!("RC filter {} and {} after it", eng(r, "Ω"), eng(c, "F")),
+            _ => "no filter".to_string(),
         }
     );
     let _ = writeln!(
@@ -102,14 +102,14 @@ pub fn model_body(a: &Analysis) -> Option<String> {
     );
     let _ = writeln!(
         out,
-        "  ripple at the base {} p-p moves the gain {:.4} % p-p (d ln G / d ln V = {:.2}); {} gain stability of {:.2} %: {}",
+        "  ripple at the base {} p-p moves the gain {:.4} % p-p (d ln G / d ln V = {:.2});\n  {} gain stability of {:.2} %: {}",
         eng(s.ripple_volts, "V"),
         m.gain_ripple * 100.0,
         a.sensitivity,
         if m.gain_stability_given {
             "the stated"
         } else {
-            "against an example"
+            "an example"
         },
         m.gain_stability * 100.0,
         if m.meets {
@@ -120,7 +120,7 @@ pub fn model_body(a: &Analysis) -> Option<String> {
     );
     let _ = writeln!(
         out,
-        "  (no-load output 2 n V_p = {}; as built: silicon rectifiers, whose forward drops add to the droop; textbook: ripple I·n(n+1)/(2fC), drop (I/(fC))(2n³/3+n²/2−n/6), filter ÷ 2πfRC for a sine; high-voltage engineering texts, from memory)",
+        "  no-load output 2 n V_p = {}; as built: silicon rectifiers, whose forward drops add to the droop\n  textbook (high-voltage engineering texts, from memory): ripple I·n(n+1)/(2fC),\n  drop (I/(fC))(2n³/3+n²/2−n/6), filter ÷ 2πfRC (for a sine; the real ripple is not one)",
         eng(s.no_load_volts, "V")
     );
     Some(text)
