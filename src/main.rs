@@ -894,7 +894,7 @@ fn run() -> ExitCode {
                 let g0 = match base.quiescent_state() {
                     Ok((nv, _)) => {
                         let gaps: Vec<f64> =
-                            (1..=d.tube.stages).map(|j| nv[j] - nv[j - 1]).collect();
+                            (1..=d.tube.stages + 1).map(|j| nv[j] - nv[j - 1]).collect();
                         a.network.tube.gain_for_gaps(&gaps)
                     }
                     Err(e) => return fail(format!("{}: {e}", d.source), Exit::SolveFailed),
