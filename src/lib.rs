@@ -21,6 +21,7 @@ pub mod frontend;
 pub mod light;
 pub mod limits;
 pub mod linearity;
+pub mod multiplier;
 pub mod netlist;
 pub mod network;
 pub mod output;

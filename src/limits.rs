@@ -106,6 +106,21 @@ pub fn show(x: f64, kind: Kind) -> String {
 pub const SUPPLY_VOLTS: Range = r(Kind::Voltage, 10.0, 1e5);
 /// Supply current limit.
 pub const SUPPLY_CURRENT_LIMIT: Range = r(Kind::Current, 1e-9, 10.0);
+/// Stages of a supply's voltage multiplier (a doubler is 1); the upper limit bounds the
+/// steady-state solve (shooting on 2 n + 1 nodes) to a few seconds: a lightly loaded cascade
+/// of 8 or more stages has a mode that decays over thousands of periods, and its shooting
+/// needs many iterations.
+pub const MULTIPLIER_STAGES: (usize, usize) = (1, 6);
+/// Capacitance of each multiplier capacitor.
+pub const MULTIPLIER_CAPACITANCE: Range = r(Kind::Capacitance, 1e-11, 1e-4);
+/// Drive frequency of a multiplier (mains to a fast switching converter).
+pub const MULTIPLIER_FREQUENCY: Range = r(Kind::Frequency, 10.0, 2e6);
+/// Drive amplitude (peak) of a multiplier.
+pub const MULTIPLIER_AMPLITUDE: Range = r(Kind::Voltage, 1.0, 2e4);
+/// Series resistance of the supply's RC filter.
+pub const FILTER_RESISTANCE: Range = r(Kind::Resistance, 1.0, 1e9);
+/// Shunt capacitance of the supply's RC filter.
+pub const FILTER_CAPACITANCE: Range = r(Kind::Capacitance, 1e-12, 1e-4);
 /// A divider resistor (each part of a series string).
 pub const RESISTOR: Range = r(Kind::Resistance, 1.0, 1e11);
 /// A Zener diode's voltage.

@@ -532,6 +532,7 @@ pub fn parse_requirements(text: &str, file: &str) -> Result<Requirements, Sizing
             output_capacitance: raw.supply.output_capacitance.clone(),
             quality: raw.supply.quality,
             output_resistance: None,
+            multiplier: None,
         },
         divider: RawDivider {
             gaps: (0..=n).map(|_| RawElement::R(Value::Number(1e6))).collect(),

@@ -46,6 +46,10 @@ pub const NULLABLE: &[&str] = &[
     "supply_quality.setting_accuracy",
     "supply_quality.setting_gain",
     "supply_quality.meets",
+    // report: supply_model (no supply.multiplier block; no filter)
+    "supply_model",
+    "supply_model.filter_ohms",
+    "supply_model.filter_farads",
     // spread: optional inputs, limits not reached, gaps without a limit or a resistor rating
     "inputs.pulse_charge_coulombs",
     "minus_1pct",

@@ -24,6 +24,8 @@ mod frontends;
 mod golden;
 /// Hostile input as properties: arbitrary bytes, byte- and value-mutated designs.
 mod hostile;
+/// The supply as built: the voltage multiplier against ngspice and the textbook.
+mod multiplier;
 /// The DC operating point against ngspice on the same netlist.
 mod ngspice_dc;
 /// Figures, HTML, Markdown, JSON schema, netlist and output hygiene.
