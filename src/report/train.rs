@@ -232,7 +232,11 @@ fn section(out: &mut String, t: &TrainAnalysis, a: &Analysis) {
                 match t.spec.pattern {
                     _ if !s.for_ever
                         && !matches!(t.spec.pattern, crate::train::Pattern::Single) =>
-                        "over this train from rest: the base has no steady state at its rate",
+                        if s.pulses_sized < t.count {
+                            "over the train's first 200 pulses from rest: the base has no steady state at its rate"
+                        } else {
+                            "over this train from rest: the base has no steady state at its rate"
+                        },
                     crate::train::Pattern::Single => "one pulse from rest",
                     crate::train::Pattern::Poisson(..) =>
                         "the rate continuing for ever, Poisson arrivals: the drop beyond the mean shift exceeded by 1 % of pulses",
@@ -328,7 +332,11 @@ fn section(out: &mut String, t: &TrainAnalysis, a: &Analysis) {
         let _ = writeln!(
             out,
             "    {:<34} {:>11.3} % {:>11.3} %",
-            "lowest pulse gain / first",
+            if tp.pulses_compared < t.count {
+                "lowest pulse gain / first (200 p.)"
+            } else {
+                "lowest pulse gain / first"
+            },
             tp.worst_gain_ratio.0 * 100.0,
             tp.worst_gain_ratio.1 * 100.0
         );
