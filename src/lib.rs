@@ -12,6 +12,7 @@
 #![allow(clippy::needless_range_loop)]
 
 pub mod analysis;
+pub mod commands;
 pub mod cathode;
 pub mod constants;
 pub mod design;

@@ -291,7 +291,7 @@ fn print_exit(text: &str) -> ExitCode {
 /// Read and check a design, and check that the output target may be written, before any
 /// work is done (so that a refusal writes nothing).
 fn load_for_output(design: &Path, out: &OutputArgs) -> Result<design::Design, ExitCode> {
-    let d = design::load(design).map_err(|e| fail(e, Exit::BadInput))?;
+    let d = dynode::commands::load_design(design).map_err(|e| fail(&e, command_exit(&e)))?;
     if let Some(p) = &out.output {
         output::check_target(p, &[design], out.force).map_err(|e| fail(e, Exit::BadInput))?;
     }
@@ -318,6 +318,13 @@ fn analysis_exit(e: &AnalysisError) -> Exit {
         | AnalysisError::Operating { .. }
         | AnalysisError::Contradiction { .. } => Exit::BadInput,
         AnalysisError::Solve { .. } => Exit::SolveFailed,
+    }
+}
+
+fn command_exit(e: &dynode::commands::CommandError) -> Exit {
+    match e.exit_code() {
+        3 => Exit::SolveFailed,
+        _ => Exit::BadInput,
     }
 }
 
@@ -673,20 +680,9 @@ fn run() -> ExitCode {
             force,
             quiet,
         } => run_size(&requirements, &output, force, quiet),
-        Command::Check { design } => match design::load(&design) {
-            // A check solves the DC design but runs no pulse train (`report` and `train` do).
-            Ok(d) => match analysis::analyse_with(&d, None) {
-                Ok(a) => {
-                    let mut text = format!("{}: the design reads and solves\n", design.display());
-                    // Plausibility warnings never block, but a check shows them too.
-                    for w in &a.warnings {
-                        text.push_str(&format!("warning: {w}\n"));
-                    }
-                    print_exit(&text)
-                }
-                Err(e) => fail(&e, analysis_exit(&e)),
-            },
-            Err(e) => fail(e, Exit::BadInput),
+        Command::Check { design } => match dynode::commands::check(&design) {
+            Ok(text) => print_exit(&text),
+            Err(e) => fail(&e, command_exit(&e)),
         },
         Command::Report {
             design,
@@ -787,12 +783,7 @@ fn run() -> ExitCode {
                 a.warnings.extend(t.warnings.iter().cloned());
             }
             a.train = train;
-            let text = match format {
-                Format::Text => report::train::render_text(&a),
-                Format::Json => report::train::render_json(&a),
-                // The richer formats carry the train as a section of the full report.
-                Format::Html | Format::Markdown => report::render(&a, format),
-            };
+            let text = report::train::render(&a, format);
             if let Err(code) = emit(&text, &out, &design) {
                 return code;
             }

@@ -1,0 +1,79 @@
+//! The work of the small commands, so that `main.rs` only parses arguments and maps exit codes.
+//!
+//! Each function reads its inputs, runs the library and returns the text to print, or an error
+//! that says which exit code it deserves ([`CommandError::exit_code`]).
+
+use std::path::Path;
+
+use crate::analysis::{self, AnalysisError};
+use crate::design::{self, Design, DesignError};
+
+/// Why a command could not do its work, with the exit code it maps to.
+#[derive(Debug, thiserror::Error)]
+pub enum CommandError {
+    /// Bad input or usage (exit 2).
+    #[error("{0}")]
+    BadInput(String),
+    /// A solve failed (exit 3).
+    #[error("{0}")]
+    Solve(String),
+}
+
+impl CommandError {
+    /// The process exit code: 2 for bad input, 3 for a failed solve.
+    pub fn exit_code(&self) -> u8 {
+        match self {
+            CommandError::BadInput(_) => 2,
+            CommandError::Solve(_) => 3,
+        }
+    }
+}
+
+impl From<DesignError> for CommandError {
+    fn from(e: DesignError) -> Self {
+        CommandError::BadInput(e.to_string())
+    }
+}
+
+impl From<AnalysisError> for CommandError {
+    fn from(e: AnalysisError) -> Self {
+        match e {
+            AnalysisError::Solve { .. } => CommandError::Solve(e.to_string()),
+            _ => CommandError::BadInput(e.to_string()),
+        }
+    }
+}
+
+/// Whether `text` reads as a requirements file (the input of `dynode size`) rather than a
+/// design: it parses against the requirements schema.
+pub fn is_requirements(text: &str) -> bool {
+    let text = text.strip_prefix('\u{feff}').unwrap_or(text);
+    ron::from_str::<crate::sizing::RawRequirements>(text).is_ok()
+}
+
+/// Read and check a design; a requirements file given where a design belongs is named as such,
+/// with the command that reads it, instead of the first field the design schema does not know.
+pub fn load_design(path: &Path) -> Result<Design, CommandError> {
+    let text = design::read_text(path, "design")?;
+    let file = path.display().to_string();
+    match design::parse_str(&text, &file) {
+        Ok(d) => Ok(d),
+        Err(_) if is_requirements(&text) => Err(CommandError::BadInput(format!(
+            "{file}: this is a requirements file (what a base must do), not a design; `dynode size {file} -o design.ron` sizes a design from it, which `check` and `report` then read",
+            file = crate::report::one_line(&file)
+        ))),
+        Err(e) => Err(e.into()),
+    }
+}
+
+/// `dynode check`: read, check and solve the DC design (no pulse train); the text names the
+/// file and lists the plausibility warnings, which never block.
+pub fn check(path: &Path) -> Result<String, CommandError> {
+    let d = load_design(path)?;
+    let a = analysis::analyse_with(&d, None)?;
+    let mut text = format!("{}: the design reads and solves\n", path.display());
+    for w in &a.warnings {
+        text.push_str(&format!("warning: {w}\n"));
+    }
+    Ok(text)
+}
