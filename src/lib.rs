@@ -12,8 +12,8 @@
 #![allow(clippy::needless_range_loop)]
 
 pub mod analysis;
-pub mod commands;
 pub mod cathode;
+pub mod commands;
 pub mod constants;
 pub mod design;
 pub mod eseries;

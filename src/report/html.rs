@@ -194,7 +194,12 @@ pub fn section_page(a: &Analysis, command: &str, title: &str, text: &str) -> Str
         out,
         "<!DOCTYPE html>\n<html lang=\"en\">\n<head>\n<meta charset=\"utf-8\">"
     );
-    let _ = writeln!(out, "<title>dynode {}: {}</title>", esc(command), esc(&d.name));
+    let _ = writeln!(
+        out,
+        "<title>dynode {}: {}</title>",
+        esc(command),
+        esc(&d.name)
+    );
     let _ = writeln!(out, "<style>{STYLE}</style>\n</head>\n<body>");
     let _ = writeln!(
         out,

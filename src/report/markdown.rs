@@ -138,7 +138,12 @@ pub fn section_page(a: &Analysis, command: &str, title: &str, text: &str) -> Str
         literal(&d.source)
     );
     let f = fence(text);
-    let _ = writeln!(out, "## {}\n\n{f}text\n{}\n{f}\n", literal(title), text.trim_end());
+    let _ = writeln!(
+        out,
+        "## {}\n\n{f}text\n{}\n{f}\n",
+        literal(title),
+        text.trim_end()
+    );
     let _ = writeln!(out, "## Warnings\n");
     if a.warnings.is_empty() {
         let _ = writeln!(out, "None.");
