@@ -23,6 +23,7 @@ pub mod linearity;
 pub mod netlist;
 pub mod network;
 pub mod output;
+pub mod parts;
 pub mod plot;
 pub mod pulsetrain;
 pub mod report;

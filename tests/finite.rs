@@ -32,6 +32,13 @@ pub const NULLABLE: &[&str] = &[
     "energy_resolution_fwhm",
     "readable.threshold_efficiency",
     "energy_resolution_statistical_fwhm",
+    // report: parts (a value in no E-series; no power for a capacitor, no voltage rating for
+    // a Zener, no margin for a part that sees no voltage)
+    "parts[].series",
+    "parts[].power_watts",
+    "parts[].power_rating_watts",
+    "parts[].voltage_rating_volts",
+    "parts[].voltage_margin",
     // report: safety
     "capacitors[].rating_volts",
     "bleed_seconds",

@@ -524,6 +524,7 @@ pub fn render(a: &Analysis, format: crate::report::Format) -> String {
     match format {
         Format::Text => render_text(a),
         Format::Json => render_json(a),
+        Format::PartsCsv => crate::parts::csv(a),
         Format::Html | Format::Markdown => {
             let text = section_text(a).unwrap_or_else(|| {
                 "The design gives no train block; nothing to solve in time.\n".to_string()
