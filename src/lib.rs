@@ -28,6 +28,7 @@ pub mod plot;
 pub mod pulsetrain;
 pub mod report;
 pub mod safety;
+pub mod schematic;
 pub mod signal;
 pub mod sizing;
 pub mod spread;

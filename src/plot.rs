@@ -138,6 +138,61 @@ pub struct Figure {
     pub y_limits: Option<(f64, f64)>,
     /// Where the legend goes.
     pub legend: Legend,
+    /// A drawing in pixels (a schematic) instead of a chart: when set, the axes, series,
+    /// markers and bands are not drawn.
+    pub sketch: Option<Sketch>,
+}
+
+/// A drawing made of plain strokes and words, in pixels from the top left: a schematic.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Sketch {
+    /// Width, pixels.
+    pub width: u32,
+    /// Height, pixels.
+    pub height: u32,
+    /// What is drawn, in order.
+    pub ink: Vec<Ink>,
+}
+
+/// Where a text sits against its point.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Anchor {
+    /// The point is at the text's left end.
+    Left,
+    /// The point is at the text's middle.
+    Centre,
+    /// The point is at the text's right end.
+    Right,
+}
+
+/// One stroke of a [`Sketch`].
+#[derive(Debug, Clone, PartialEq)]
+pub enum Ink {
+    /// A polyline, 2 px.
+    Path(Vec<(i32, i32)>),
+    /// A thin polyline, 1 px, grey (an outline such as the tube's envelope).
+    Thin(Vec<(i32, i32)>),
+    /// Text with its baseline's vertical middle at `y`.
+    Text {
+        /// Point.
+        x: i32,
+        /// Point.
+        y: i32,
+        /// Words.
+        text: String,
+        /// Pixel size.
+        size: u32,
+        /// Anchor.
+        anchor: Anchor,
+        /// Bold face.
+        bold: bool,
+    },
+    /// A rectangle outline (a resistor's body, an instrument).
+    Frame(i32, i32, i32, i32),
+    /// A filled dot (a junction).
+    Dot(i32, i32),
+    /// A circle outline (a source).
+    Ring(i32, i32, i32),
 }
 
 /// Legend corner.
@@ -165,6 +220,7 @@ impl Figure {
             integer_x: false,
             y_limits: None,
             legend: Legend::UpperLeft,
+            sketch: None,
         }
     }
     /// Add a series.
@@ -653,8 +709,89 @@ where
     Ok(())
 }
 
+/// Pixel size of a figure: a chart is [`WIDTH`] × [`HEIGHT`]; a sketch has its own.
+pub fn size(fig: &Figure) -> (u32, u32) {
+    fig.sketch
+        .as_ref()
+        .map_or((WIDTH, HEIGHT), |s| (s.width, s.height))
+}
+
+fn draw_sketch<DB: DrawingBackend>(
+    root: &DrawingArea<DB, Shift>,
+    fig: &Figure,
+    sk: &Sketch,
+) -> Result<(), String> {
+    use plotters::style::text_anchor::{HPos, Pos, VPos};
+    let e = |e: DrawingAreaErrorKind<DB::ErrorType>| format!("{e:?}");
+    let ink = RGBColor(30, 30, 30);
+    let thin = RGBColor(120, 120, 120);
+    root.fill(&WHITE).map_err(e)?;
+    root.draw(&Text::new(
+        fig.title.clone(),
+        (sk.width as i32 / 2, 22),
+        ("sans-serif", 20)
+            .into_font()
+            .style(FontStyle::Bold)
+            .color(&BLACK)
+            .pos(Pos::new(HPos::Center, VPos::Center)),
+    ))
+    .map_err(e)?;
+    for i in &sk.ink {
+        match i {
+            Ink::Path(p) => root
+                .draw(&PathElement::new(p.clone(), ink.stroke_width(2)))
+                .map_err(e)?,
+            Ink::Thin(p) => root
+                .draw(&PathElement::new(p.clone(), thin.stroke_width(1)))
+                .map_err(e)?,
+            Ink::Frame(x0, y0, x1, y1) => root
+                .draw(&Rectangle::new(
+                    [(*x0, *y0), (*x1, *y1)],
+                    ink.stroke_width(2),
+                ))
+                .map_err(e)?,
+            Ink::Dot(x, y) => root
+                .draw(&Circle::new((*x, *y), 3, ink.filled()))
+                .map_err(e)?,
+            Ink::Ring(x, y, r) => root
+                .draw(&Circle::new((*x, *y), *r, ink.stroke_width(2)))
+                .map_err(e)?,
+            Ink::Text {
+                x,
+                y,
+                text,
+                size,
+                anchor,
+                bold,
+            } => {
+                let h = match anchor {
+                    Anchor::Left => HPos::Left,
+                    Anchor::Centre => HPos::Center,
+                    Anchor::Right => HPos::Right,
+                };
+                let font = ("sans-serif", *size).into_font().style(if *bold {
+                    FontStyle::Bold
+                } else {
+                    FontStyle::Normal
+                });
+                root.draw(&Text::new(
+                    text.clone(),
+                    (*x, *y),
+                    font.color(&BLACK).pos(Pos::new(h, VPos::Center)),
+                ))
+                .map_err(e)?
+            }
+        }
+    }
+    root.present().map_err(e)?;
+    Ok(())
+}
+
 fn render<DB: DrawingBackend>(root: DrawingArea<DB, Shift>, fig: &Figure) -> Result<(), String> {
     register_fonts()?;
+    if let Some(sk) = &fig.sketch {
+        return draw_sketch(&root, fig, sk);
+    }
     let xs = fig
         .series
         .iter()
@@ -737,7 +874,7 @@ fn render<DB: DrawingBackend>(root: DrawingArea<DB, Shift>, fig: &Figure) -> Res
 pub fn svg(fig: &Figure) -> Result<String, PlotError> {
     let mut out = String::new();
     {
-        let root = SVGBackend::with_string(&mut out, (WIDTH, HEIGHT)).into_drawing_area();
+        let root = SVGBackend::with_string(&mut out, size(fig)).into_drawing_area();
         render(root, fig).map_err(|reason| PlotError::Draw {
             figure: fig.name.clone(),
             reason,
@@ -761,14 +898,15 @@ pub fn png_bytes(fig: &Figure) -> Result<Vec<u8>, PlotError> {
         figure: fig.name.clone(),
         reason,
     };
-    let mut rgb = vec![0u8; WIDTH as usize * HEIGHT as usize * 3];
+    let (width, height) = size(fig);
+    let mut rgb = vec![0u8; width as usize * height as usize * 3];
     {
-        let root = BitMapBackend::with_buffer(&mut rgb, (WIDTH, HEIGHT)).into_drawing_area();
+        let root = BitMapBackend::with_buffer(&mut rgb, (width, height)).into_drawing_area();
         render(root, fig).map_err(fail)?;
     }
     let mut out = Vec::new();
     {
-        let mut enc = png::Encoder::new(&mut out, WIDTH, HEIGHT);
+        let mut enc = png::Encoder::new(&mut out, width, height);
         enc.set_color(png::ColorType::Rgb);
         enc.set_depth(png::BitDepth::Eight);
         let mut w = enc.write_header().map_err(|e| fail(e.to_string()))?;

@@ -79,3 +79,117 @@ fn pulse_figure_is_signed_and_zoomed() {
         assert!(span >= 1.5 * fwhm, "{}: the pulse is cut", path.display());
     }
 }
+
+/// Every `<text>` of an SVG, in document order, unescaped.
+fn svg_texts(svg: &str) -> Vec<String> {
+    svg.split("<text")
+        .skip(1)
+        .filter_map(|t| {
+            let body = &t[t.find('>')? + 1..];
+            Some(
+                body[..body.find("</text>")?]
+                    .trim()
+                    .replace("&lt;", "<")
+                    .replace("&gt;", ">")
+                    .replace("&amp;", "&"),
+            )
+        })
+        .collect()
+}
+
+/// The value printed under designator `name` (the text after it), read back as a number.
+fn value_after(texts: &[String], name: &str, kind: dynode::units::Kind) -> f64 {
+    let i = texts
+        .iter()
+        .position(|t| t == name)
+        .unwrap_or_else(|| panic!("{name} is not on the schematic: {texts:?}"));
+    let v = &texts[i + 1];
+    let v = v.split_once('×').map_or(v.as_str(), |(_, each)| each);
+    dynode::units::parse(v, kind).unwrap_or_else(|e| panic!("{name}: '{v}': {e}"))
+}
+
+/// The schematic of each demo names every divider element and capacitor with the design's
+/// value (printed to three significant digits, so read back within 0.5 %), as text in the SVG;
+/// its PNG decodes (PNG specification, W3C/ISO 15948) and is not blank.
+#[test]
+fn schematic_names_every_element_with_its_value() {
+    use dynode::design::Element;
+    use dynode::units::Kind;
+    let close = |a: f64, b: f64| (a / b - 1.0).abs() <= 5e-3;
+    for path in crate::common::demo_designs() {
+        let d = dynode::design::load(&path).unwrap();
+        let a = dynode::analysis::analyse_with(&d, None).unwrap();
+        let fig = dynode::schematic::figure(&a);
+        let svg = dynode::plot::svg(&fig).unwrap();
+        let texts = svg_texts(&svg);
+        let file = path.display();
+        for (j, e) in d.elements.iter().enumerate() {
+            let parts = d.series_parts[j].max(1);
+            match e {
+                Element::Resistor(r) => {
+                    let name = if parts == 1 {
+                        format!("R{}", j + 1)
+                    } else {
+                        format!("R{}a–R{}{}", j + 1, j + 1, (b'a' + parts as u8 - 1) as char)
+                    };
+                    let want = r.get::<uom::si::electrical_resistance::ohm>() / parts as f64;
+                    let got = value_after(&texts, &name, Kind::Resistance);
+                    assert!(close(got, want), "{file}: {name} {got} vs {want}");
+                }
+                Element::Zener(v, _) => {
+                    let name = format!("Z{}", j + 1);
+                    let want = v.get::<uom::si::electric_potential::volt>();
+                    let got = value_after(&texts, &name, Kind::Voltage);
+                    assert!(close(got, want), "{file}: {name} {got} vs {want}");
+                }
+            }
+            // The gap's voltage at the operating point is printed under it.
+            let gv = a.gaps[j].volts;
+            assert!(
+                texts
+                    .iter()
+                    .any(|t| dynode::units::parse(t, Kind::Voltage).is_ok_and(|x| close(x, gv))),
+                "{file}: gap {} voltage {gv} not shown",
+                j + 1
+            );
+        }
+        for (k, c) in d.decoupling.iter().enumerate() {
+            let name = format!("C{}", k + 1);
+            let want = c.value.get::<uom::si::capacitance::farad>();
+            let got = value_after(&texts, &name, Kind::Capacitance);
+            assert!(close(got, want), "{file}: {name} {got} vs {want}");
+        }
+        let n = d.elements.len();
+        let m = d.decoupling.len();
+        if let Some((c, _)) = d.coupling {
+            let want = c.get::<uom::si::capacitance::farad>();
+            let got = value_after(&texts, &format!("C{}", m + 1), Kind::Capacitance);
+            assert!(close(got, want), "{file}: coupling {got} vs {want}");
+        }
+        let mut next = n;
+        for r in [d.anode_resistor, d.shield_resistor, d.base_resistance]
+            .into_iter()
+            .flatten()
+        {
+            next += 1;
+            let want = r.get::<uom::si::electrical_resistance::ohm>();
+            let got = value_after(&texts, &format!("R{next}"), Kind::Resistance);
+            assert!(close(got, want), "{file}: R{next} {got} vs {want}");
+        }
+        assert!(texts.iter().any(|t| t.contains("HIGH VOLTAGE")));
+        // The PNG: decodes, has the figure's size, and is not blank.
+        let png = dynode::plot::png_bytes(&fig).unwrap();
+        let mut reader = png::Decoder::new(std::io::Cursor::new(png))
+            .read_info()
+            .unwrap();
+        let mut buf = vec![0; reader.output_buffer_size()];
+        let info = reader.next_frame(&mut buf).unwrap();
+        assert_eq!((info.width, info.height), dynode::plot::size(&fig));
+        let px = &buf[..info.buffer_size()];
+        let dark = px.chunks(3).filter(|p| p[0] < 128).count();
+        assert!(
+            dark > 2000,
+            "{file}: the schematic PNG is nearly blank ({dark} dark pixels)"
+        );
+    }
+}

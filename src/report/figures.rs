@@ -374,7 +374,12 @@ pub fn load_sweep(s: &crate::signal::SignalBudget) -> Vec<Figure> {
 
 /// Every figure of a report, in order.
 pub fn all(a: &Analysis) -> Vec<Figure> {
-    let mut v = vec![gaps(a), gain_curve(a), linearity(a)];
+    let mut v = vec![
+        crate::schematic::figure(a),
+        gaps(a),
+        gain_curve(a),
+        linearity(a),
+    ];
     if let Some(s) = &a.signal {
         v.push(pulse(s));
         v.extend(pulse_after(s));
