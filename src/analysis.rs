@@ -254,7 +254,10 @@ pub fn analyse_with(
         },
         other => solve_err(other),
     })?;
-    let linearity = linearity::trace(&network, &mut ws).map_err(solve_err)?;
+    let mut linearity = linearity::trace(&network, &mut ws).map_err(solve_err)?;
+    if linearity.peak_over.is_some() {
+        linearity.peak_over_stiff_knee = linearity::peak_with_stiff_knee(design, &network, &mut ws);
+    }
     let safety = safety::assess(design, &op);
 
     let vs = design.supply_magnitude();
@@ -310,7 +313,7 @@ pub fn analyse_with(
                 power_rating,
                 rated_volts,
                 quiescent_volts: quiescent_volts[j],
-                delta: (j < n).then(|| network.tube.delta(tube_gaps[j]).0),
+                delta: (j < n).then(|| network.tube.delta(tube_gaps[j], tube_gaps[j + 1]).0),
                 over_power: power_rating.is_some_and(|p| watts > p),
                 over_voltage: rated_volts.is_some_and(|u| volts > u),
                 over_gap_limit: max_gap.is_some_and(|m| volts > m),
@@ -458,6 +461,18 @@ pub fn analyse_with(
         assumptions.push(format!(
             "secondary-emission exponent k = {} (typical, Knoll ch. 9, from memory; give tube.gain.exponent)",
             t.k
+        ));
+    }
+    if design.tube.share_assumed {
+        assumptions.push(format!(
+            "{:.0} % of the secondary-emission exponent on the gap that collects each dynode's secondaries, the rest on the gap that accelerates its primaries (chosen so that a linear chain meets a published bound, under 3 % deviation at 0.1 of the divider current; give tube.collecting_share)",
+            t.share * 100.0
+        ));
+    }
+    if design.tube.knee_assumed {
+        assumptions.push(format!(
+            "gaps stop collecting below a knee of {} (1 − exp(−V/knee), this tool's modelling choice; give tube.collection_knee)",
+            format_eng(t.knee, "V")
         ));
     }
     if t.perveance_assumed {

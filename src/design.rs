@@ -174,6 +174,13 @@ pub struct RawTube {
     /// Transit-time spread, FWHM (signal budget).
     #[serde(default)]
     pub transit_spread: Option<Value>,
+    /// Share of the secondary-emission exponent on the gap that collects a dynode's
+    /// secondaries (the rest is on the gap that accelerates its primaries).
+    #[serde(default)]
+    pub collecting_share: Option<Value>,
+    /// Low-field collection knee: a gap below a few times this passes few electrons.
+    #[serde(default)]
+    pub collection_knee: Option<Value>,
 }
 
 /// The gain law as given.
@@ -420,6 +427,14 @@ pub struct TubeSpec {
     pub collection: f64,
     /// Whether collection was given or assumed.
     pub collection_assumed: bool,
+    /// Share of the exponent on the collecting gap, 0..=1.
+    pub collecting_share: f64,
+    /// Whether the share was given or the default.
+    pub share_assumed: bool,
+    /// Low-field collection knee, volts.
+    pub collection_knee: f64,
+    /// Whether the knee was given or the default.
+    pub knee_assumed: bool,
     /// Largest supply voltage magnitude.
     pub max_supply: ElectricPotential,
     /// Largest gap voltage, if rated.
@@ -1315,6 +1330,29 @@ fn check(raw: RawDesign, file: &str) -> Result<Design, DesignError> {
             (x, false)
         }
     };
+    let (collecting_share, share_assumed) = match &t.collecting_share {
+        None => (crate::tube::COLLECTING_SHARE, true),
+        Some(v) => {
+            let x = c.quantity("tube.collecting_share", v, Kind::Ratio)?;
+            if !limits::COLLECTING_SHARE.contains(x) {
+                return Err(c.fail(
+                    "tube.collecting_share",
+                    format!(
+                        "expected a share of the exponent {}, found {v}",
+                        limits::COLLECTING_SHARE.describe()
+                    ),
+                ));
+            }
+            (x, false)
+        }
+    };
+    let (collection_knee, knee_assumed) = match &t.collection_knee {
+        None => (crate::tube::COLLECTION_VOLTS, true),
+        Some(v) => (
+            c.within("tube.collection_knee", v, &limits::COLLECTION_KNEE)?,
+            false,
+        ),
+    };
     let max_supply = c.within(
         "tube.limits.max_supply",
         &t.limits.max_supply,
@@ -1365,6 +1403,10 @@ fn check(raw: RawDesign, file: &str) -> Result<Design, DesignError> {
         reference_ratio,
         collection,
         collection_assumed,
+        collecting_share,
+        share_assumed,
+        collection_knee,
+        knee_assumed,
         max_supply: ElectricPotential::new::<volt>(max_supply),
         max_gap: max_gap.map(ElectricPotential::new::<volt>),
         max_anode_current: ElectricCurrent::new::<ampere>(max_anode),

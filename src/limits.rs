@@ -135,6 +135,10 @@ pub const TUBE_GAIN: Range = Range {
 };
 /// A voltage of the tube's gain law or limits.
 pub const TUBE_VOLTS: Range = r(Kind::Voltage, 1.0, 1e5);
+/// Share of the secondary-emission exponent on the collecting gap (0: all on the accelerating gap).
+pub const COLLECTING_SHARE: Range = fraction(0.0, 1.0);
+/// Low-field collection knee of a gap: from a tenth of a volt to a hundred volts.
+pub const COLLECTION_KNEE: Range = r(Kind::Voltage, 0.1, 100.0);
 /// Cathode–D1 collection efficiency.
 pub const COLLECTION: Range = Range {
     kind: Kind::Ratio,

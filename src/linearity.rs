@@ -5,9 +5,9 @@
 //! each solve starting from the previous one (continuation). It is presented as a user
 //! measures it, output against light: the deviation `I_a / (G0 · I_k) − 1` against the ideal
 //! current `G0 · I_k` (`G0` the small-signal gain), a monotonic axis. The real anode current
-//! rises to a ceiling — the most the divider can deliver — and falls beyond it while the light
-//! still rises; the ceiling is the largest anode current the trace finds, and points past it
-//! are marked. Crossings of +1 %, −1 %, +5 % and −5 % are bracketed on the grid and refined by
+//! rises to a ceiling — the most the divider delivers before its gain falls to half
+//! ([`SATURATED_GAIN`]) — and beyond it either falls or creeps up at a gain far below the
+//! small-signal one, depending on the gain law; points past the ceiling are marked. Crossings of +1 %, −1 %, +5 % and −5 % are bracketed on the grid and refined by
 //! modified regula falsi (Illinois) on ln(cathode current) with real solves.
 //!
 //! What is robust and what is not: the ±1 % and ±5 % onsets follow from the divider and the
@@ -15,7 +15,7 @@
 //! gap, which the tube model represents by its own low-field law (a modelling choice, see
 //! [`crate::tube`]), so the peak is quoted as model-dependent.
 
-use crate::network::{Network, OperatingPoint, SolveError, Workspace};
+use crate::network::{Network, OperatingPoint, SATURATED_GAIN, SolveError, Workspace};
 
 /// One point of the linearity curve.
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -25,7 +25,8 @@ pub struct LinearityPoint {
     /// The anode current a linear tube would give at this light, `G0 · I_k`, amperes (rises
     /// with the light, so it orders the curve).
     pub ideal_amps: f64,
-    /// Whether the point lies past the ceiling (the anode current falls here as light rises).
+    /// Whether the point lies past the ceiling (the anode current has fallen below it, or the
+    /// gain has fallen under half the small-signal gain).
     pub past_ceiling: bool,
     /// Gain deviation from the small-signal gain (fraction).
     pub deviation: f64,
@@ -46,10 +47,15 @@ pub struct Linearity {
     pub minus_5pct: Option<f64>,
     /// Largest positive deviation (over-linearity) and where.
     pub peak_over: Option<LinearityPoint>,
+    /// The over-linearity peak again with a low-field collection knee ten times the tube's
+    /// (knee volts, largest deviation): how far the peak's height rests on that law. `None`
+    /// without a peak.
+    pub peak_over_stiff_knee: Option<(f64, f64)>,
     /// Why the curve stopped early, if it did.
     pub stopped: Option<String>,
-    /// The saturation ceiling: the largest anode current the trace finds, amperes, when the
-    /// current turns down within the traced range (`None`: still rising at its end).
+    /// The saturation ceiling: the most anode current the trace finds before the gain falls to
+    /// [`SATURATED_GAIN`] of the small-signal gain, amperes, when the current turns down or the
+    /// gain halves within the traced range (`None`: neither happens).
     pub ceiling_amps: Option<f64>,
 }
 
@@ -140,6 +146,26 @@ fn refine_ceiling(
 /// Trace the curve.
 pub fn trace(net: &Network, ws: &mut Workspace) -> Result<Linearity, SolveError> {
     trace_points(net, CURVE_POINTS, ws)
+}
+
+/// The over-linearity peak of the same base with a tube whose low-field collection knee is ten
+/// times stiffer (the tube recalibrated on its own gain figures): (knee volts, largest
+/// deviation, 0 when there is none). `None` when that tube does not calibrate or solve.
+pub fn peak_with_stiff_knee(
+    design: &crate::design::Design,
+    net: &Network,
+    ws: &mut Workspace,
+) -> Option<(f64, f64)> {
+    let mut spec = design.tube.clone();
+    spec.collection_knee *= 10.0;
+    let tube = crate::tube::TubeModel::from_spec(&spec).ok()?;
+    let mut stiff = net.clone();
+    stiff.tube = tube;
+    let l = trace_points(&stiff, CURVE_POINTS / 2, ws).ok()?;
+    Some((
+        spec.collection_knee,
+        l.peak_over.map_or(0.0, |p| p.deviation),
+    ))
 }
 
 /// Trace with a chosen number of points.
@@ -266,31 +292,48 @@ pub fn trace_points(
     let minus_1pct = find(-0.01, ws);
     let plus_5pct = find(0.05, ws);
     let minus_5pct = find(-0.05, ws);
-    let (top, ceiling_amps) = points
+    // The ceiling (network::SATURATED_GAIN): the most anode current before the gain halves.
+    let saturated = points
         .iter()
-        .enumerate()
-        .fold((0, 0.0f64), |(i, m), (j, p)| {
-            if p.anode_amps > m {
-                (j, p.anode_amps)
-            } else {
-                (i, m)
-            }
-        });
-    // Past the ceiling only when the current has really turned down (not a last point that
-    // merely sits on the top because the grid ended there).
-    for p in points.iter_mut().skip(top + 1) {
-        p.past_ceiling = p.anode_amps < ceiling_amps;
+        .position(|p| 1.0 + p.deviation < SATURATED_GAIN)
+        .unwrap_or(points.len());
+    let (top, grid_best) =
+        points[..saturated]
+            .iter()
+            .enumerate()
+            .fold((0, 0.0f64), |(i, m), (j, p)| {
+                if p.anode_amps > m {
+                    (j, p.anode_amps)
+                } else {
+                    (i, m)
+                }
+            });
+    let ceiling_amps = if top + 1 < saturated {
+        // The current turned down before the gain halved: the top of the curve, when it has
+        // really turned down (not a last point that merely sits on the top).
+        let turned = points[top + 1..saturated]
+            .iter()
+            .any(|p| p.anode_amps < grid_best);
+        turned.then(|| refine_ceiling(net, &ops, top, grid_best, ws))
+    } else if saturated < points.len() && saturated > 0 {
+        // Still rising when the gain halves: the ceiling is that point.
+        let edge = net.saturation_edge(&ops[saturated - 1].1, &ops[saturated].1, g0, ws);
+        Some(edge.map_or(grid_best, |op| op.anode_amps().max(grid_best)))
+    } else {
+        None
+    };
+    if let Some(c) = ceiling_amps {
+        for (i, p) in points.iter_mut().enumerate().skip(top + 1) {
+            p.past_ceiling = i >= saturated || p.anode_amps < c;
+        }
     }
-    let ceiling_amps = points
-        .iter()
-        .any(|p| p.past_ceiling)
-        .then(|| refine_ceiling(net, &ops, top, ceiling_amps, ws));
     let peak_over = points
         .iter()
         .copied()
         .filter(|p| p.deviation > 0.0)
         .max_by(|a, b| a.deviation.total_cmp(&b.deviation));
     Ok(Linearity {
+        peak_over_stiff_knee: None,
         ceiling_amps,
         points,
         plus_1pct,

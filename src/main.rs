@@ -254,7 +254,11 @@ enum Command {
 /// `eprintln!` that never panics: a message that cannot be shown is no reason to crash.
 macro_rules! say {
     ($($t:tt)*) => {{
-        let _ = writeln!(std::io::stderr(), $($t)*);
+        let _ = writeln!(
+            std::io::stderr(),
+            "{}",
+            dynode::report::printable(&format!($($t)*))
+        );
     }};
 }
 
@@ -267,6 +271,9 @@ fn fail(msg: impl std::fmt::Display, code: Exit) -> ExitCode {
 /// with a message and exit 2; a closed pipe (`| head`) ends quietly with exit 2, as the reader
 /// has gone and no one is left to read a message.
 fn print_out(bytes: &[u8]) -> Result<(), ExitCode> {
+    let text = String::from_utf8_lossy(bytes);
+    let bytes = dynode::report::printable(&text);
+    let bytes = bytes.as_bytes();
     let mut stdout = std::io::stdout().lock();
     match stdout.write_all(bytes).and_then(|_| stdout.flush()) {
         Ok(()) => Ok(()),
@@ -331,6 +338,7 @@ fn command_exit(e: &dynode::commands::CommandError) -> Exit {
 fn emit(text: &str, out: &OutputArgs, input: &Path) -> Result<(), ExitCode> {
     match &out.output {
         Some(path) => {
+            let text = dynode::report::printable(text);
             output::write_atomic(path, text.as_bytes(), &[input], out.force)
                 .map_err(|e| fail(e, Exit::BadInput))?;
             if !out.quiet {
@@ -543,7 +551,11 @@ fn run_size(requirements: &Path, output: &Path, force: bool, quiet: bool) -> Exi
         return fail(e, Exit::BadInput);
     }
     if !quiet {
-        let _ = write!(std::io::stderr(), "{}", sizing::summary(&sized));
+        let _ = write!(
+            std::io::stderr(),
+            "{}",
+            dynode::report::printable(&sizing::summary(&sized))
+        );
         say!(
             "dynode: wrote {}; check it with `dynode report {}`",
             output.display(),
@@ -843,7 +855,7 @@ fn run() -> ExitCode {
                 let g0 = match base.quiescent_state() {
                     Ok((nv, _)) => {
                         let gaps: Vec<f64> =
-                            (1..=d.tube.stages).map(|j| nv[j] - nv[j - 1]).collect();
+                            (1..=d.tube.stages + 1).map(|j| nv[j] - nv[j - 1]).collect();
                         a.network.tube.gain_for_gaps(&gaps)
                     }
                     Err(e) => return fail(format!("{}: {e}", d.source), Exit::SolveFailed),

@@ -13,7 +13,7 @@ use std::fmt::Write;
 use crate::design::{CapStyle, Design, Element, Polarity};
 use crate::network::ZENER_LEAK_SIEMENS;
 use crate::train::Shape;
-use crate::tube::{COLLECTION_VOLTS, SMOOTH_VOLTS, TubeModel};
+use crate::tube::{SMOOTH_VOLTS, TubeModel};
 use uom::si::capacitance::farad;
 use uom::si::electric_potential::volt;
 use uom::si::electrical_resistance::ohm;
@@ -119,15 +119,17 @@ fn circuit(design: &Design, tube: &TubeModel, source: Source) -> String {
     );
     let _ = writeln!(
         s,
-        "* Tube law: delta = {} * sp(u)^{}, sp(u) = (u + sqrt(u^2 + {}^2))/2; collection {};",
+        "* Tube law: delta = {} * sp(u_acc)^{} * sp(u_coll)^{}, sp(u) = (u + sqrt(u^2 + {}^2))/2; collection {};",
         num(tube.a),
-        num(tube.k),
+        num(tube.k * (1.0 - tube.share)),
+        num(tube.k * tube.share),
         SMOOTH_VOLTS,
         num(tube.collection)
     );
     let _ = writeln!(
         s,
-        "* gap transmission: I_out = (1 - exp(-sp(u)/{COLLECTION_VOLTS} V)) I_in / (1 + (I_in / (P sp(u)^1.5))^4)^0.25, P = {} A/V^1.5.",
+        "* gap transmission: I_out = (1 - exp(-sp(u)/{} V)) I_in / (1 + (I_in / (P sp(u)^1.5))^4)^0.25, P = {} A/V^1.5.",
+        num(tube.knee),
         num(tube.perveance)
     );
     let ik = match source {
@@ -248,7 +250,7 @@ fn circuit(design: &Design, tube: &TubeModel, source: Source) -> String {
         format!(
             "(1 - exp(-{gap}/{vc}))*({offered})/pow(1 + pow(({offered})/({p}*pow({gap},1.5)),4),0.25)",
             p = num(tube.perveance),
-            vc = num(COLLECTION_VOLTS)
+            vc = num(tube.knee)
         )
     };
     for j in 1..=n + 1 {
@@ -261,12 +263,15 @@ fn circuit(design: &Design, tube: &TubeModel, source: Source) -> String {
             let pa = node(design, j - 1);
             let pb = node(design, j - 2);
             let eta = if j == 2 { tube.collection } else { 1.0 };
+            // Dynode j-1: accelerated by the gap before it, collected by this gap.
             format!(
-                "{}*{}*pow({},{})*v(t{})",
+                "{}*{}*pow({},{})*pow({},{})*v(t{})",
                 num(eta),
                 num(tube.a),
                 sp(&pa, &pb),
-                num(tube.k),
+                num(tube.k * (1.0 - tube.share)),
+                gap,
+                num(tube.k * tube.share),
                 j - 1
             )
         };

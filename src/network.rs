@@ -48,7 +48,7 @@ pub enum SolveError {
     #[error("the node equations are singular (a node has no DC path); check the divider")]
     Singular,
     /// A requested anode current cannot be reached.
-    #[error("an average anode current of {} cannot be reached: the divider saturates near {}", format_eng(*wanted, "A"), format_eng(*reached, "A"))]
+    #[error("an average anode current of {} cannot be reached: the divider saturates near {} (the most it delivers while the gain is at least half its small-signal value)", format_eng(*wanted, "A"), format_eng(*reached, "A"))]
     Unreachable {
         /// Asked for.
         wanted: f64,
@@ -56,6 +56,14 @@ pub enum SolveError {
         reached: f64,
     },
 }
+
+/// The gain, as a fraction of the small-signal gain, below which the base counts as saturated.
+/// Past saturation the anode current may still creep up as the light rises (the starved last
+/// gaps pass ever more charge at a gain near one per stage), or fall and jump between branches,
+/// depending on the gain law; neither is an operating point. The saturation ceiling is the most
+/// anode current the base delivers, following the light up from a light load, before its gain
+/// falls to this fraction (this tool's definition, docs/physics.md §12).
+pub const SATURATED_GAIN: f64 = 0.5;
 
 /// One divider element in solver form.
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -261,8 +269,11 @@ impl Network {
             let u = x[2 * j] - prev_v;
             let (t, _, _) = self.tube.transmit(offered, u);
             x[2 * j + 1] = t;
-            let (d, _) = self.tube.delta(u);
-            offered = d * t * if j == 0 { self.tube.collection } else { 1.0 };
+            if j < n {
+                // Dynode j+1: accelerated by gap j, collected by gap j+1.
+                let (d, _, _) = self.tube.delta(u, x[2 * (j + 1)] - x[2 * j]);
+                offered = d * t * if j == 0 { self.tube.collection } else { 1.0 };
+            }
             prev_v = x[2 * j];
         }
     }
@@ -287,16 +298,19 @@ impl Network {
         for j in 1..=n + 1 {
             let row = ti(j);
             let u = v(j) - v(j - 1);
-            let (offered, de_dt, de_du_prev) = if j == 1 {
-                (ik, 0.0, 0.0)
+            // Dynode j-1 offers its secondaries: its yield depends on the gap before it
+            // (u_{j-1}) and on the gap u_j that collects them.
+            let (offered, de_dt, de_du_prev, de_du) = if j == 1 {
+                (ik, 0.0, 0.0, 0.0)
             } else {
                 let up = v(j - 1) - v(j - 2);
                 let eta = if j == 2 { self.tube.collection } else { 1.0 };
-                let (d, dd) = self.tube.delta(up);
+                let (d, d_acc, d_coll) = self.tube.delta(up, u);
                 let tp = x[ti(j - 1)];
-                (eta * d * tp, eta * d, eta * dd * tp)
+                (eta * d * tp, eta * d, eta * d_acc * tp, eta * d_coll * tp)
             };
             let (f, fc, fu) = self.tube.transmit(offered, u);
+            let fu = fu + fc * de_du;
             res[row] = x[row] - f;
             set(&mut jac, row, row, 1.0);
             // through u_j = v_j - v_{j-1}
@@ -642,8 +656,17 @@ impl Network {
         anode: f64,
         ws: &mut Workspace,
     ) -> Result<OperatingPoint, SolveError> {
+        let g0 = self.small_signal_gain();
         match self.solve_anode_secant(anode, ws) {
-            Ok(op) => Ok(op),
+            Ok(op) if op.gain() >= SATURATED_GAIN * g0 => Ok(op),
+            // A point past saturation is no operating point: follow the light up from a light
+            // load instead, which reaches the request before saturation or finds the ceiling.
+            Ok(_) => self
+                .solve_anode_bracketed(anode, ws)?
+                .ok_or(SolveError::Unreachable {
+                    wanted: anode,
+                    reached: 0.0,
+                }),
             Err(first) => self.solve_anode_bracketed(anode, ws)?.ok_or(first),
         }
     }
@@ -717,6 +740,18 @@ impl Network {
             let Ok(next) = self.solve_raw(lo.cathode_amps * 2.0, Some(&lo), ws) else {
                 break;
             };
+            if next.gain() < SATURATED_GAIN * g0 {
+                // Saturated before the request: the ceiling is where the gain halves.
+                let edge = self.saturation_edge(&lo, &next, g0, ws)?;
+                if edge.anode_amps() >= anode {
+                    bracket = Some((lo.clone(), edge));
+                    break;
+                }
+                return Err(SolveError::Unreachable {
+                    wanted: anode,
+                    reached: edge.anode_amps(),
+                });
+            }
             if next.anode_amps() >= anode {
                 bracket = Some((lo.clone(), next));
                 break;
@@ -760,6 +795,31 @@ impl Network {
             }
         }
         Ok(Some(hi))
+    }
+
+    /// The operating point between `below` (gain at least [`SATURATED_GAIN`] of `g0`) and
+    /// `above` (less) where the gain is that fraction: bisection on ln(cathode current).
+    pub fn saturation_edge(
+        &self,
+        below: &OperatingPoint,
+        above: &OperatingPoint,
+        g0: f64,
+        ws: &mut Workspace,
+    ) -> Result<OperatingPoint, SolveError> {
+        let (mut lo, mut hi) = (below.clone(), above.clone());
+        for _ in 0..100 {
+            if hi.cathode_amps / lo.cathode_amps - 1.0 < 1e-12 {
+                break;
+            }
+            let mid = (lo.cathode_amps * hi.cathode_amps).sqrt();
+            let op = self.solve_raw(mid, Some(&lo), ws)?;
+            if op.gain() >= SATURATED_GAIN * g0 {
+                lo = op;
+            } else {
+                hi = op;
+            }
+        }
+        Ok(lo)
     }
 
     /// Golden-section search for the top of the anode current on `[left, right]` (cathode

@@ -399,7 +399,7 @@ pub fn pulse_linearity(
     };
     let g0 = {
         let (nv, _) = base.quiescent_state()?;
-        let gaps: Vec<f64> = (1..=base.stages()).map(|j| nv[j] - nv[j - 1]).collect();
+        let gaps: Vec<f64> = (1..=base.stages() + 1).map(|j| nv[j] - nv[j - 1]).collect();
         base.tube.gain_for_gaps(&gaps)
     };
     let q_of_peak = |i: f64| i / (g0 * shape.peak());
@@ -641,7 +641,7 @@ pub fn analyse(
     let base = Base::from_design(design, tube.clone());
     let (nv, _) = base.quiescent_state()?;
     let n = design.tube.stages;
-    let gaps0: Vec<f64> = (1..=n).map(|j| nv[j] - nv[j - 1]).collect();
+    let gaps0: Vec<f64> = (1..=n + 1).map(|j| nv[j] - nv[j - 1]).collect();
     let g0 = tube.gain_for_gaps(&gaps0);
     let qk = cathode_charge(spec.size, &spec.shape, g0);
     let run = run_train(

@@ -728,7 +728,9 @@ fn network_for(tube: &TubeModel, ohms: &[f64], supply: f64, anode_resistance: f6
 /// (per-stage law, closed form, then two corrections with the tube model's own delta).
 pub fn supply_for_gain(tube: &TubeModel, shares: &[f64], gain: f64) -> f64 {
     let n = tube.stages;
-    let sum_ln: f64 = shares[..n].iter().map(|s| s.ln()).sum();
+    let sum_ln: f64 = (1..=n)
+        .map(|j| (1.0 - tube.share) * shares[j - 1].ln() + tube.share * shares[j].ln())
+        .sum();
     let k = tube.k;
     let mut v = ((gain.ln() - tube.collection.ln() - n as f64 * tube.a.ln() - k * sum_ln)
         / (k * n as f64))
@@ -829,9 +831,10 @@ pub fn size(req: &Requirements) -> Result<Sized, SizingError> {
         ));
     }
     reasoning.push(format!(
-        "Supply: the per-stage gain law (delta = a·V^k, a = {:.4}, k = {:.3}, collection {:.0} %) under the {} ratio gives the target gain {:.3e} at {}.",
+        "Supply: the per-stage gain law (delta = a·V_acc^(k(1−s))·V_coll^(k·s), a = {:.4}, k = {:.3}, s = {:.0} %, collection {:.0} %) under the {} ratio gives the target gain {:.3e} at {}.",
         tube.a,
         tube.k,
+        tube.share * 100.0,
         tube.collection * 100.0,
         req.ratio.name(),
         req.target_gain,
@@ -1285,7 +1288,7 @@ fn size_capacitors(
         });
         // The charge the gap before gives: divided by the gain of the dynode this gap feeds from.
         if j >= 1 {
-            let delta = tube.delta(gaps[j - 1].volts).0.max(1.0);
+            let delta = tube.delta(gaps[j - 1].volts, gaps[j].volts).0.max(1.0);
             qi /= delta;
         }
     }

@@ -507,8 +507,9 @@ fn solve_at(
 }
 
 /// d ln G0 / d ln Vs of the small-signal gain, analytically from the no-current divider:
-/// `Σ (δ'_i/δ_i) (r_i / R_total) Vs` over the multiplying gaps (r_i the element's resistance or a
-/// Zener's dynamic resistance). Equals [`Network::gain_sensitivity`] without its two re-solves.
+/// `Σ_j (∂δ_j/∂u_acc · r_acc + ∂δ_j/∂u_coll · r_coll) / (δ_j R_total) · Vs` over the dynodes
+/// (r the element's resistance or a Zener's dynamic resistance). Equals
+/// [`Network::gain_sensitivity`] without its two re-solves.
 fn sensitivity(net: &Network, qv: &[f64]) -> f64 {
     let r: Vec<f64> = net
         .parts
@@ -519,12 +520,21 @@ fn sensitivity(net: &Network, qv: &[f64]) -> f64 {
         })
         .collect();
     let total: f64 = r.iter().sum();
-    (0..net.tube.stages)
-        .map(|j| {
-            let (d, dd) = net.tube.delta(qv[j]);
-            dd / d * r[j] / total * net.supply
+    // The low-field collection of each gap, d ln c / du = (e / V_c) / (1 − e), e = exp(−u/V_c).
+    let knee = net.tube.knee;
+    let passed: f64 = (0..=net.tube.stages)
+        .map(|i| {
+            let c = crate::tube::collected(qv[i], knee);
+            (1.0 - c) / knee / c * r[i] / total * net.supply
         })
-        .sum()
+        .sum();
+    passed
+        + (1..=net.tube.stages)
+            .map(|j| {
+                let (d, d_acc, d_coll) = net.tube.delta(qv[j - 1], qv[j]);
+                (d_acc * r[j - 1] + d_coll * r[j]) / d / total * net.supply
+            })
+            .sum::<f64>()
 }
 
 /// Percentiles of a sample (linear interpolation between order statistics).
@@ -671,8 +681,8 @@ pub fn run(
                     // Gap g (1-based) gives Q over the gains of the dynodes after it: the
                     // dynodes fed by gap indices g-1 .. n-1.
                     let mut qi = q;
-                    for v in &qv[*g - 1..n] {
-                        qi /= net.tube.delta(*v).0.max(1.0);
+                    for i in *g - 1..n {
+                        qi /= net.tube.delta(qv[i], qv[i + 1]).0.max(1.0);
                     }
                     qi / (c * d.caps[*ci] * qv[*g - 1])
                 })

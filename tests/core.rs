@@ -100,6 +100,8 @@ fn ahmed_worked_example_per_stage_product() {
     let (_, net) = network(&equal_design(10, 1000.0, "1M", 0.75));
     let mut t = net.tube.clone();
     t.collection = 1.0;
+    // The textbook's law puts the whole exponent on the accelerating gap (share 0).
+    t.share = 0.0;
     let v_for = |delta: f64| (delta / t.a).powf(1.0 / t.k);
     let mut gaps: Vec<f64> = (0..4).map(|_| v_for(3.0)).collect();
     gaps.extend((0..6).map(|_| v_for(4.0)));
@@ -209,9 +211,11 @@ fn bleed_down_of_one_capacitor_is_rc_ln_ratio() {
 fn linearity_is_output_against_light_with_its_ceiling() {
     // docs/physics.md §12: the curve is presented against the ideal current G0·I_k,
     // which rises with the light, so the axis never runs backwards; the ceiling is the most
-    // anode current the divider delivers. An independent scan (2000 cold-started solves over
-    // the same light range, no continuation) must find no larger current than the ceiling,
-    // and one within 0.5 % of it (the grid's spacing near the top).
+    // anode current the divider delivers before its gain falls to half (the tool's definition
+    // of saturation, network::SATURATED_GAIN). An independent scan (2000 solves over the same
+    // light range, each started from the last, without the trace's prediction or refinement)
+    // must find no larger current before the gain halves, and one within 0.5 % of the ceiling
+    // (the scan's spacing near the top or the half-gain edge).
     for path in crate::common::demo_designs() {
         let d = dynode::design::load(&path).unwrap();
         let a = dynode::analysis::analyse(&d).unwrap();
@@ -235,6 +239,9 @@ fn linearity_is_output_against_light_with_its_ceiling() {
         for i in 0..2000 {
             let ik = (first.ln() + (last.ln() - first.ln()) * i as f64 / 1999.0).exp();
             if let Ok(op) = a.network.solve_raw(ik, prev.as_ref(), &mut ws) {
+                if op.gain() < 0.5 * g0 {
+                    break;
+                }
                 best = best.max(op.anode_amps());
                 prev = Some(op);
             }
@@ -303,11 +310,101 @@ fn stored_charge_and_energy_are_judged_against_the_quoted_limits() {
     assert!(v.over, "{v:?}");
     assert!(v.clause.contains("350 mJ"));
     // A 4.7 nF decoupling capacitor at 90 V holds 0.42 µC: within.
-    let small = equal_design(10, 1000.0, "1M", 0.75).replace(
-        "divider: (gaps:",
-        "divider: (decoupling: [Across(gap: 11, value: \"4.7 nF\", rating: Some(\"500 V\"))], gaps:",
-    );
+    // (Rated for 100 µA, so that the default operating point, a tenth of it, is well inside
+    // the 91 µA divider's reach.)
+    let small = equal_design(10, 1000.0, "1M", 0.75)
+        .replace(
+            "divider: (gaps:",
+            "divider: (decoupling: [Across(gap: 11, value: \"4.7 nF\", rating: Some(\"500 V\"))], gaps:",
+        )
+        .replace("max_anode_current: \"1 mA\"", "max_anode_current: \"100 uA\"");
     let d = design::parse_str(&small, "small.ron").unwrap();
     let a = dynode::analysis::analyse(&d).unwrap();
     assert!(a.safety.verdicts.iter().all(|v| !v.over));
+}
+
+#[test]
+fn a_linear_chain_stays_under_three_percent_at_a_tenth_of_its_divider_current() {
+    // A published measurement (journal abstract, checks.md: title not shown) reports under 3 %
+    // gain deviation while the anode current stays below 0.1 of the current in the last
+    // resistor of a linear chain. The analysis behind it lets each dynode's yield depend on the
+    // gap that accelerates its primaries and on the gap that collects its secondaries; the
+    // tool's default even split must meet the bound. An independent solve of the same chain
+    // (numpy, reported with the issue that asked for the split: 10 stages, k = 0.75) gives
+    // +2.7 % with the even split and +6.8 % with the whole exponent on the accelerating gap.
+    let run = |share: Option<f64>| {
+        let mut text = equal_design(10, 1000.0, "1M", 0.75);
+        if let Some(s) = share {
+            text = text.replace(
+                "collection: Some(1.0),",
+                &format!("collection: Some(1.0), collecting_share: Some({s}),"),
+            );
+        }
+        let (_, net) = network(&text);
+        let (i0, _) = net.quiescent();
+        let mut ws = dynode::network::Workspace::default();
+        let op = net.solve_anode_raw(0.1 * i0, &mut ws).expect("solves");
+        op.gain() / net.small_signal_gain() - 1.0
+    };
+    let default = run(None);
+    assert!(default > 0.0 && default < 0.03, "{default}");
+    assert!((default - 0.027).abs() < 0.0006, "{default} vs +2.7 %");
+    assert!((run(Some(0.5)) - default).abs() < 1e-12);
+    let single = run(Some(0.0));
+    assert!((single - 0.068).abs() < 0.0006, "{single} vs +6.8 %");
+}
+
+#[test]
+fn the_whole_exponent_on_the_accelerating_gap_reproduces_the_single_gap_law() {
+    // With share 0 the two-gap law is the single-gap law delta = a V^k that the tool used before
+    // the split. Figures recorded from that law's reports of every demo (tests/golden/
+    // single-gap-law.json, taken from the golden reports before the split) must come back
+    // within 1e-9 relative: gain, small-signal gain, electrode potentials, the ±1 % and ±5 %
+    // onsets and the over-linearity peak.
+    let recorded: serde_json::Value = serde_json::from_str(
+        &std::fs::read_to_string(crate::common::crate_path(
+            "tests/golden/single-gap-law.json",
+        ))
+        .expect("recorded figures"),
+    )
+    .expect("json");
+    let close = |a: f64, b: f64| a == b || (a - b).abs() <= 1e-9 * a.abs().max(b.abs());
+    let mut checked = 0;
+    for (name, want) in recorded.as_object().expect("object") {
+        let path = crate::common::crate_path(&format!("designs/{name}.ron"));
+        let text = std::fs::read_to_string(&path).expect("demo").replacen(
+            "tube: (",
+            "tube: (collecting_share: Some(0.0), ",
+            1,
+        );
+        let d = design::parse_str(&text, "demo.ron").expect("parses");
+        let a = dynode::analysis::analyse(&d).expect("analyses");
+        let l = &a.linearity;
+        let got = [
+            ("gain", Some(a.op.gain())),
+            ("small_signal_gain", Some(a.small_signal_gain)),
+            ("plus_1pct_amps", l.plus_1pct),
+            ("minus_1pct_amps", l.minus_1pct),
+            ("plus_5pct_amps", l.plus_5pct),
+            ("minus_5pct_amps", l.minus_5pct),
+            ("peak_over_deviation", l.peak_over.map(|p| p.deviation)),
+        ];
+        for (key, value) in got {
+            let w = want[key].as_f64();
+            match (value, w) {
+                (Some(v), Some(w)) => assert!(close(v, w), "{name}: {key} {v} vs {w}"),
+                (None, None) => {}
+                _ => panic!("{name}: {key} {value:?} vs {w:?}"),
+            }
+        }
+        let volts = want["electrode_volts_from_cathode"]
+            .as_array()
+            .expect("array");
+        assert_eq!(a.op.potentials.len(), volts.len());
+        for (v, w) in a.op.potentials.iter().zip(volts) {
+            assert!(close(*v, w.as_f64().expect("number")), "{name}: {v} vs {w}");
+        }
+        checked += 1;
+    }
+    assert!(checked >= 6, "every demo recorded");
 }

@@ -234,3 +234,66 @@ fn a_closed_pipe_ends_quietly_without_a_panic() {
         assert!(!err.contains("panicked"), "{args:?}: {err}");
     }
 }
+
+#[cfg(unix)]
+#[test]
+fn terminal_escape_sequences_never_reach_the_reader() {
+    // Property: terminal control sequences (ESC [2J clears the screen, ESC ]0; retitles the
+    // window, a carriage return overwrites a line; the ECMA-48 control functions) never reach
+    // whoever reads the output. In a design's name they are refused at the field; in the file
+    // name they come out with every control character other than a line break or a tab
+    // replaced, on standard output, in a written file and in messages.
+    let controls = |bytes: &[u8]| {
+        String::from_utf8_lossy(bytes)
+            .chars()
+            .filter(|c| c.is_control() && *c != '\n' && *c != '\t')
+            .count()
+    };
+    let dir = temp_dir("terminal-escapes");
+    let text = std::fs::read_to_string(crate_path("designs/rooftop-paddle.ron")).expect("demo");
+    let hostile = text.replacen(
+        "name: \"Rooftop cosmic-ray paddle (demo, invented numbers)\"",
+        "name: \"paddle \\u{1b}[2J\\u{1b}]0;owned\\u{7} line\\rover \\u{9b}31m\"",
+        1,
+    );
+    assert!(hostile.contains("owned"), "the demo's name line moved");
+    let named = dir.join("named.ron");
+    std::fs::write(&named, hostile).expect("write design");
+    let o = run(&["check", named.to_str().expect("utf-8")]);
+    assert_eq!(
+        o.status.code(),
+        Some(2),
+        "a control character in the name is refused"
+    );
+    assert!(stderr(&o).contains("name"), "{}", stderr(&o));
+    assert_eq!(
+        controls(&o.stderr),
+        0,
+        "the refusal quotes no control character"
+    );
+
+    let design = dir.join("esc\u{1b}[2J\u{1b}]0;owned\u{7}\r.ron");
+    std::fs::write(&design, &text).expect("write design");
+    let design = design.to_str().expect("utf-8");
+    for format in ["text", "markdown", "html", "json"] {
+        let o = run(&["report", design, "--format", format]);
+        assert_eq!(o.status.code(), Some(0), "{}", stderr(&o));
+        assert_eq!(controls(&o.stdout), 0, "{format} on standard output");
+        assert!(
+            String::from_utf8_lossy(&o.stdout).contains("owned"),
+            "the file name is still shown"
+        );
+    }
+    let out = dir.join("r.txt");
+    let o = run(&["report", design, "-o", out.to_str().expect("utf-8")]);
+    assert_eq!(o.status.code(), Some(0), "{}", stderr(&o));
+    assert_eq!(
+        controls(&std::fs::read(&out).expect("report")),
+        0,
+        "written file"
+    );
+    assert_eq!(controls(&o.stderr), 0, "the 'wrote' message");
+    let o = run(&["check", &format!("{design}.missing")]);
+    assert_eq!(o.status.code(), Some(2));
+    assert_eq!(controls(&o.stderr), 0, "an error message naming the file");
+}

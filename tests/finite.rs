@@ -26,6 +26,8 @@ pub const NULLABLE: &[&str] = &[
     "minus_5pct_amps",
     "peak_over_deviation",
     "peak_over_amps",
+    "peak_over_deviation_stiff_knee",
+    "stiff_knee_volts",
     "stopped",
     "ceiling_amps",
     // report: signal (a scintillator only)

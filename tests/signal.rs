@@ -126,6 +126,8 @@ fn excess_noise_factors_of_a_poisson_cascade() {
         stages: 10,
         a,
         k,
+        share: 0.0,
+        knee: 2.0,
         collection: 1.0,
         perveance: 1.0,
         perveance_assumed: false,

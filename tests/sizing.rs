@@ -199,7 +199,7 @@ fn assert_meets(req: &sizing::Requirements, s: &sizing::Sized) -> Result<(), Str
                 qi /= a
                     .network
                     .tube
-                    .delta(a.gaps[j - 1].quiescent_volts)
+                    .delta(a.gaps[j - 1].quiescent_volts, v)
                     .0
                     .max(1.0);
             }

@@ -47,7 +47,7 @@ fn chain(decoupling: &str, size: &str, pattern: &str) -> (Design, Base, f64) {
     let tube = TubeModel::from_spec(&d.tube).expect("tube calibrates");
     let base = Base::from_design(&d, tube);
     let (nv, _) = base.quiescent_state().expect("DC state");
-    let gaps: Vec<f64> = (1..=10).map(|j| nv[j] - nv[j - 1]).collect();
+    let gaps: Vec<f64> = (1..=11).map(|j| nv[j] - nv[j - 1]).collect();
     let g0 = base.tube.gain_for_gaps(&gaps);
     let spec = d.train.clone().expect("train block");
     let qk = cathode_charge(spec.size, &spec.shape, g0);
@@ -277,7 +277,7 @@ fn bench_chain(pattern: &str) -> (Design, Base, f64) {
     let tube = TubeModel::from_spec(&d.tube).expect("tube calibrates");
     let base = Base::from_design(&d, tube);
     let (nv, _) = base.quiescent_state().expect("DC state");
-    let gaps: Vec<f64> = (1..=10).map(|j| nv[j] - nv[j - 1]).collect();
+    let gaps: Vec<f64> = (1..=11).map(|j| nv[j] - nv[j - 1]).collect();
     let g0 = base.tube.gain_for_gaps(&gaps);
     let spec = d.train.clone().expect("train block");
     let qk = cathode_charge(spec.size, &spec.shape, g0);

@@ -38,6 +38,8 @@ pub fn to_value(a: &Analysis) -> Value {
         "tube_model": {
             "a": t.a,
             "k": t.k,
+            "collecting_share": t.share,
+            "collection_knee_volts": t.knee,
             "collection": t.collection,
             "perveance_amps_per_volt_1_5": t.perveance,
             "fit_rms_ln_gain": t.fit_rms,
@@ -76,6 +78,8 @@ pub fn to_value(a: &Analysis) -> Value {
             "minus_5pct_amps": l.minus_5pct,
             "peak_over_deviation": l.peak_over.map(|p| p.deviation),
             "peak_over_amps": l.peak_over.map(|p| p.anode_amps),
+            "peak_over_deviation_stiff_knee": l.peak_over_stiff_knee.map(|(_, d)| d),
+            "stiff_knee_volts": l.peak_over_stiff_knee.map(|(v, _)| v),
             "stopped": l.stopped,
             "ceiling_amps": l.ceiling_amps,
             "curve": l.points.iter().map(|p| json!({

@@ -24,11 +24,36 @@ use crate::analysis::Analysis;
 pub fn one_line(s: &str) -> String {
     s.chars()
         .map(|c| {
-            let invisible = matches!(c, '\u{200B}'..='\u{200F}' | '\u{202A}'..='\u{202E}'
-                | '\u{2028}' | '\u{2029}' | '\u{2060}'..='\u{2069}' | '\u{FEFF}');
-            if c.is_control() || invisible { '?' } else { c }
+            if c.is_control() || invisible(c) {
+                '?'
+            } else {
+                c
+            }
         })
         .collect()
+}
+
+/// Bidirectional and invisible formatting characters, which can make text read other than it is.
+fn invisible(c: char) -> bool {
+    matches!(c, '\u{200B}'..='\u{200F}' | '\u{202A}'..='\u{202E}'
+        | '\u{2028}' | '\u{2029}' | '\u{2060}'..='\u{2069}' | '\u{FEFF}')
+}
+
+/// Text as it may reach a terminal: line breaks and tabs kept, every other control character
+/// (an escape sequence that would recolour, retitle or clear the terminal, a carriage return
+/// that would overwrite a line) and every invisible formatting character becomes `?`. Applied
+/// to everything the command line prints or writes as text, so a design's name or notes cannot
+/// drive the terminal of whoever reads the report.
+pub fn printable(s: &str) -> std::borrow::Cow<'_, str> {
+    let bad = |c: char| (c.is_control() && c != '\n' && c != '\t') || invisible(c);
+    if s.chars().any(bad) {
+        s.chars()
+            .map(|c| if bad(c) { '?' } else { c })
+            .collect::<String>()
+            .into()
+    } else {
+        s.into()
+    }
 }
 
 /// Output formats of `report`.

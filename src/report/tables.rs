@@ -46,10 +46,11 @@ pub fn design(a: &Analysis) -> Table {
         kv(
             "tube",
             format!(
-                "{} dynodes; δ = a·V^k, a = {:.4}, k = {:.3}; collection {:.0} %; {law}",
+                "{} dynodes; δ = a·V_acc^(k(1−s))·V_coll^(k·s), a = {:.4}, k = {:.3}, s = {:.0} %; collection {:.0} %; {law}",
                 t.stages,
                 t.a,
                 t.k,
+                t.share * 100.0,
                 t.collection * 100.0
             ),
         ),

@@ -95,10 +95,11 @@ pub fn render(a: &Analysis) -> String {
     };
     let _ = writeln!(
         out,
-        "  tube        {} dynodes; delta = a·V^k with a = {:.4}, k = {:.3}; collection {:.0} %",
+        "  tube        {} dynodes; delta = a·V_acc^(k(1−s))·V_coll^(k·s) with a = {:.4}, k = {:.3}, s = {:.0} %; collection {:.0} %",
         t.stages,
         t.a,
         t.k,
+        t.share * 100.0,
         t.collection * 100.0
     );
     let _ = writeln!(out, "              {law}");
@@ -397,7 +398,7 @@ fn linearity_text(out: &mut String, a: &Analysis) {
             out,
             "  ceiling            ",
             &format!(
-                "{}: the most anode current this divider delivers; past it the anode current falls while the light rises{}",
+                "{}: the most anode current this divider delivers before its gain falls to half; past it the output no longer follows the light{}",
                 eng(c, "A"),
                 if c > rating {
                     format!(" (above the tube's {} rating)", eng(rating, "A"))
@@ -419,13 +420,22 @@ fn linearity_text(out: &mut String, a: &Analysis) {
             out,
             "  over-linearity     ",
             &format!(
-                "largest {:+.2} % at {}{}; its height is model-dependent (set by how the tube model lets collection fail at a starved gap), the ±1 % and ±5 % onsets are not",
+                "largest {:+.2} % at {}{}; its height is model-dependent (set by how the tube model lets collection fail at a starved gap{}), the ±1 % and ±5 % onsets are not",
                 p.deviation * 100.0,
                 eng(p.anode_amps, "A"),
                 if p.anode_amps > rating {
                     format!(", above the tube's {} rating", eng(rating, "A"))
                 } else {
                     String::new()
+                },
+                match l.peak_over_stiff_knee {
+                    Some((knee, dev)) => format!(
+                        ": with a collection knee of {} instead of {} it is {:+.2} %",
+                        eng(knee, "V"),
+                        eng(a.network.tube.knee, "V"),
+                        dev * 100.0
+                    ),
+                    None => String::new(),
                 }
             ),
         );

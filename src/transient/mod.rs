@@ -418,15 +418,22 @@ impl Base {
         for j in 1..=n + 1 {
             let row = Self::tvar(j);
             let u = nv[j] - nv[j - 1];
-            let (offered, de_dt, de_du) = if j == 1 {
-                (ik, 0.0, 0.0)
+            // Dynode j-1's yield depends on the gap before it and on the gap u that collects.
+            let (offered, de_dt, de_du, de_du_coll) = if j == 1 {
+                (ik, 0.0, 0.0, 0.0)
             } else {
                 let up = nv[j - 1] - nv[j - 2];
                 let eta = if j == 2 { tube.collection } else { 1.0 };
-                let (d, dd) = tube.delta(up);
-                (eta * d * t[j - 2], eta * d, eta * dd * t[j - 2])
+                let (d, d_acc, d_coll) = tube.delta(up, u);
+                (
+                    eta * d * t[j - 2],
+                    eta * d,
+                    eta * d_acc * t[j - 2],
+                    eta * d_coll * t[j - 2],
+                )
             };
             let (f, fc, fu) = tube.transmit(offered, u);
+            let fu = fu + fc * de_du_coll;
             sys.residual(row, t[j - 1] - f);
             sys.jac(row, row, 1.0);
             sys.jac(row, self.var(j), -fu);
@@ -455,8 +462,10 @@ impl Base {
             let u = nv[j] - nv[j - 1];
             let (tj, _, _) = self.tube.transmit(offered, u);
             t[j - 1] = tj;
-            let (d, _) = self.tube.delta(u);
-            offered = d * tj * if j == 1 { self.tube.collection } else { 1.0 };
+            if j <= self.n {
+                let (d, _, _) = self.tube.delta(u, nv[j + 1] - nv[j]);
+                offered = d * tj * if j == 1 { self.tube.collection } else { 1.0 };
+            }
         }
     }
 

@@ -65,7 +65,10 @@ impl Watch {
             train_end,
             signal_initial: base.signal_volts(reference),
             delta0: (1..=n)
-                .map(|j| base.tube.delta(reference[j] - reference[j - 1]).0)
+                .map(|j| {
+                    let acc = reference[j] - reference[j - 1];
+                    base.tube.delta(acc, reference[j + 1] - reference[j]).0
+                })
                 .collect(),
         }
     }
@@ -74,7 +77,7 @@ impl Watch {
     pub fn gain_ratio(&self, base: &Base, nv: &[f64]) -> f64 {
         let mut r = 1.0;
         for (j, d0) in (1..=base.n).zip(&self.delta0) {
-            r *= base.tube.delta(nv[j] - nv[j - 1]).0 / d0;
+            r *= base.tube.delta(nv[j] - nv[j - 1], nv[j + 1] - nv[j]).0 / d0;
         }
         r
     }
