@@ -77,3 +77,23 @@ pub fn check(path: &Path) -> Result<String, CommandError> {
     }
     Ok(text)
 }
+
+/// `dynode compare`: two or more designs analysed by the core (no pulse train) and set side by
+/// side; `json` picks JSON over text.
+pub fn compare(paths: &[std::path::PathBuf], json: bool) -> Result<String, CommandError> {
+    if paths.len() < 2 {
+        return Err(CommandError::BadInput(
+            "compare: expected two or more design files".to_string(),
+        ));
+    }
+    let mut all = Vec::with_capacity(paths.len());
+    for p in paths {
+        let d = load_design(p)?;
+        all.push(analysis::analyse_with(&d, None)?);
+    }
+    Ok(if json {
+        crate::compare::json(&all)
+    } else {
+        crate::compare::text(&all)
+    })
+}

@@ -14,6 +14,7 @@
 pub mod analysis;
 pub mod cathode;
 pub mod commands;
+pub mod compare;
 pub mod constants;
 pub mod design;
 pub mod eseries;

@@ -213,9 +213,9 @@ enum Command {
         #[command(flatten)]
         out: OutputArgs,
     },
-    /// Vary one or two fields of the design and tabulate gain, divider current, linearity.
+    /// Vary one or two fields of the design and tabulate gain, divider current, linearity, pulse.
     #[command(
-        after_help = "Example:\n  dynode sweep designs/rooftop-paddle.ron --vary supply.volts=900V..1500V:13\n  dynode sweep designs/rooftop-paddle.ron --vary divider.gaps[10]=470k..2M:9:log --vary operating.anode_current=1uA..20uA:4\n\nFields: supply.volts, divider.gaps[i], load.resistance, tube.gain.exponent, operating.anode_current, … (docs/design-file.md lists them all)."
+        after_help = "Example:\n  dynode sweep designs/rooftop-paddle.ron --vary supply.volts=900V..1500V:13\n  dynode sweep designs/rooftop-paddle.ron --vary divider.gaps[11]=470k..2M:9:log --vary operating.anode_current=1uA..20uA:4\n  dynode sweep designs/rooftop-paddle.ron --vary 'divider.gaps[*]=0.33..1:5'\n\nGaps count from 1 (gap 1 = K–D1) as in the design file; divider.gaps[*] scales every divider resistor.\nFields: supply.volts, divider.gaps[i], divider.gaps[*], load.resistance, tube.gain.exponent, operating.anode_current, … (docs/design-file.md lists them all)."
     )]
     Sweep {
         /// The design file (RON).
@@ -229,6 +229,21 @@ enum Command {
         /// Also write the figures as SVG and PNG into DIR (sweep-gain.png, sweep-linearity.png).
         #[arg(long, value_name = "DIR")]
         plots: Option<PathBuf>,
+        #[command(flatten)]
+        out: OutputArgs,
+    },
+    /// Set two or more designs side by side: gap voltages, divider current, gain, linearity
+    /// limits, pulse, verdicts, dissipation, stored charge, bleed-down; differences marked.
+    #[command(
+        after_help = "Example:\n  dynode compare designs/rooftop-paddle.ron paddle-1M.ron\n  dynode compare a.ron b.ron c.ron --format json -o compare.json"
+    )]
+    Compare {
+        /// The design files (RON), two or more.
+        #[arg(required = true, num_args = 2..)]
+        designs: Vec<PathBuf>,
+        /// Output format.
+        #[arg(short, long, value_enum, default_value_t = DataFormat::Text)]
+        format: DataFormat,
         #[command(flatten)]
         out: OutputArgs,
     },
@@ -336,10 +351,15 @@ fn command_exit(e: &dynode::commands::CommandError) -> Exit {
 }
 
 fn emit(text: &str, out: &OutputArgs, input: &Path) -> Result<(), ExitCode> {
+    emit_from(text, out, &[input])
+}
+
+/// [`emit`] for a command that reads several inputs (none of which may be overwritten).
+fn emit_from(text: &str, out: &OutputArgs, inputs: &[&Path]) -> Result<(), ExitCode> {
     match &out.output {
         Some(path) => {
             let text = dynode::report::printable(text);
-            output::write_atomic(path, text.as_bytes(), &[input], out.force)
+            output::write_atomic(path, text.as_bytes(), inputs, out.force)
                 .map_err(|e| fail(e, Exit::BadInput))?;
             if !out.quiet {
                 say!("dynode: wrote {}", path.display());
@@ -746,6 +766,25 @@ fn run() -> ExitCode {
                 return ExitCode::from(Exit::Strict as u8);
             }
             ExitCode::from(Exit::Ok as u8)
+        }
+        Command::Compare {
+            designs,
+            format,
+            out,
+        } => {
+            let inputs: Vec<&Path> = designs.iter().map(PathBuf::as_path).collect();
+            if let Some(p) = &out.output
+                && let Err(e) = output::check_target(p, &inputs, out.force)
+            {
+                return fail(e, Exit::BadInput);
+            }
+            match dynode::commands::compare(&designs, format == DataFormat::Json) {
+                Ok(text) => match emit_from(&text, &out, &inputs) {
+                    Ok(()) => ExitCode::from(Exit::Ok as u8),
+                    Err(code) => code,
+                },
+                Err(e) => fail(&e, command_exit(&e)),
+            }
         }
         Command::Cathodes => print_exit(&cathode_catalogue()),
         Command::LightMatch {

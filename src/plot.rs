@@ -460,7 +460,7 @@ fn tick_text(v: f64, axis: &Axis, integer: bool, range: Option<(f64, f64)>) -> S
 pub fn narrow_note(lo: f64, hi: f64, unit: Option<&str>) -> Option<String> {
     let top = lo.abs().max(hi.abs());
     let span = hi - lo;
-    if !(top > 0.0) || !span.is_finite() || span <= 0.0 || lo * hi <= 0.0 {
+    if !top.is_finite() || top <= 0.0 || !span.is_finite() || span <= 0.0 || lo * hi <= 0.0 {
         return None;
     }
     let frac = span / top;

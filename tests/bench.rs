@@ -193,3 +193,104 @@ fn schematic_names_every_element_with_its_value() {
         );
     }
 }
+
+fn compare_json(a: &std::path::Path, b: &std::path::Path) -> serde_json::Value {
+    let o = dynode()
+        .args(["compare", "--format", "json"])
+        .arg(a)
+        .arg(b)
+        .output()
+        .unwrap();
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    serde_json::from_slice(&o.stdout).unwrap()
+}
+
+/// A design compared with itself shows no difference in any row (text and JSON).
+#[test]
+fn compare_of_a_design_with_itself_shows_no_difference() {
+    let demo = crate_path("designs/liquid-cell-tapered.ron");
+    let v = compare_json(&demo, &demo);
+    assert_eq!(v["differences"], 0, "{v:#}");
+    let o = dynode()
+        .arg("compare")
+        .arg(&demo)
+        .arg(&demo)
+        .output()
+        .unwrap();
+    let text = String::from_utf8_lossy(&o.stdout);
+    assert!(!text.lines().any(|l| l.starts_with('≠')), "{text}");
+    assert!(text.contains("0 of"), "{text}");
+}
+
+/// Every divider resistor divided by three: with no tube current the divider is the resistors
+/// alone, so Ohm's law (I = V / ΣR) triples its current; the row is marked as a difference,
+/// and the gap voltages (each V·R_j/ΣR) are unchanged.
+#[test]
+fn compare_with_every_divider_resistor_divided_by_three_triples_the_divider_current() {
+    let demo = crate_path("designs/rooftop-paddle.ron");
+    let text = std::fs::read_to_string(&demo).unwrap();
+    let third = text
+        .replace("R(\"1M\")", "R(\"333333.33333333\")")
+        .replace("R(\"470k\")", "R(\"156666.66666667\")");
+    assert_ne!(text, third);
+    let dir = crate::common::temp_dir("compare-third");
+    let b = dir.join("paddle-third.ron");
+    std::fs::write(&b, third).unwrap();
+    let v = compare_json(&demo, &b);
+    let rows = v["rows"].as_array().unwrap();
+    let row = |name: &str| {
+        rows.iter()
+            .find(|r| r["figure"].as_str().unwrap().starts_with(name))
+            .unwrap_or_else(|| panic!("no row {name}"))
+    };
+    let r = row("divider current");
+    let (i1, i3) = (
+        r["values"][0].as_f64().unwrap(),
+        r["values"][1].as_f64().unwrap(),
+    );
+    assert!((i3 / i1 - 3.0).abs() < 1e-9, "{i3} / {i1}");
+    assert_eq!(r["differs"], true);
+    let g = row("gap 2 ");
+    let (g1, g3) = (
+        g["values"][0].as_f64().unwrap(),
+        g["values"][1].as_f64().unwrap(),
+    );
+    // At the operating point the tube's current loads the divider less when it carries three
+    // times the current, so the voltages move by under the anode-to-divider current ratio.
+    assert!((g3 / g1 - 1.0).abs() < 0.02, "{g3} vs {g1}");
+}
+
+/// `sweep` counts gaps from 1 as the design file does (gap 1 = K–D1), and `divider.gaps[*]`
+/// scales every divider resistor: at a third, Ohm's law (I = V / ΣR) triples the divider
+/// current. A design with a light block gets the pulse columns.
+#[test]
+fn sweep_counts_gaps_from_one_and_scales_all_gaps() {
+    use dynode::sweep;
+    let d = dynode::design::load(&crate_path("designs/rooftop-paddle.ron")).unwrap();
+    let first = sweep::parse_axis("divider.gaps[1]=2M..2M:2").unwrap();
+    sweep::check_axes(&d, std::slice::from_ref(&first)).unwrap();
+    let s = sweep::run(&d, &[first]);
+    // Gap 1 (K–D1) from 1 MΩ to 2 MΩ: ΣR = 1 M + 10 × 470 k = 5.7 MΩ becomes 6.7 MΩ.
+    let i = s.rows[0].divider_amps.unwrap();
+    assert!((i - 1100.0 / 6.7e6).abs() < 1e-9 * i, "{i}");
+    let zero = sweep::parse_axis("divider.gaps[0]=1M..2M:2").unwrap();
+    let e = sweep::check_axes(&d, &[zero]).unwrap_err();
+    assert!(e.contains("count from 1"), "{e}");
+    let all = sweep::parse_axis("divider.gaps[*]=0.333333333333..1:2").unwrap();
+    sweep::check_axes(&d, std::slice::from_ref(&all)).unwrap();
+    let s = sweep::run(&d, &[all]);
+    let (third, one) = (
+        s.rows[0].divider_amps.unwrap(),
+        s.rows[1].divider_amps.unwrap(),
+    );
+    assert!((third / one - 3.0).abs() < 1e-9, "{third} / {one}");
+    for r in &s.rows {
+        assert!(r.pulse_peak_volts.is_some() && r.rise_s.is_some() && r.snr.is_some());
+        // The paddle's last gap holds 10 nF at about 90 V: Q/(C·V) per pulse.
+        assert!(
+            r.droop.is_some_and(|x| x > 0.0 && x < 0.01),
+            "{:?}",
+            r.droop
+        );
+    }
+}

@@ -67,6 +67,10 @@ pub const NULLABLE: &[&str] = &[
     "rows[].sensitivity",
     "rows[].dissipation_watts",
     "rows[].linearity_1pct_amps",
+    "rows[].pulse_peak_volts",
+    "rows[].rise_s",
+    "rows[].snr",
+    "rows[].droop",
     // train (docs/json.md, "Train JSON"): no train block; limits not reached; scans not made
     "train",
     "train.recovery_s",

@@ -255,7 +255,7 @@ pub fn pulse_after(s: &crate::signal::SignalBudget) -> Option<Figure> {
             .filter(|(t, _)| **t > hi && **t <= t1)
             .map(|(_, v)| v.abs())
             .fold(0.0f64, f64::max);
-    if !(after > 0.005 * p.peak) {
+    if after.is_nan() || after <= 0.005 * p.peak {
         return None;
     }
     let what = if s.echoes.is_some() {

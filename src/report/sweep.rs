@@ -55,7 +55,7 @@ pub fn text(design: &Design, s: &Sweep) -> String {
     }
     let _ = writeln!(
         out,
-        "at an average anode current of {}; ±1 % limit = anode current where the DC gain deviation first reaches 1 %",
+        "at an average anode current of {}; ±1 % limit = anode current where the DC gain deviation first reaches 1 %; pulse = peak at the load (negative-going), rise as displayed, S/N = peak over baseline noise, droop = Q/(C·V) per pulse on the last gap's capacitor",
         eng(
             design
                 .anode_current
@@ -69,20 +69,37 @@ pub fn text(design: &Design, s: &Sweep) -> String {
         let name = a.path.rsplit('.').next().unwrap_or(&a.path);
         let _ = write!(head, "{name:>12} ");
     }
+    let pulse = s.rows.iter().any(|r| r.pulse_peak_volts.is_some());
+    let pulse_head = if pulse {
+        format!("{:>9} {:>9} {:>7} {:>8} ", "pulse", "rise", "S/N", "droop")
+    } else {
+        String::new()
+    };
     let _ = writeln!(
         out,
-        "{head}{:>9} {:>10} {:>10} {:>9} {:>9} {:>7} {:>9} {:>10}  verdict",
+        "{head}{:>9} {:>10} {:>10} {:>9} {:>9} {:>7} {:>9} {:>10} {pulse_head} verdict",
         "supply", "gain G0", "gain(op)", "dev(op)", "divider", "dlnG/dlnV", "power", "±1 % lim."
     );
     for r in &s.rows {
+        let o = |x: Option<f64>, f: &dyn Fn(f64) -> String| x.map_or("—".to_string(), f);
+        let pulse_cells = if pulse {
+            format!(
+                "{:>9} {:>9} {:>7} {:>8} ",
+                o(r.pulse_peak_volts, &|v| format!("−{}", eng(v, "V"))),
+                o(r.rise_s, &|t| eng(t, "s")),
+                o(r.snr, &|x| format!("{x:.0}")),
+                o(r.droop, &|x| format!("{:.3}%", x * 100.0)),
+            )
+        } else {
+            String::new()
+        };
         let mut line = String::new();
         for (a, x) in s.axes.iter().zip(&r.values) {
             let _ = write!(line, "{:>12} ", show(*x, a.kind));
         }
-        let o = |x: Option<f64>, f: &dyn Fn(f64) -> String| x.map_or("—".to_string(), f);
         let _ = writeln!(
             out,
-            "{line}{:>9} {:>10} {:>10} {:>9} {:>9} {:>7} {:>9} {:>10}  {}",
+            "{line}{:>9} {:>10} {:>10} {:>9} {:>9} {:>7} {:>9} {:>10} {pulse_cells} {}",
             eng(r.supply_volts, "V"),
             o(r.small_signal_gain, &|g| format!("{g:.3e}")),
             o(r.gain, &|g| format!("{g:.3e}")),
