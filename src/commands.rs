@@ -97,3 +97,37 @@ pub fn compare(paths: &[std::path::PathBuf], json: bool) -> Result<String, Comma
         crate::compare::text(&all)
     })
 }
+
+/// `dynode new`: the starter design's text for `starter`, refused unless it parses and solves
+/// (so that what is written reports clean).
+pub fn new_design(starter: &crate::starter::Starter) -> Result<String, CommandError> {
+    use crate::limits;
+    let bad = |m: String| Err(CommandError::BadInput(m));
+    if !(1..=20).contains(&starter.stages) {
+        return bad(format!(
+            "--stages: expected 1 to 20 dynodes, found {}",
+            starter.stages
+        ));
+    }
+    if let Err(e) = limits::SUPPLY_VOLTS.check(starter.supply) {
+        return bad(format!("--supply: {e}"));
+    }
+    if let Err(e) = limits::ANODE_CURRENT.check(starter.divider_current) {
+        return bad(format!("--divider-current: {e}"));
+    }
+    if crate::cathode::Cathode::builtin(&starter.cathode, starter.window.as_deref()).is_none() {
+        return bad(format!(
+            "--cathode {}: not a built-in cathode (or window); `dynode cathodes` lists them",
+            crate::report::one_line(&starter.cathode)
+        ));
+    }
+    let text = crate::starter::write(starter);
+    let d = design::parse_str(&text, "the starter design")
+        .map_err(|e| CommandError::BadInput(format!("these answers give no valid design: {e}")))?;
+    analysis::analyse_with(&d, None).map_err(|e| {
+        CommandError::BadInput(format!(
+            "these answers give a design that does not solve: {e}"
+        ))
+    })?;
+    Ok(text)
+}

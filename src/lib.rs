@@ -34,6 +34,7 @@ pub mod signal;
 pub mod sizing;
 pub mod spread;
 pub mod stability;
+pub mod starter;
 pub mod sweep;
 pub mod timing;
 pub mod train;

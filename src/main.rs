@@ -247,6 +247,44 @@ enum Command {
         #[command(flatten)]
         out: OutputArgs,
     },
+    /// Write a commented starter design from a few answers or a named starting point.
+    #[command(
+        after_help = "Examples:\n  dynode new --from paddle -o my-paddle.ron\n  dynode new --stages 12 --supply 1600V --divider tapered --light laser --readout scope -o timing.ron\n  dynode new --list\n\nEvery number it writes is an invented starting value, marked for replacing with your own."
+    )]
+    New {
+        /// Start from a named starting point (`--list` shows them); other flags change it.
+        #[arg(long, value_name = "NAME")]
+        from: Option<String>,
+        /// List the starting points and exit.
+        #[arg(long)]
+        list: bool,
+        /// Number of dynodes.
+        #[arg(long, value_name = "N")]
+        stages: Option<usize>,
+        /// Supply voltage magnitude (e.g. "1100V").
+        #[arg(long, value_name = "VOLTS")]
+        supply: Option<String>,
+        /// Anode at +HV instead of the cathode at −HV.
+        #[arg(long)]
+        anode_positive: bool,
+        /// Built-in cathode curve (`dynode cathodes` lists them).
+        #[arg(long, value_name = "NAME")]
+        cathode: Option<String>,
+        /// Divider style.
+        #[arg(long, value_enum)]
+        divider: Option<dynode::starter::DividerStyle>,
+        /// Divider current with no tube current (e.g. "200uA").
+        #[arg(long, value_name = "CURRENT")]
+        divider_current: Option<String>,
+        /// What lights the cathode.
+        #[arg(long, value_enum)]
+        light: Option<dynode::starter::LightKind>,
+        /// What reads the pulse.
+        #[arg(long, value_enum)]
+        readout: Option<dynode::starter::ReadoutKind>,
+        #[command(flatten)]
+        out: OutputArgs,
+    },
     /// Size a base from a requirements file: supply, divider, preferred values, capacitors.
     #[command(
         after_help = "Example:\n  dynode size designs/requirements/paddle-rebuild.ron -o paddle-sized.ron\n  dynode report paddle-sized.ron\n\nThe requirements schema is in docs/design-file.md (\"Requirements file\")."
@@ -780,6 +818,88 @@ fn run() -> ExitCode {
             }
             match dynode::commands::compare(&designs, format == DataFormat::Json) {
                 Ok(text) => match emit_from(&text, &out, &inputs) {
+                    Ok(()) => ExitCode::from(Exit::Ok as u8),
+                    Err(code) => code,
+                },
+                Err(e) => fail(&e, command_exit(&e)),
+            }
+        }
+        Command::New {
+            from,
+            list,
+            stages,
+            supply,
+            anode_positive,
+            cathode,
+            divider,
+            divider_current,
+            light,
+            readout,
+            out,
+        } => {
+            use dynode::starter::{Starter, starting_points};
+            let points = starting_points();
+            if list {
+                let mut text = String::from("Starting points for `dynode new --from NAME`:\n");
+                for (name, what, _) in &points {
+                    text.push_str(&format!("  {name:<16} {what}\n"));
+                }
+                return print_exit(&text);
+            }
+            let mut s: Starter = match &from {
+                Some(name) => match points.iter().find(|p| p.0 == name) {
+                    Some(p) => p.2.clone(),
+                    None => {
+                        let names: Vec<&str> = points.iter().map(|p| p.0).collect();
+                        return fail(
+                            format!("--from {name}: expected one of {}", names.join(", ")),
+                            Exit::BadInput,
+                        );
+                    }
+                },
+                None => points[0].2.clone(),
+            };
+            if from.is_none() {
+                s.name = "New base (starter)".to_string();
+            }
+            if let Some(n) = stages {
+                s.stages = n;
+            }
+            if let Some(v) = &supply {
+                match units::parse(v, Kind::Voltage) {
+                    Ok(x) => s.supply = x.abs(),
+                    Err(e) => return fail(format!("--supply: {e}"), Exit::BadInput),
+                }
+            }
+            if anode_positive {
+                s.polarity = design::Polarity::AnodePositive;
+            }
+            if let Some(c) = cathode {
+                s.cathode = c;
+                s.window = None;
+            }
+            if let Some(d) = divider {
+                s.divider = d;
+            }
+            if let Some(i) = &divider_current {
+                match units::parse(i, Kind::Current) {
+                    Ok(x) => s.divider_current = x,
+                    Err(e) => return fail(format!("--divider-current: {e}"), Exit::BadInput),
+                }
+            }
+            if let Some(l) = light {
+                s.light = l;
+            }
+            if let Some(r) = readout {
+                s.readout = r;
+            }
+            if let Some(p) = &out.output
+                && let Err(e) = output::check_target(p, &[], out.force)
+            {
+                return fail(e, Exit::BadInput);
+            }
+            match dynode::commands::new_design(&s) {
+                Ok(text) => match emit_from(&text, &out, &[]) {
                     Ok(()) => ExitCode::from(Exit::Ok as u8),
                     Err(code) => code,
                 },

@@ -294,3 +294,88 @@ fn sweep_counts_gaps_from_one_and_scales_all_gaps() {
         );
     }
 }
+
+/// Every demo's starter counterpart: `dynode new` with the matching starting point writes a
+/// design with the demo's stages, polarity and supply that checks with no warning and reports
+/// (exit 0); the answers can also be given one by one.
+#[test]
+fn every_demo_has_a_starter_that_parses_and_reports() {
+    let dir = crate::common::temp_dir("starters");
+    let table = [
+        ("rooftop-paddle.ron", "paddle"),
+        ("back-terminated.ron", "led-bench"),
+        ("laser-burst-counter.ron", "laser-burst"),
+        ("laser-timing.ron", "laser-timing"),
+        ("liquid-cell-tapered.ron", "liquid-cell"),
+        ("photon-counter-positive.ron", "photon-counter"),
+    ];
+    for demo in crate::common::demo_designs() {
+        let file = demo.file_name().unwrap().to_string_lossy().to_string();
+        let (_, from) = table
+            .iter()
+            .find(|(f, _)| *f == file)
+            .unwrap_or_else(|| panic!("{file}: no starting point listed for this demo"));
+        let out = dir.join(format!("{from}.ron"));
+        let o = dynode()
+            .args(["new", "-q", "--from", from, "-o"])
+            .arg(&out)
+            .output()
+            .unwrap();
+        assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+        let d = dynode::design::load(&demo).unwrap();
+        let s = dynode::design::load(&out).unwrap();
+        assert_eq!(s.tube.stages, d.tube.stages, "{file}");
+        assert_eq!(s.polarity, d.polarity, "{file}");
+        assert!(
+            (s.supply_magnitude() - d.supply_magnitude()).abs() < 1e-9,
+            "{file}"
+        );
+        let text = std::fs::read_to_string(&out).unwrap();
+        assert!(text.contains("INVENTED") && text.contains("HIGH VOLTAGE"));
+        let check = dynode().arg("check").arg(&out).output().unwrap();
+        let said = String::from_utf8_lossy(&check.stdout);
+        assert!(
+            check.status.success() && !said.contains("warning"),
+            "{said}"
+        );
+        let report = dynode().arg("report").arg(&out).output().unwrap();
+        assert!(
+            report.status.success(),
+            "{}",
+            String::from_utf8_lossy(&report.stderr)
+        );
+    }
+    // Answers one by one, with nothing but the divider: equal gaps by Ohm's law, 3 stages at
+    // 400 V and 100 µA give 1 MΩ per gap (E24 holds 1.0).
+    let out = dir.join("flags.ron");
+    let o = dynode()
+        .args([
+            "new",
+            "-q",
+            "--stages",
+            "3",
+            "--supply",
+            "400V",
+            "--divider",
+            "equal",
+            "--divider-current",
+            "100uA",
+            "--light",
+            "none",
+            "--readout",
+            "none",
+            "-o",
+        ])
+        .arg(&out)
+        .output()
+        .unwrap();
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let a = dynode::analysis::analyse(&dynode::design::load(&out).unwrap()).unwrap();
+    assert!(
+        (a.quiescent_amps - 100e-6).abs() < 1e-12,
+        "{}",
+        a.quiescent_amps
+    );
+    let bad = dynode().args(["new", "--stages", "0"]).output().unwrap();
+    assert_eq!(bad.status.code(), Some(2));
+}
