@@ -30,6 +30,7 @@ pub mod pulsetrain;
 pub mod report;
 pub mod safety;
 pub mod schematic;
+pub mod serve;
 pub mod signal;
 pub mod sizing;
 pub mod spread;

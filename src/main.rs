@@ -285,6 +285,17 @@ enum Command {
         #[command(flatten)]
         out: OutputArgs,
     },
+    /// Show the HTML report on a page on this machine, solved again whenever the file is saved.
+    #[command(
+        after_help = "Example:\n  dynode serve designs/rooftop-paddle.ron\n  (open http://127.0.0.1:8040/ and edit the file; Ctrl-C stops)\n\nListens on the loopback address only: nothing off this machine can reach the page."
+    )]
+    Serve {
+        /// The design file (RON).
+        design: PathBuf,
+        /// Port on 127.0.0.1 (0: any free port, printed at start).
+        #[arg(long, default_value_t = 8040)]
+        port: u16,
+    },
     /// Size a base from a requirements file: supply, divider, preferred values, capacitors.
     #[command(
         after_help = "Example:\n  dynode size designs/requirements/paddle-rebuild.ron -o paddle-sized.ron\n  dynode report paddle-sized.ron\n\nThe requirements schema is in docs/design-file.md (\"Requirements file\")."
@@ -903,6 +914,15 @@ fn run() -> ExitCode {
                     Ok(()) => ExitCode::from(Exit::Ok as u8),
                     Err(code) => code,
                 },
+                Err(e) => fail(&e, command_exit(&e)),
+            }
+        }
+        Command::Serve { design, port } => {
+            let shown = design.display().to_string();
+            match dynode::serve::run(&design, port, |addr| {
+                say!("dynode: serving {shown} at http://{addr}/ (Ctrl-C stops)");
+            }) {
+                Ok(()) => ExitCode::from(Exit::Ok as u8),
                 Err(e) => fail(&e, command_exit(&e)),
             }
         }

@@ -379,3 +379,147 @@ fn every_demo_has_a_starter_that_parses_and_reports() {
     let bad = dynode().args(["new", "--stages", "0"]).output().unwrap();
     assert_eq!(bad.status.code(), Some(2));
 }
+
+/// A child process group that is ended (SIGTERM to the group, then waited for) when dropped,
+/// so that a failed assertion leaves no server or browser behind.
+struct Group(std::process::Child);
+
+impl Drop for Group {
+    fn drop(&mut self) {
+        // The child leads its own process group (spawned with process_group(0)): end the group,
+        // which holds the browser's helper processes too.
+        let pgid = self.0.id() as i32;
+        // SAFETY: kill(2) with a negative pid signals the process group we created; no memory
+        // is touched.
+        unsafe {
+            libc::kill(-pgid, libc::SIGTERM);
+        }
+        let _ = self.0.wait();
+    }
+}
+
+fn spawn_group(cmd: &mut Command) -> Group {
+    use std::os::unix::process::CommandExt;
+    Group(cmd.process_group(0).spawn().unwrap())
+}
+
+/// `dynode serve`: headless Chromium opens the page; the design file is edited; the browser
+/// reloads the page by itself and the page then holds the new value, within 5 s of the save
+/// (the issue's requirement). A broken save keeps the last good report and shows the error.
+#[test]
+fn served_page_follows_the_design_file_in_headless_chromium() {
+    use std::io::{BufRead, Read, Write};
+    use std::sync::mpsc;
+    use std::time::Duration;
+    let Some(browser) = ["chromium", "chromium-browser"].into_iter().find(|c| {
+        Command::new(c)
+            .arg("--version")
+            .output()
+            .is_ok_and(|o| o.status.success())
+    }) else {
+        if std::env::var_os("CI").is_some() {
+            panic!("headless Chromium is required under CI (apt-get install -y chromium)");
+        }
+        eprintln!("served_page_follows_the_design_file: SKIPPED, chromium not found");
+        return;
+    };
+    let dir = crate::common::temp_dir("serve");
+    let design = dir.join("live.ron");
+    let original = std::fs::read_to_string(crate_path("designs/rooftop-paddle.ron")).unwrap();
+    std::fs::write(&design, &original).unwrap();
+    let mut server = spawn_group(
+        dynode()
+            .args(["serve", "--port", "0"])
+            .arg(&design)
+            .stdout(std::process::Stdio::null())
+            .stderr(std::process::Stdio::piped()),
+    );
+    let stderr = server.0.stderr.take().unwrap();
+    let (tx, rx) = mpsc::channel::<String>();
+    std::thread::spawn(move || {
+        for line in std::io::BufReader::new(stderr)
+            .lines()
+            .map_while(Result::ok)
+        {
+            if tx.send(line).is_err() {
+                break;
+            }
+        }
+    });
+    let wait_for = |what: &str, within: Duration| -> String {
+        let deadline = std::time::Instant::now() + within;
+        loop {
+            let left = deadline.saturating_duration_since(std::time::Instant::now());
+            match rx.recv_timeout(left) {
+                Ok(l) if l.contains(what) => return l,
+                Ok(_) => continue,
+                Err(_) => panic!("no '{what}' from the server within {within:?}"),
+            }
+        }
+    };
+    let first = wait_for("serving", Duration::from_secs(30));
+    let url = first[first.find("http://").unwrap()..]
+        .split_whitespace()
+        .next()
+        .unwrap()
+        .to_string();
+    assert!(url.starts_with("http://127.0.0.1:"), "loopback only: {url}");
+    let get = |path: &str| -> String {
+        let host = url.trim_start_matches("http://").trim_end_matches('/');
+        let mut s = std::net::TcpStream::connect(host).unwrap();
+        write!(s, "GET {path} HTTP/1.1\r\nHost: {host}\r\n\r\n").unwrap();
+        let mut body = String::new();
+        s.read_to_string(&mut body).unwrap();
+        body
+    };
+    let profile = dir.join("profile");
+    let _browser = spawn_group(
+        Command::new(browser)
+            .args([
+                "--headless",
+                "--no-sandbox",
+                "--disable-gpu",
+                "--no-first-run",
+                "--disable-background-networking",
+                "--disable-component-update",
+                "--disable-sync",
+                "--remote-debugging-port=0",
+            ])
+            .arg(format!("--user-data-dir={}", profile.display()))
+            .arg(&url)
+            .stdout(std::process::Stdio::null())
+            .stderr(std::process::Stdio::null()),
+    );
+    wait_for("page sent (version 1)", Duration::from_secs(60));
+    // The save: a new name and K–D1 from 1 MΩ to 1.5 MΩ. Ohm's law: 1100 V over
+    // 1.5 M + 10 × 470 k = 6.2 MΩ is 177 µA with no tube current (193 µA before).
+    let edited = original
+        .replace("Rooftop cosmic-ray paddle", "Edited live paddle")
+        .replacen("R(\"1M\")", "R(\"1.5M\")", 1);
+    std::fs::write(&design, &edited).unwrap();
+    // The browser reloads the page by itself once the server has solved the new file.
+    wait_for("page sent (version 2)", Duration::from_secs(5));
+    let page = get("/");
+    assert!(
+        page.contains("Edited live paddle"),
+        "the new name is on the page"
+    );
+    assert!(
+        page.contains("177 µA"),
+        "the new divider current is on the page"
+    );
+    assert!(!page.contains("serve-error\""), "no error shown");
+    // A broken save: the error is shown and the last good report kept.
+    std::fs::write(&design, format!("{edited}\n((")).unwrap();
+    wait_for("page sent (version 3)", Duration::from_secs(5));
+    let page = get("/");
+    assert!(
+        page.contains("id=\"serve-error\""),
+        "the error is on the page"
+    );
+    assert!(
+        page.contains("Edited live paddle"),
+        "the last good report is kept"
+    );
+    assert!(page.contains("High-voltage caution"));
+}
