@@ -143,6 +143,97 @@ fn refine_ceiling(
     best
 }
 
+/// The distance of a deviation past `target`: at least 0 once the deviation reaches it (≥ a
+/// positive target, ≤ a negative one).
+fn signed(target: f64) -> impl Fn(f64) -> f64 {
+    move |d: f64| if target > 0.0 { d - target } else { target - d }
+}
+
+/// Refine a crossing bracketed by two solved points `(ik, op)` on the curve (the first short
+/// of it, the second past it): modified regula falsi (Illinois) on `dist(G/G0 − 1)` against
+/// ln(cathode current) with real solves, each started from the last point short of it. Returns
+/// the anode current at the solved point nearest the target (on either side), stopping within
+/// 1e-9 of it in deviation or at a bracket of 1e-12 in ln(ik).
+fn refine(
+    net: &Network,
+    g0: f64,
+    dist: &dyn Fn(f64) -> f64,
+    (short, past): (&(f64, OperatingPoint), &(f64, OperatingPoint)),
+    ws: &mut Workspace,
+) -> f64 {
+    let (mut a, mut opa) = (short.0.ln(), short.1.clone());
+    let mut b = past.0.ln();
+    let mut fa = dist(opa.gain() / g0 - 1.0);
+    let mut fb = dist(past.1.gain() / g0 - 1.0);
+    let mut best = past.1.anode_amps();
+    let mut closest = fb.abs();
+    let mut side = 0i8;
+    for _ in 0..60 {
+        let mid = if (fb - fa).abs() > 0.0 {
+            (a * fb - b * fa) / (fb - fa)
+        } else {
+            0.5 * (a + b)
+        };
+        let mid = mid.clamp(a.min(b), a.max(b));
+        let Ok(op) = net.solve_raw(mid.exp(), Some(&opa), ws) else {
+            break;
+        };
+        let f = dist(op.gain() / g0 - 1.0);
+        if f.abs() < closest {
+            closest = f.abs();
+            best = op.anode_amps();
+        }
+        if f >= 0.0 {
+            b = mid;
+            fb = f;
+            if side == 1 {
+                fa *= 0.5;
+            }
+            side = 1;
+        } else {
+            a = mid;
+            fa = f;
+            opa = op;
+            if side == -1 {
+                fb *= 0.5;
+            }
+            side = -1;
+        }
+        if f.abs() < 1e-9 || (b - a).abs() < 1e-12 {
+            break;
+        }
+    }
+    best
+}
+
+/// Anode current where the deviation G/G0 − 1 first reaches `target` (≥ a positive target,
+/// ≤ a negative one; `abs` compares |deviation| with `target`), without tracing the whole
+/// curve: a 24-point scan in ln(cathode current) from 1e-3 to 3× the divider current over the
+/// gain, each solve started from the last, then the same refinement as the traced curve's.
+/// `None` when not reached in that range. Used where many bases are solved (sweep, spread).
+pub fn crossing(net: &Network, target: f64, abs: bool, ws: &mut Workspace) -> Option<f64> {
+    let g0 = net.small_signal_gain();
+    let (i_div, _) = net.quiescent();
+    let lo = (1e-3 * i_div / g0).ln();
+    let hi = (3.0 * i_div / g0).ln();
+    let count = 24;
+    let plain = signed(target);
+    let dist = move |d: f64| if abs { d.abs() - target } else { plain(d) };
+    let mut prev: Option<(f64, OperatingPoint)> = None;
+    for i in 0..count {
+        let ik = (lo + (hi - lo) * i as f64 / (count - 1) as f64).exp();
+        let op = net.solve_raw(ik, prev.as_ref().map(|p| &p.1), ws).ok()?;
+        if dist(op.gain() / g0 - 1.0) >= 0.0 {
+            let Some(short) = prev else {
+                return Some(op.anode_amps());
+            };
+            return Some(refine(net, g0, &dist, (&short, &(ik, op)), ws));
+        }
+        prev = Some((ik, op));
+    }
+    None
+}
+
 /// Trace the curve.
 pub fn trace(net: &Network, ws: &mut Workspace) -> Result<Linearity, SolveError> {
     trace_points(net, CURVE_POINTS, ws)
@@ -236,57 +327,12 @@ pub fn trace_points(
         }
     }
     let find = |target: f64, ws: &mut Workspace| -> Option<f64> {
-        let above = |d: f64| {
-            if target > 0.0 {
-                d >= target
-            } else {
-                d <= target
-            }
-        };
-        let idx = points.iter().position(|p| above(p.deviation))?;
+        let dist = signed(target);
+        let idx = points.iter().position(|p| dist(p.deviation) >= 0.0)?;
         if idx == 0 {
             return Some(points[0].anode_amps);
         }
-        // Illinois (modified regula falsi) on deviation − target against ln(cathode current).
-        let (mut a, mut opa) = (ops[idx - 1].0.ln(), ops[idx - 1].1.clone());
-        let mut b = ops[idx].0.ln();
-        let mut fa = points[idx - 1].deviation - target;
-        let mut fb = points[idx].deviation - target;
-        let mut best = points[idx].anode_amps;
-        let mut side = 0i8;
-        for _ in 0..60 {
-            let mid = if (fb - fa).abs() > 0.0 {
-                (a * fb - b * fa) / (fb - fa)
-            } else {
-                0.5 * (a + b)
-            };
-            let mid = mid.clamp(a.min(b), a.max(b));
-            let Ok(op) = net.solve_raw(mid.exp(), Some(&opa), ws) else {
-                break;
-            };
-            let f = op.gain() / g0 - 1.0 - target;
-            if above(f + target) {
-                b = mid;
-                fb = f;
-                best = op.anode_amps();
-                if side == 1 {
-                    fa *= 0.5;
-                }
-                side = 1;
-            } else {
-                a = mid;
-                fa = f;
-                opa = op;
-                if side == -1 {
-                    fb *= 0.5;
-                }
-                side = -1;
-            }
-            if f.abs() < 1e-7 * target.abs() || (b - a).abs() < 1e-12 {
-                break;
-            }
-        }
-        Some(best)
+        Some(refine(net, g0, &dist, (&ops[idx - 1], &ops[idx]), ws))
     };
     let plus_1pct = find(0.01, ws);
     let minus_1pct = find(-0.01, ws);

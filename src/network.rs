@@ -741,16 +741,26 @@ impl Network {
                 break;
             };
             if next.gain() < SATURATED_GAIN * g0 {
-                // Saturated before the request: the ceiling is where the gain halves.
+                // Saturated before the request: the ceiling is the most current up to where
+                // the gain halves (the curve may have turned down on the way).
                 let edge = self.saturation_edge(&lo, &next, g0, ws)?;
                 if edge.anode_amps() >= anode {
                     bracket = Some((lo.clone(), edge));
                     break;
                 }
-                return Err(SolveError::Unreachable {
-                    wanted: anode,
-                    reached: edge.anode_amps(),
-                });
+                let left = prev
+                    .as_ref()
+                    .map_or(lo.cathode_amps * 0.5, |p| p.cathode_amps);
+                match self.top_between(anode, left, &lo, edge.cathode_amps, ws) {
+                    Ok(pair) => bracket = Some(pair),
+                    Err(reached) => {
+                        return Err(SolveError::Unreachable {
+                            wanted: anode,
+                            reached: reached.max(edge.anode_amps()),
+                        });
+                    }
+                }
+                break;
             }
             if next.anode_amps() >= anode {
                 bracket = Some((lo.clone(), next));

@@ -1069,6 +1069,13 @@ pub fn size(req: &Requirements) -> Result<Sized, SizingError> {
                     before.iter().map(|c| format_eng(*c, "F")).collect::<Vec<_>>().join(", ")
                 ));
             }
+            if let Some(rate) = req.rate {
+                let line =
+                    size_for_rate(req, &tube, rate, series, droop, &mut capacitors, |caps| {
+                        write_design(req, &gaps, caps, v_set, &r2, &charge, Some(tb))
+                    })?;
+                r2.push(line);
+            }
         }
         let text = write_design(
             req,
@@ -1294,6 +1301,92 @@ fn size_capacitors(
     }
     caps.reverse();
     Ok((charge, caps))
+}
+
+/// Fraction of pulses whose drop may exceed the sized droop at a rate (Poisson bunching).
+pub const BUNCHING_QUANTILE: f64 = 0.99;
+
+/// Capacitors for a continuous rate (docs/physics.md §13): at Poisson arrivals of `rate`, the
+/// drop of each capacitor beyond the DC shift of the average current, exceeded by 1 % of the
+/// pulses, must stay within `droop` of its gap. The DC shift itself is the divider's (no
+/// capacitor removes it) and is reported, not sized. Each capacitor short of it grows by the
+/// square of its excess (the drop of a rate-filled capacitor falls as C^(-1/2), Campbell's
+/// theorem), snapped up, until all hold (at most eight rounds). Returns the reasoning line.
+fn size_for_rate(
+    req: &Requirements,
+    tube: &TubeModel,
+    rate: f64,
+    series: Series,
+    droop: f64,
+    caps: &mut [CapChoice],
+    text_of: impl Fn(&[CapChoice]) -> String,
+) -> Result<String, SizingError> {
+    let mut rounds = 0;
+    loop {
+        let d = design::parse_str(&text_of(caps), &format!("{} (sized)", req.source))?;
+        let Some(spec0) = &d.train else {
+            return Ok(String::new());
+        };
+        let mut spec = spec0.clone();
+        spec.pattern = crate::train::Pattern::Poisson(rate, 1, 7);
+        let base = crate::transient::Base::from_design(&d, tube.clone());
+        let fail = |e: crate::transient::TransientError| {
+            SizingError::Train(format!("{}: {e}", req.source))
+        };
+        let (nv, _) = base.quiescent_state().map_err(fail)?;
+        let gaps0: Vec<f64> = (1..=d.tube.stages + 1).map(|j| nv[j] - nv[j - 1]).collect();
+        let g0 = tube.gain_for_gaps(&gaps0);
+        let qk = crate::pulsetrain::cathode_charge(spec.size, &spec.shape, g0);
+        let steady = crate::pulsetrain::steady_state(&d, &base, &spec, qk, g0)
+            .map_err(fail)?
+            .ok_or_else(|| SizingError::Train(format!("{}: no steady state", req.source)))?;
+        let q99 = steady.droop_quantile_99.clone().unwrap_or_default();
+        // The caps of the design are the sized ones, in the same order.
+        let beyond: Vec<f64> = q99
+            .iter()
+            .zip(&steady.shift_fraction)
+            .map(|(q, s)| (q - s).max(0.0))
+            .collect();
+        let short: Vec<usize> = (0..caps.len().min(beyond.len()))
+            .filter(|&i| beyond[i] > droop * (1.0 + 1e-9))
+            .collect();
+        if short.is_empty() || rounds == 8 {
+            let shift = steady
+                .shift_fraction
+                .iter()
+                .copied()
+                .fold(0.0f64, |m, x| m.max(x.abs()));
+            return Ok(format!(
+                "At {} with Poisson arrivals (the base in its steady state, {} pulses drawn): each capacitor's drop beyond the DC shift, exceeded by {:.0} % of pulses, is {} (allowed {:.2} %){}; fitted {}. The DC shift at the average current ({:.3} % of a gap at most) is set by the divider current, not the capacitors: raise the divider current or hold the last stages actively to reduce it.",
+                format_eng(rate, "Hz"),
+                crate::pulsetrain::POISSON_PULSES,
+                (1.0 - BUNCHING_QUANTILE) * 100.0,
+                beyond
+                    .iter()
+                    .map(|b| format!("{:.3} %", b * 100.0))
+                    .collect::<Vec<_>>()
+                    .join(", "),
+                droop * 100.0,
+                if short.is_empty() {
+                    String::new()
+                } else {
+                    " — still over after eight rounds".to_string()
+                },
+                caps.iter()
+                    .map(|c| format_eng(c.farads, "F"))
+                    .collect::<Vec<_>>()
+                    .join(", "),
+                shift * 100.0
+            ));
+        }
+        for i in short {
+            let grow = (beyond[i] / droop).powi(2).clamp(1.2, 100.0);
+            let need = caps[i].farads * grow;
+            caps[i].farads = series.clean(series.snap(need, Snap::Up).unwrap_or(need));
+            caps[i].droop /= grow;
+        }
+        rounds += 1;
+    }
 }
 
 /// Check every requirement on the analysed design (the core solve).

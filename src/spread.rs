@@ -18,7 +18,7 @@
 //! at the operating point, every gap's voltage against its limit, dissipation, supply current,
 //! droop per pulse when a pulse charge is given, the supply that brings the sample back to the
 //! nominal (or target) gain. The linearity limits (±1 %) are found on the first
-//! `linearity_samples` samples only ([`crate::sweep::linearity_crossing`], about 40 solves each).
+//! `linearity_samples` samples only ([`crate::linearity::crossing`], about 40 solves each).
 //!
 //! Determinism: sample `i` uses a ChaCha8 stream keyed by the seed with stream number `i`, so the
 //! result does not depend on how rayon splits the work or on the thread count.
@@ -718,8 +718,8 @@ pub fn run(
             let d = draw(i, cfg.seed, design, cfg, eff);
             let net = model.network(&d);
             (
-                crate::sweep::linearity_crossing(&net, -0.01, ws),
-                crate::sweep::linearity_crossing(&net, 0.01, ws),
+                crate::linearity::crossing(&net, -0.01, false, ws),
+                crate::linearity::crossing(&net, 0.01, false, ws),
             )
         })
         .collect();

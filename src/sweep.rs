@@ -14,7 +14,7 @@ use rayon::prelude::*;
 
 use crate::analysis::rated_voltage;
 use crate::design::{CapStyle, Design, Element, GainSpec};
-use crate::network::{Network, OperatingPoint, Workspace};
+use crate::network::{Network, Workspace};
 use crate::tube::TubeModel;
 use crate::units::{
     self, Capacitance, ElectricCurrent, ElectricPotential, ElectricalResistance, Kind, Power,
@@ -318,63 +318,6 @@ pub struct Sweep {
     pub rows: Vec<Row>,
 }
 
-/// Anode current where |G/G0 − 1| first reaches `threshold` (either sign); `None` when not
-/// reached up to 3× the divider current. See [`linearity_crossing`].
-pub fn linearity_limit(net: &Network, threshold: f64, ws: &mut Workspace) -> Option<f64> {
-    first_crossing(net, &|d: f64| d.abs() >= threshold, ws)
-}
-
-/// Anode current where the deviation G/G0 − 1 first reaches `target` (≥ target for a positive
-/// one, ≤ target for a negative one): a 24-point log scan in cathode current from 1e-3 to 3× the
-/// divider current over the gain, with continuation, then 14 bisections with real solves
-/// (relative bracket about 1e-4 in current).
-pub fn linearity_crossing(net: &Network, target: f64, ws: &mut Workspace) -> Option<f64> {
-    if target > 0.0 {
-        first_crossing(net, &|d: f64| d >= target, ws)
-    } else {
-        first_crossing(net, &|d: f64| d <= target, ws)
-    }
-}
-
-fn first_crossing(net: &Network, reached: &dyn Fn(f64) -> bool, ws: &mut Workspace) -> Option<f64> {
-    let g0 = net.small_signal_gain();
-    let (i_div, _) = net.quiescent();
-    let lo = (1e-3 * i_div / g0).ln();
-    let hi = (3.0 * i_div / g0).ln();
-    let count = 24;
-    let mut prev: Option<(f64, OperatingPoint)> = None;
-    for i in 0..count {
-        let x = lo + (hi - lo) * i as f64 / (count - 1) as f64;
-        let op = net
-            .solve_raw(x.exp(), prev.as_ref().map(|p| &p.1), ws)
-            .ok()?;
-        let d = op.gain() / g0 - 1.0;
-        if reached(d) {
-            let Some((mut a, mut opa)) = prev else {
-                return Some(op.anode_amps());
-            };
-            let mut b = x;
-            let mut best = op.anode_amps();
-            for _ in 0..14 {
-                let mid = 0.5 * (a + b);
-                let Ok(m) = net.solve_raw(mid.exp(), Some(&opa), ws) else {
-                    break;
-                };
-                if reached(m.gain() / g0 - 1.0) {
-                    b = mid;
-                    best = m.anode_amps();
-                } else {
-                    a = mid;
-                    opa = m;
-                }
-            }
-            return Some(best);
-        }
-        prev = Some((x, op));
-    }
-    None
-}
-
 /// Most grid points for which the pulse columns are computed (each runs the signal budget).
 pub const MAX_SIGNAL_POINTS: usize = 200;
 
@@ -456,7 +399,13 @@ fn point(base: &Design, axes: &[Axis], values: &[f64], ws: &mut Workspace, signa
     match net.solve_anode(d.anode_current, ws) {
         Ok(op) => {
             row.gain = Some(op.gain());
-            row.deviation = Some(op.gain() / g0 - 1.0);
+            let dev = op.gain() / g0 - 1.0;
+            row.deviation = Some(dev);
+            // The same 1 % that sets the ±1 % column: past it the base is not linear at the
+            // operating point.
+            if dev.abs() >= 0.01 {
+                problems.push(format!("gain {:+.1} % at the operating point", dev * 100.0));
+            }
             let diss: f64 = op
                 .element_volts
                 .iter()
@@ -507,7 +456,7 @@ fn point(base: &Design, axes: &[Axis], values: &[f64], ws: &mut Workspace, signa
     if d.anode_current > d.tube.max_anode_current {
         problems.push("anode current above rating".into());
     }
-    row.linearity_1pct_amps = linearity_limit(&net, 0.01, ws);
+    row.linearity_1pct_amps = crate::linearity::crossing(&net, 0.01, true, ws);
     if signal {
         pulse_columns(&d, &mut row);
     }

@@ -359,8 +359,11 @@ fn the_whole_exponent_on_the_accelerating_gap_reproduces_the_single_gap_law() {
     // With share 0 the two-gap law is the single-gap law delta = a V^k that the tool used before
     // the split. Figures recorded from that law's reports of every demo (tests/golden/
     // single-gap-law.json, taken from the golden reports before the split) must come back
-    // within 1e-9 relative: gain, small-signal gain, electrode potentials, the ±1 % and ±5 %
-    // onsets and the over-linearity peak.
+    // within 1e-9 relative: gain, small-signal gain, electrode potentials and the over-linearity
+    // peak. The ±1 % and ±5 % onsets were recorded by a refinement that returned the last point
+    // found past the target, up to about 1e-5 past it in deviation (since fixed: the nearest
+    // point is returned); they agree within 2e-5 relative in current (measured: at most 6.7e-6
+    // across the demos).
     let recorded: serde_json::Value = serde_json::from_str(
         &std::fs::read_to_string(crate::common::crate_path(
             "tests/golden/single-gap-law.json",
@@ -383,12 +386,22 @@ fn the_whole_exponent_on_the_accelerating_gap_reproduces_the_single_gap_law() {
         let got = [
             ("gain", Some(a.op.gain())),
             ("small_signal_gain", Some(a.small_signal_gain)),
+            ("peak_over_deviation", l.peak_over.map(|p| p.deviation)),
+        ];
+        for (key, ours) in [
             ("plus_1pct_amps", l.plus_1pct),
             ("minus_1pct_amps", l.minus_1pct),
             ("plus_5pct_amps", l.plus_5pct),
             ("minus_5pct_amps", l.minus_5pct),
-            ("peak_over_deviation", l.peak_over.map(|p| p.deviation)),
-        ];
+        ] {
+            match (ours, want[key].as_f64()) {
+                (Some(v), Some(w)) => {
+                    assert!((v - w).abs() < 2e-5 * w, "{name}: {key} {v} vs {w}")
+                }
+                (None, None) => {}
+                (v, w) => panic!("{name}: {key} {v:?} vs {w:?}"),
+            }
+        }
         for (key, value) in got {
             let w = want[key].as_f64();
             match (value, w) {

@@ -506,6 +506,41 @@ fn supply_sweep_follows_the_power_law() {
     assert!(rel(s.rows[0].divider_amps.unwrap(), 900.0 / total) < 1e-12);
 }
 
+/// One base, one figure: the sweep's ±1 % column equals the report's first ±1 % crossing of
+/// the same base (within the refinement's 1e-7 of the deviation), and a point whose operating
+/// gain is off by 1 % or more is not judged "ok" (the column's own limit).
+#[test]
+fn sweep_and_report_agree_on_linearity() {
+    let d = equal_design();
+    let a = dynode::analysis::analyse(&d).unwrap();
+    let l = &a.linearity;
+    let report = [l.plus_1pct, l.minus_1pct]
+        .into_iter()
+        .flatten()
+        .fold(f64::INFINITY, f64::min);
+    let axis = sweep::parse_axis("operating.anode_current=1uA..3uA:2").unwrap();
+    let s = sweep::run(&d, &[axis]);
+    let ours = s.rows[0].linearity_1pct_amps.unwrap();
+    // 1e-6: both stop within 1e-9 of the 1 % deviation, whose slope against ln(I) is about
+    // 1e-2 here, so about 1e-7 in current.
+    assert!(rel(ours, report) < 1e-6, "sweep {ours} vs report {report}");
+    let far = sweep::parse_axis(&format!(
+        "operating.anode_current={}A..{}A:2",
+        report * 0.5,
+        report * 3.0
+    ))
+    .unwrap();
+    let s = sweep::run(&d, &[far]);
+    assert_eq!(s.rows[0].verdict, "ok", "{:?}", s.rows[0]);
+    let dev = s.rows[1].deviation.unwrap();
+    assert!(dev.abs() >= 0.01, "{dev}");
+    assert!(
+        s.rows[1].verdict.contains("at the operating point"),
+        "{}",
+        s.rows[1].verdict
+    );
+}
+
 /// Log steps are geometric; two axes make a grid with the first axis outer.
 #[test]
 fn log_axes_and_grids() {
@@ -625,5 +660,83 @@ fn spread_and_sweep_write_their_figures() {
         assert!(svg.contains("<svg") && svg.contains("</svg>"), "{name}.svg");
         let png = std::fs::read(dir.join("figs").join(format!("{name}.png"))).unwrap();
         assert_eq!(&png[..8], b"\x89PNG\r\n\x1a\n", "{name}.png");
+    }
+}
+
+/// Capacitors sized for a continuous rate hold it: a 1 MHz stream of 150 pC pulses (issue #11's
+/// case, where sizing for one pulse fitted 39 pF and 47 pF). Reference: brute force, 3000
+/// Poisson pulses (seed 11, not the sizer's) through the full time-domain solve of the sized
+/// base; each pulse's drop is each capacitor's lowest voltage in the pulse's window below its
+/// value before the train, after ten of the slowest time constants. The 99th percentile of
+/// that drop, less the steady DC shift at the average current (the divider's part, which no
+/// capacitor removes; the periodic steady state is checked against a long run in
+/// tests/train.rs), must be within the 1 % droop asked for, with 5 % for the sample's
+/// statistics.
+#[test]
+fn capacitors_sized_for_a_rate_hold_poisson_bunching() {
+    let text = std::fs::read_to_string(crate_path("designs/requirements/paddle-rebuild.ron"))
+        .unwrap()
+        .replace(
+            r#"anode: (max_average: "3 uA", max_peak: Some("20 mA"), rate: Some("1 kHz"), pulse_width: Some("10 ns")),"#,
+            r#"anode: (max_average: "150 uA", max_peak: Some("15 mA"), rate: Some("1 MHz"), pulse_width: Some("10 ns")),"#,
+        )
+        .replace(r#"max_anode_current: "100 uA""#, r#"max_anode_current: "200 uA""#)
+        .replace(r#"max_current: "1 mA""#, r#"max_current: "20 mA""#)
+        .replace(r#"deviation: "1 %","#, r#"deviation: "3 %","#)
+        .replace(r#"Some("1 W")"#, r#"Some("20 W")"#)
+        .replace(r#"power: "0.25 W", working_voltage: "250 V""#, r#"power: "2 W", working_voltage: "500 V""#);
+    assert!(
+        text.contains("1 MHz") && text.contains("20 W"),
+        "the demo moved"
+    );
+    let req = sizing::parse_requirements(&text, "rate").unwrap();
+    let s = sizing::size(&req).unwrap();
+    assert!(s.reasoning.iter().any(|r| r.contains("Poisson arrivals")));
+    let d = &s.design;
+    let tube = dynode::tube::TubeModel::from_spec(&d.tube).unwrap();
+    let base = dynode::transient::Base::from_design(d, tube.clone());
+    let mut spec = d.train.clone().expect("a train block");
+    spec.pattern = dynode::train::Pattern::Poisson(1e6, 3000, 11);
+    let (nv, _) = base.quiescent_state().unwrap();
+    let gaps: Vec<f64> = (1..=d.tube.stages + 1).map(|j| nv[j] - nv[j - 1]).collect();
+    let g0 = tube.gain_for_gaps(&gaps);
+    let qk = dynode::pulsetrain::cathode_charge(spec.size, &spec.shape, g0);
+    let arrivals = spec.pattern.arrivals();
+    let run = base
+        .run(
+            &arrivals,
+            &spec.shape,
+            qk,
+            &dynode::transient::RunOptions {
+                recovery_band: None,
+                ..Default::default()
+            },
+        )
+        .unwrap();
+    let steady = dynode::pulsetrain::steady_state(d, &base, &spec, qk, g0)
+        .unwrap()
+        .unwrap();
+    let tau = base.slowest_time_constant().unwrap();
+    let ncaps = run.caps.len();
+    assert_eq!(ncaps, s.capacitors.len());
+    for (k, cap) in run.caps.iter().enumerate() {
+        let dynode::design::CapStyle::Across(g) = d.decoupling[k].style else {
+            panic!("sized bases decouple across gaps");
+        };
+        // The same gap voltage the shift is a fraction of (before the train).
+        let gap = run.elements_initial[g - 1].abs();
+        let mut drops: Vec<f64> = (0..arrivals.len())
+            .filter(|i| arrivals[*i] > 10.0 * tau)
+            .map(|i| (cap.initial - run.window_cap_min[i * ncaps + k]) / gap)
+            .collect();
+        assert!(
+            drops.len() > 1000,
+            "{} pulses after the settling",
+            drops.len()
+        );
+        drops.sort_by(f64::total_cmp);
+        let q99 = drops[(0.99 * drops.len() as f64).ceil() as usize - 1];
+        let beyond = q99 - steady.shift_fraction[k];
+        assert!(beyond <= 0.01 * 1.05, "capacitor {k}: {beyond} of its gap");
     }
 }
