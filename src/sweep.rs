@@ -319,7 +319,7 @@ pub struct Sweep {
 }
 
 /// Most grid points for which the pulse columns are computed (each runs the signal budget).
-pub const MAX_SIGNAL_POINTS: usize = 200;
+pub const MAX_SIGNAL_POINTS: usize = 50;
 
 /// The pulse, rise, S/N and droop columns of one point, from the core analysis of the
 /// changed design (no pulse train is run).

@@ -70,6 +70,13 @@ pub fn text(design: &Design, s: &Sweep) -> String {
         let _ = write!(head, "{name:>12} ");
     }
     let pulse = s.rows.iter().any(|r| r.pulse_peak_volts.is_some());
+    if !pulse && design.signal.light.is_some() && s.rows.len() > crate::sweep::MAX_SIGNAL_POINTS {
+        let _ = writeln!(
+            out,
+            "(the pulse, rise, S/N and droop columns are computed for sweeps of up to {} points)\n",
+            crate::sweep::MAX_SIGNAL_POINTS
+        );
+    }
     let pulse_head = if pulse {
         format!("{:>9} {:>9} {:>7} {:>8} ", "pulse", "rise", "S/N", "droop")
     } else {
