@@ -430,6 +430,17 @@ fn tick_text(v: f64, axis: &Axis, integer: bool, range: Option<(f64, f64)>) -> S
             format!("0 {unit}")
         };
     }
+    if step.is_none() && v > 0.0 {
+        // A log axis: label 1, 2 and 5 of each decade only; plotters puts a tick at every
+        // integer of a decade, and "7e6 8e6 9e6 10e6" run into each other.
+        let m = v / 10f64.powf(v.log10().floor());
+        if ![1.0, 2.0, 5.0, 10.0]
+            .iter()
+            .any(|k| (m - k).abs() < 1e-6 * k)
+        {
+            return String::new();
+        }
+    }
     let a = v.abs();
     if prefixable {
         let (scale, p) = crate::units::engineering_prefix(a, "µ", 0.9995);
