@@ -122,6 +122,9 @@ pub struct Analysis {
     pub train: Option<crate::pulsetrain::TrainAnalysis>,
     /// The signal budget (light → pulse at the load), when the design has a light block.
     pub signal: Option<crate::signal::SignalBudget>,
+    /// The supply as built (a voltage multiplier under the base's load), when the design
+    /// describes one and its steady state was found.
+    pub supply_model: Option<crate::multiplier::SupplyModel>,
 }
 
 impl Analysis {
@@ -199,6 +202,42 @@ fn pulse_stream(design: &Design, gain: f64) -> Result<Option<PulseStream>, Analy
             average_anode_amps: q * gain * rate,
             from: "the light block",
         }))
+}
+
+/// What a builder should hear about the supply as built.
+fn supply_model_warnings(
+    design: &Design,
+    sm: &crate::multiplier::SupplyModel,
+    warnings: &mut Vec<String>,
+) {
+    let vs = design.supply_magnitude();
+    let off = sm.output_minus_setting_volts;
+    if off.abs() > 0.02 * vs {
+        // The output scales with the drive (less the diodes' drops, a few volts): the drive
+        // that gives the setting, to first order.
+        let n = sm.stages as f64;
+        let needed = sm.amplitude_volts - off / (2.0 * n);
+        warnings.push(format!(
+            "The multiplier gives {} at the base under this load, {} {} the supply setting of {}: a drive of about {} peak would give the setting (a regulated supply adjusts its drive so; the figures here are made at the setting).",
+            format_eng(sm.steady.output_volts, "V"),
+            format_eng(off.abs(), "V"),
+            if off > 0.0 { "above" } else { "below" },
+            format_eng(vs, "V"),
+            format_eng(needed.max(0.0), "V")
+        ));
+    }
+    if !sm.meets {
+        warnings.push(format!(
+            "The supply's ripple ({} p-p at the base) modulates the gain by {:.3} % p-p, more than the {:.2} % gain stability{}: raise the multiplier's capacitance or frequency, or add or enlarge the RC filter.",
+            format_eng(sm.steady.ripple_volts, "V"),
+            sm.gain_ripple * 100.0,
+            sm.gain_stability * 100.0,
+            if sm.gain_stability_given { " wanted" } else { " taken as an example" }
+        ));
+    }
+    if design.supply_quality.and_then(|q| q.ripple_volts).is_some() {
+        warnings.push("The design states a supply ripple (supply.quality.ripple) and describes the multiplier: the supply-quality section uses the stated ripple, the supply-model section the computed one.".to_string());
+    }
 }
 
 /// Rated voltage of a resistor: `min(sqrt(P R), U_max)` (IEC 60115-1, from memory).
@@ -520,6 +559,7 @@ pub fn analyse_with(
             excess_noise: t.excess_noise_factor(&tube_gaps),
             divider_amps: quiescent_amps,
             max_anode_amps: max_ia,
+            first_stage_gain: t.deltas(&tube_gaps).next().unwrap_or(1.0),
         },
     );
     if let Some(s) = &signal {
@@ -542,7 +582,23 @@ pub fn analyse_with(
     if let Some(t) = &train {
         warnings.extend(t.warnings.iter().cloned());
     }
+    let supply_model = design.multiplier.as_ref().and_then(|m| {
+        let stability = design.supply_quality.and_then(|q| q.gain_stability);
+        match crate::multiplier::assess(m, vs, op.supply_amps(), sensitivity, stability) {
+            Ok(sm) => Some(sm),
+            Err(e) => {
+                warnings.push(format!(
+                    "The supply's multiplier could not be solved, so the supply-model section is missing: {e}."
+                ));
+                None
+            }
+        }
+    });
+    if let Some(sm) = &supply_model {
+        supply_model_warnings(design, sm, &mut warnings);
+    }
     Ok(Analysis {
+        supply_model,
         gain_curve,
         train,
         design: design.clone(),

@@ -144,6 +144,12 @@ pub struct RawDesign {
     /// The instrument reading the pulses (signal budget).
     #[serde(default)]
     pub readout: Option<RawReadout>,
+    /// An amplifier between the signal path and the instrument.
+    #[serde(default)]
+    pub front_end: Option<RawFrontEnd>,
+    /// Photon counting: dark rate, dead time, coincidence window.
+    #[serde(default)]
+    pub counting: Option<RawCounting>,
 }
 
 /// The tube block.
@@ -174,6 +180,9 @@ pub struct RawTube {
     /// Transit-time spread, FWHM (signal budget).
     #[serde(default)]
     pub transit_spread: Option<Value>,
+    /// Transit time at a stated supply voltage (timing benches).
+    #[serde(default)]
+    pub transit_time: Option<RawTransit>,
     /// Share of the secondary-emission exponent on the gap that collects a dynode's
     /// secondaries (the rest is on the gap that accelerates its primaries).
     #[serde(default)]
@@ -260,6 +269,36 @@ pub struct RawSupply {
     /// Output (series) resistance of the supply, seen by the base in the time-domain solve.
     #[serde(default)]
     pub output_resistance: Option<Value>,
+    /// The supply as built: a voltage multiplier (see [`crate::multiplier`]).
+    #[serde(default)]
+    pub multiplier: Option<RawMultiplier>,
+}
+
+/// A Cockcroft–Walton voltage multiplier driven by a sine, with an optional RC filter.
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct RawMultiplier {
+    /// Number of stages (a doubler is 1).
+    pub stages: i64,
+    /// Capacitance of each capacitor of both columns.
+    pub capacitance: Value,
+    /// Drive frequency.
+    pub frequency: Value,
+    /// Drive amplitude: the peak of the sine at the transformer secondary.
+    pub amplitude: Value,
+    /// Series resistance and shunt capacitance of an RC filter after the multiplier.
+    #[serde(default)]
+    pub filter: Option<RawFilter>,
+}
+
+/// An RC filter: a series resistor, then a capacitor to ground.
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct RawFilter {
+    /// Series resistance.
+    pub resistance: Value,
+    /// Shunt capacitance.
+    pub capacitance: Value,
 }
 
 /// How steady the supply is, and how steady the gain must be.
@@ -545,6 +584,8 @@ pub struct Design {
     pub supply_quality: Option<SupplyQuality>,
     /// Supply output resistance (time-domain solve only; the DC solve takes the supply as ideal).
     pub supply_resistance: Option<ElectricalResistance>,
+    /// The voltage multiplier that makes the supply, if the design describes it.
+    pub multiplier: Option<crate::multiplier::Multiplier>,
     /// Pulse train, if the design gives one.
     pub train: Option<crate::train::TrainSpec>,
     /// Cathode response, tube timing, light and readout (signal budget).
@@ -572,11 +613,12 @@ impl Design {
     /// anode must have one of them).
     pub fn signal_load_resistance(&self) -> f64 {
         let g = |r: Option<ElectricalResistance>| r.map_or(0.0, |r| 1.0 / r.get::<ohm>());
-        let input = self
-            .signal
-            .readout
-            .as_ref()
-            .map_or(0.0, |r| 1.0 / r.input_resistance);
+        // The far end's input: the front end's when one is fitted, else the instrument's.
+        let input = match (&self.signal.front_end, &self.signal.readout) {
+            (Some(f), _) => 1.0 / f.input().0,
+            (None, Some(r)) => 1.0 / r.input_resistance,
+            (None, None) => 0.0,
+        };
         1.0 / (g(self.base_resistance) + g(self.load_resistance) + input)
     }
 
@@ -1118,6 +1160,25 @@ const FIELD_NAMES: &[&str] = &[
     "length",
     "impedance",
     "velocity",
+    "average_pulses",
+    // front end, photon counting, timing
+    "front_end",
+    "feedback_capacitance",
+    "feedback_resistance",
+    "shaping_time",
+    "order",
+    "shaper_gain",
+    "noise_density",
+    "noise_current",
+    "enc_electrons",
+    "counting",
+    "dark_rate",
+    "dead_time",
+    "coincidence_window",
+    "other_rate",
+    "under_amplified",
+    "transit_time",
+    "time",
 ];
 
 /// Levenshtein distance, for suggestions.
@@ -1750,6 +1811,11 @@ fn check(raw: RawDesign, file: &str) -> Result<Design, DesignError> {
         }
     };
 
+    let multiplier = match &s.multiplier {
+        None => None,
+        Some(m) => Some(check_multiplier(&c, m)?),
+    };
+
     let anode_current = match &raw.operating {
         None => max_anode * 0.1,
         Some(o) => c.within(
@@ -1817,6 +1883,7 @@ fn check(raw: RawDesign, file: &str) -> Result<Design, DesignError> {
         && load_resistance.is_none()
         && base_resistance.is_none()
         && signal.readout.is_none()
+        && signal.front_end.is_none()
     {
         return Err(c.fail(
             "load.resistance",
@@ -1857,8 +1924,66 @@ fn check(raw: RawDesign, file: &str) -> Result<Design, DesignError> {
         zener_ratings,
         supply_quality,
         supply_resistance: supply_resistance.map(ElectricalResistance::new::<ohm>),
+        multiplier,
         train,
         signal,
+    })
+}
+
+/// The `supply.multiplier` block, each quantity within its range in [`limits`].
+fn check_multiplier(
+    c: &Checker,
+    m: &RawMultiplier,
+) -> Result<crate::multiplier::Multiplier, DesignError> {
+    use uom::si::f64::Frequency;
+    use uom::si::frequency::hertz;
+    let (lo, hi) = limits::MULTIPLIER_STAGES;
+    if m.stages < lo as i64 || m.stages > hi as i64 {
+        return Err(c.fail(
+            "supply.multiplier.stages",
+            format!(
+                "expected a whole number of stages from {lo} (a doubler) to {hi}, found {}",
+                m.stages
+            ),
+        ));
+    }
+    let capacitance = c.within(
+        "supply.multiplier.capacitance",
+        &m.capacitance,
+        &limits::MULTIPLIER_CAPACITANCE,
+    )?;
+    let frequency = c.within(
+        "supply.multiplier.frequency",
+        &m.frequency,
+        &limits::MULTIPLIER_FREQUENCY,
+    )?;
+    let amplitude = c.within(
+        "supply.multiplier.amplitude",
+        &m.amplitude,
+        &limits::MULTIPLIER_AMPLITUDE,
+    )?;
+    let filter = match &m.filter {
+        None => None,
+        Some(f) => Some((
+            ElectricalResistance::new::<ohm>(c.within(
+                "supply.multiplier.filter.resistance",
+                &f.resistance,
+                &limits::FILTER_RESISTANCE,
+            )?),
+            Capacitance::new::<farad>(c.within(
+                "supply.multiplier.filter.capacitance",
+                &f.capacitance,
+                &limits::FILTER_CAPACITANCE,
+            )?),
+        )),
+    };
+    Ok(crate::multiplier::Multiplier {
+        stages: m.stages as usize,
+        capacitance: Capacitance::new::<farad>(capacitance),
+        frequency: Frequency::new::<hertz>(frequency),
+        amplitude: ElectricPotential::new::<volt>(amplitude),
+        filter,
+        diode: crate::multiplier::RECTIFIER,
     })
 }
 

@@ -195,6 +195,26 @@ impl std::fmt::Display for Series {
     }
 }
 
+/// Voltage ratings capacitors are commonly sold in, volts (common practice, from memory).
+pub const CAPACITOR_RATINGS: [f64; 20] = [
+    50.0, 63.0, 100.0, 160.0, 200.0, 250.0, 400.0, 500.0, 630.0, 1000.0, 1500.0, 2000.0, 2500.0,
+    3000.0, 4000.0, 5000.0, 6000.0, 8000.0, 10000.0, 15000.0,
+];
+/// Margin of a capacitor's rating over the voltage it holds (common practice: at least 1.5×).
+pub const CAPACITOR_RATING_MARGIN: f64 = 1.5;
+
+/// The rating to order for a capacitor holding `volts`: the smallest common rating at least
+/// [`CAPACITOR_RATING_MARGIN`] times it (above the largest, that product rounded up). The one
+/// rule for every place that recommends a capacitor (sizing, trains, parts list).
+pub fn capacitor_rating(volts: f64) -> f64 {
+    let need = CAPACITOR_RATING_MARGIN * volts.abs();
+    CAPACITOR_RATINGS
+        .iter()
+        .copied()
+        .find(|r| *r >= need * (1.0 - 1e-12))
+        .unwrap_or(need.ceil())
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

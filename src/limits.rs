@@ -106,6 +106,21 @@ pub fn show(x: f64, kind: Kind) -> String {
 pub const SUPPLY_VOLTS: Range = r(Kind::Voltage, 10.0, 1e5);
 /// Supply current limit.
 pub const SUPPLY_CURRENT_LIMIT: Range = r(Kind::Current, 1e-9, 10.0);
+/// Stages of a supply's voltage multiplier (a doubler is 1); the upper limit bounds the
+/// steady-state solve (shooting on 2 n + 1 nodes) to a few seconds: a lightly loaded cascade
+/// of 8 or more stages has a mode that decays over thousands of periods, and its shooting
+/// needs many iterations.
+pub const MULTIPLIER_STAGES: (usize, usize) = (1, 6);
+/// Capacitance of each multiplier capacitor.
+pub const MULTIPLIER_CAPACITANCE: Range = r(Kind::Capacitance, 1e-11, 1e-4);
+/// Drive frequency of a multiplier (mains to a fast switching converter).
+pub const MULTIPLIER_FREQUENCY: Range = r(Kind::Frequency, 10.0, 2e6);
+/// Drive amplitude (peak) of a multiplier.
+pub const MULTIPLIER_AMPLITUDE: Range = r(Kind::Voltage, 1.0, 2e4);
+/// Series resistance of the supply's RC filter.
+pub const FILTER_RESISTANCE: Range = r(Kind::Resistance, 1.0, 1e9);
+/// Shunt capacitance of the supply's RC filter.
+pub const FILTER_CAPACITANCE: Range = r(Kind::Capacitance, 1e-12, 1e-4);
 /// A divider resistor (each part of a series string).
 pub const RESISTOR: Range = r(Kind::Resistance, 1.0, 1e11);
 /// The factor `sweep` scales every divider resistor by (`divider.gaps[*]`).
@@ -180,6 +195,42 @@ pub const PHOTONS: Range = Range {
     open_lo: true,
     percent: false,
 };
+/// Voltage gain of a front-end amplifier.
+pub const FRONT_GAIN: Range = r(Kind::Ratio, 0.1, 1e5);
+/// Bandwidth of a front-end voltage amplifier (its pulse is computed through it).
+pub const FRONT_BANDWIDTH: Range = r(Kind::Frequency, 1e4, 1e11);
+/// Input resistance of a front end (the far-end termination).
+pub const FRONT_INPUT_RESISTANCE: Range = r(Kind::Resistance, 1.0, 1e12);
+/// Input capacitance of a front end.
+pub const FRONT_INPUT_CAPACITANCE: Range = r(Kind::Capacitance, 1e-15, 1e-8);
+/// Input voltage noise density of a front end, V/√Hz.
+pub const NOISE_DENSITY: Range = r(Kind::Voltage, 1e-11, 1e-5);
+/// Input current noise density of a preamplifier, A/√Hz.
+pub const NOISE_CURRENT: Range = r(Kind::Current, 1e-18, 1e-9);
+/// Feedback capacitance of a charge-sensitive preamplifier.
+pub const FEEDBACK_CAPACITANCE: Range = r(Kind::Capacitance, 1e-15, 1e-8);
+/// Feedback resistance of a charge-sensitive preamplifier.
+pub const FEEDBACK_RESISTANCE: Range = r(Kind::Resistance, 1e3, 1e13);
+/// Shaping time constant τ (the shaped pulse is computed over (n + 10) τ in steps of τ/200).
+pub const SHAPING_TIME: Range = r(Kind::Time, 1e-9, 1e-4);
+/// Order n of a CR–RC^n shaper.
+pub const SHAPER_ORDER: (i64, i64) = (1, 10);
+/// Gain of a shaper.
+pub const SHAPER_GAIN: Range = r(Kind::Ratio, 0.01, 1e4);
+/// An equivalent noise charge stated in electrons rms.
+pub const ENC_ELECTRONS: Range = r(Kind::Ratio, 0.1, 1e8);
+/// A dark-count rate or the other channel's rate of a coincidence.
+pub const COUNT_RATE: Range = r(Kind::Frequency, 1e-6, 1e9);
+/// Dead time of a counter.
+pub const DEAD_TIME: Range = r(Kind::Time, 1e-11, 1.0);
+/// Coincidence window τ_w.
+pub const COINCIDENCE_WINDOW: Range = r(Kind::Time, 1e-12, 1.0);
+/// Weight of the under-amplified part of the single-photoelectron spectrum.
+pub const UNDER_AMPLIFIED: Range = fraction(0.0, 0.9);
+/// The tube's transit time at its reference voltage.
+pub const TRANSIT_TIME: Range = r(Kind::Time, 1e-11, 1e-5);
+/// Pulses averaged for a delay measurement.
+pub const AVERAGE_PULSES: (i64, i64) = (1, 1_000_000_000_000);
 /// Largest ratio between two weights of `tube.reference_ratio` (real ratios stay within 10).
 pub const WEIGHT_SPREAD: f64 = 100.0;
 /// `spread --sigmas`: standard deviations per stated tolerance.

@@ -149,6 +149,10 @@ enum Command {
         /// With --train: replace the pattern's pulse count.
         #[arg(long, value_name = "N", requires = "train")]
         pulses: Option<usize>,
+        /// Write a transient netlist of the supply's voltage multiplier (supply.multiplier)
+        /// under the base's load at the operating point, run to its steady state, instead.
+        #[arg(long, conflicts_with_all = ["anode_current", "train"])]
+        supply: bool,
         #[command(flatten)]
         out: OutputArgs,
     },
@@ -985,6 +989,7 @@ fn run() -> ExitCode {
             anode_current,
             train,
             pulses,
+            supply,
             out,
         } => {
             let d = match load_for_output(&design, &out) {
@@ -1016,6 +1021,31 @@ fn run() -> ExitCode {
                 Ok(a) => a,
                 Err(e) => return fail(&e, analysis_exit(&e)),
             };
+            if supply {
+                let Some(m) = &d.multiplier else {
+                    return fail(
+                        format!(
+                            "{}: supply.multiplier: --supply needs a multiplier block in the design's supply",
+                            d.source
+                        ),
+                        Exit::BadInput,
+                    );
+                };
+                let Some(sm) = &a.supply_model else {
+                    return fail(
+                        format!(
+                            "{}: supply.multiplier: the multiplier's steady state could not be found",
+                            d.source
+                        ),
+                        Exit::SolveFailed,
+                    );
+                };
+                let text = netlist::write_multiplier(m, sm.steady.load_ohms, SUPPLY_PERIODS);
+                if let Err(code) = emit(&text, &out, &design) {
+                    return code;
+                }
+                return ExitCode::from(Exit::Ok as u8);
+            }
             if train {
                 let Some(spec) = &d.train else {
                     return fail(
@@ -1079,6 +1109,10 @@ fn run() -> ExitCode {
         }
     }
 }
+
+/// Drive periods in `netlist --supply`: enough for a lightly loaded, filtered multiplier to
+/// settle from the textbook's charges (the demo's within 0.5 % after some 3000).
+const SUPPLY_PERIODS: usize = 4000;
 
 fn main() -> ExitCode {
     output::install_interrupt_cleanup();
@@ -1174,6 +1208,7 @@ fn light_match_command(design: &Path, lines: &[f64], photons: Option<f64>) -> Ex
             .tube
             .max_anode_current
             .get::<uom::si::electric_current::ampere>(),
+        first_stage_gain: t.deltas(&a.op.tube_gap_volts()).next().unwrap_or(1.0),
     };
     let photons = photons
         .or(a.signal.as_ref().map(|s| s.photons_at_cathode))

@@ -462,3 +462,96 @@ pub fn write_transient(
     let _ = writeln!(s, ".end");
     s
 }
+
+/// A transient netlist of the supply's voltage multiplier ([`crate::multiplier`]) feeding
+/// `load_ohms`, run for `periods` drive periods from the ideal no-load charges, with `meas`
+/// lines over the last period: `vtop_max`, `vtop_pp` (the multiplier's output `s<n>`),
+/// `vout_pp`, `vout_avg` (the output at the base). Node names: `drv` the drive,
+/// `o1`…`o<n>` the oscillating column, `s1`…`s<n>` the smoothing column, `out` after the filter.
+pub fn write_multiplier(
+    mult: &crate::multiplier::Multiplier,
+    load_ohms: f64,
+    periods: usize,
+) -> String {
+    use uom::si::frequency::hertz;
+    let n = mult.stages;
+    let c = mult.capacitance.get::<farad>();
+    let f = mult.frequency.get::<hertz>();
+    let vp = mult.amplitude.get::<volt>();
+    let d = mult.diode;
+    // Initial charges from the textbook's loaded state (not from our solve): every capacitor
+    // at its ideal charge less the textbook drop, shared in proportion, the filter capacitor
+    // less its resistor's drop too; ngspice then runs to its own steady state.
+    let total = 2.0 * n as f64 * vp;
+    let r_f = mult.filter.map_or(0.0, |(r, _)| r.get::<ohm>());
+    let amps = total / (load_ohms + r_f);
+    let (_, drop) = crate::multiplier::textbook(mult, amps);
+    let keep = ((total - drop) / total).clamp(0.05, 1.0);
+    let mut s = String::new();
+    let _ = writeln!(s, "* Voltage multiplier, {n} stage(s), written by dynode");
+    let _ = writeln!(s, "vdrv drv 0 sin(0 {} {})", num(vp), num(f));
+    let _ = writeln!(s, "co1 drv o1 {} ic={}", num(c), num(keep * vp));
+    let _ = writeln!(s, "cs1 s1 0 {} ic={}", num(c), num(keep * 2.0 * vp));
+    for k in 1..n {
+        let ic = num(keep * 2.0 * vp);
+        let _ = writeln!(s, "co{} o{k} o{} {} ic={ic}", k + 1, k + 1, num(c));
+        let _ = writeln!(s, "cs{} s{k} s{} {} ic={ic}", k + 1, k + 1, num(c));
+    }
+    let _ = writeln!(s, "dg 0 o1 rect");
+    for k in 1..=n {
+        let _ = writeln!(s, "du{k} o{k} s{k} rect");
+        if k < n {
+            let _ = writeln!(s, "dd{k} s{k} o{} rect", k + 1);
+        }
+    }
+    let top = format!("s{n}");
+    let out = match mult.filter {
+        Some((r, cf)) => {
+            let _ = writeln!(s, "rf {top} out {}", num(r.get::<ohm>()));
+            let _ = writeln!(
+                s,
+                "cf out 0 {} ic={}",
+                num(cf.get::<farad>()),
+                num(keep * total - amps * r_f)
+            );
+            "out".to_string()
+        }
+        None => top.clone(),
+    };
+    let _ = writeln!(s, "rload {out} 0 {}", num(load_ohms));
+    let _ = writeln!(
+        s,
+        ".model rect d(is={} n={})",
+        num(d.saturation_amps),
+        num(d.emission)
+    );
+    let period = 1.0 / f;
+    let stop = periods as f64 * period;
+    let from = stop - period;
+    let _ = writeln!(
+        s,
+        ".options reltol=1e-6 abstol=1e-12 vntol=1e-7 method=gear"
+    );
+    let _ = writeln!(
+        s,
+        ".tran {} {} 0 {} uic",
+        num(period / 1000.0),
+        num(stop),
+        num(period / 1000.0)
+    );
+    for (name, what, node) in [
+        ("vtop_max", "max", top.as_str()),
+        ("vtop_pp", "pp", top.as_str()),
+        ("vout_pp", "pp", out.as_str()),
+        ("vout_avg", "avg", out.as_str()),
+    ] {
+        let _ = writeln!(
+            s,
+            ".meas tran {name} {what} v({node}) from={} to={}",
+            num(from),
+            num(stop)
+        );
+    }
+    let _ = writeln!(s, ".end");
+    s
+}

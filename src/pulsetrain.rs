@@ -39,11 +39,6 @@ pub const SERIES_POINTS: usize = 1200;
 pub const E12: &[f64] = &crate::eseries::E12;
 /// The coarser series, for comparison.
 pub const E6: &[f64] = &crate::eseries::E6;
-/// Voltage ratings capacitors are commonly sold in, volts (common practice, from memory).
-pub const CAP_RATINGS: [f64; 20] = [
-    50.0, 63.0, 100.0, 160.0, 200.0, 250.0, 400.0, 500.0, 630.0, 1000.0, 1500.0, 2000.0, 2500.0,
-    3000.0, 4000.0, 5000.0, 6000.0, 8000.0, 10000.0, 15000.0,
-];
 
 /// Smallest value of a series (one decade's table) at or above `x` (> 0).
 pub fn round_up_series(x: f64, series: &[f64]) -> f64 {
@@ -129,6 +124,9 @@ pub struct SizedCap {
 /// Capacitor sizing for an allowed droop.
 #[derive(Debug, Clone, PartialEq)]
 pub struct Sizing {
+    /// Whether the values hold the pattern continuing for ever (its steady state), rather than
+    /// the train as given from rest (a single pulse, or a rate the base cannot sustain).
+    pub for_ever: bool,
     /// Allowed droop, fraction of each decoupled gap's voltage.
     pub allowed: f64,
     /// One row per decoupling capacitor.
@@ -523,11 +521,50 @@ fn droop_fractions(design: &Design, run: &Run) -> Vec<f64> {
         .collect()
 }
 
+/// What the capacitors alone let each decoupled gap droop, as a fraction of its voltage, for
+/// the train's pattern continuing for ever (docs/physics.md §13): one pulse from rest (a single
+/// pulse); the drop the pulses of a period add in the periodic steady state (periodic trains
+/// and bursts); for Poisson arrivals, the drop exceeded by 1 % of pulses beyond the mean DC
+/// shift. The DC shift at the average current is the divider's and is left out: no capacitor
+/// removes it. Each costs one short solve, not a run of the whole train. Without `steady`
+/// (a rate whose steady state does not exist: the base saturates at its average current), the
+/// drop over the train as given, from rest.
+fn capacitor_droop(
+    design: &Design,
+    tube: &TubeModel,
+    spec: &TrainSpec,
+    qk: f64,
+    steady: bool,
+) -> Result<Vec<f64>, TransientError> {
+    let base = Base::from_design(design, tube.clone());
+    if !steady || matches!(spec.pattern, Pattern::Single) {
+        let run = run_train(&base, spec, qk, &quiet())?;
+        return Ok(droop_fractions(design, &run));
+    }
+    let steady =
+        steady_state(design, &base, spec, qk, 1.0)?.ok_or_else(|| TransientError::Failed {
+            time: 0.0,
+            reason: "no steady state for the pattern".into(),
+        })?;
+    Ok(match &steady.droop_quantile_99 {
+        Some(q) => q
+            .iter()
+            .zip(&steady.shift_fraction)
+            .map(|(q, s)| (q - s).max(0.0))
+            .collect(),
+        None => steady.pulse_droop_fraction.clone(),
+    })
+}
+
+/// Capacitors sized for the allowed droop of [`capacitor_droop`]: the needed values by fixed
+/// point on ΔV ∝ 1/C (within 2 %), then E12 values checked and stepped up until they hold.
+/// `run` is the train as solved (the voltages each capacitor holds before it).
 fn size_caps(
     design: &Design,
     tube: &TubeModel,
     spec: &TrainSpec,
     qk: f64,
+    run: &Run,
 ) -> Result<Option<Sizing>, TransientError> {
     if design.decoupling.is_empty() {
         return Ok(None);
@@ -535,29 +572,42 @@ fn size_caps(
     let allowed = spec.droop;
     let stray = design.stray.get::<farad>();
     let floor = 10.0 * stray;
-    let with_values = |vals: &[f64]| {
+    // For ever when the base as built has a steady state at the rate, else the train as given.
+    let steady = capacitor_droop(design, tube, spec, qk, true).is_ok();
+    let droop_with = |vals: &[f64]| -> Result<Vec<f64>, TransientError> {
         let mut d = design.clone();
         for (c, v) in d.decoupling.iter_mut().zip(vals) {
             c.value = uom::si::f64::Capacitance::new::<farad>(*v);
         }
-        d
-    };
-    let run_with = |vals: &[f64]| -> Result<(Vec<f64>, Run), TransientError> {
-        let d = with_values(vals);
-        let base = Base::from_design(&d, tube.clone());
-        let run = run_train(&base, spec, qk, &quiet())?;
-        Ok((droop_fractions(&d, &run), run))
+        capacitor_droop(&d, tube, spec, qk, steady)
     };
     let mut vals: Vec<f64> = design
         .decoupling
         .iter()
         .map(|c| c.value.get::<farad>())
         .collect();
-    for _ in 0..10 {
-        let (fr, _) = run_with(&vals)?;
+    // A base whose capacitors are far too small for the pulses may not solve at all: back off
+    // to twice the values and go on (at most six times in all).
+    let mut failures = 0;
+    let mut tried = |vals: &mut Vec<f64>| -> Result<Option<Vec<f64>>, TransientError> {
+        match droop_with(vals) {
+            Ok(fr) => Ok(Some(fr)),
+            Err(_) if failures < 6 => {
+                failures += 1;
+                vals.iter_mut().for_each(|v| *v *= 2.0);
+                Ok(None)
+            }
+            Err(e) => Err(e),
+        }
+    };
+    for _ in 0..16 {
+        let Some(fr) = tried(&mut vals)? else {
+            continue;
+        };
         let mut done = true;
         for (v, f) in vals.iter_mut().zip(&fr) {
-            let r = f / allowed;
+            // ΔV ∝ 1/C: scale by the excess, at most 4× down or 30× up a round.
+            let r = (f / allowed).clamp(0.25, 30.0);
             if (r - 1.0).abs() > 0.02 && !(r < 1.0 && *v <= floor) {
                 done = false;
             }
@@ -571,12 +621,12 @@ fn size_caps(
     let mut preferred: Vec<f64> = needed.iter().map(|v| round_up_series(*v, E12)).collect();
     let mut verified = false;
     let mut final_fr = Vec::new();
-    let mut final_run = None;
     for _ in 0..6 {
-        let (fr, run) = run_with(&preferred)?;
+        let Some(fr) = tried(&mut preferred)? else {
+            continue;
+        };
         let over: Vec<usize> = (0..fr.len()).filter(|i| fr[*i] > allowed).collect();
         final_fr = fr;
-        final_run = Some(run);
         if over.is_empty() {
             verified = true;
             break;
@@ -585,21 +635,12 @@ fn size_caps(
             preferred[i] = next_series(preferred[i], E12);
         }
     }
-    let run = final_run.expect("at least one sizing run");
     let mut caps = Vec::new();
     let (mut added, mut total) = (0.0, 0.0);
     for (i, d) in design.decoupling.iter().enumerate() {
-        let (label, gap) = cap_place(design, d.style);
+        let (label, _) = cap_place(design, d.style);
         let holds = run.caps[i].initial.abs();
-        let rating_needed = match d.style {
-            CapStyle::Across(_) => 2.0 * run.elements_initial[gap].abs(),
-            CapStyle::ToReturn(_) => 1.5 * holds,
-        };
-        let rating = CAP_RATINGS
-            .iter()
-            .copied()
-            .find(|r| *r >= rating_needed)
-            .unwrap_or(rating_needed.ceil());
+        let rating = crate::eseries::capacitor_rating(holds);
         let c = preferred[i];
         let joules = 0.5 * c * holds * holds;
         added += joules - 0.5 * d.value.get::<farad>() * holds * holds;
@@ -617,6 +658,7 @@ fn size_caps(
         });
     }
     Ok(Some(Sizing {
+        for_ever: steady && !matches!(spec.pattern, Pattern::Single),
         allowed,
         caps,
         added_joules: added,
@@ -697,7 +739,7 @@ pub fn analyse(
         (None, None, None)
     } else {
         let pl = pulse_linearity(&base, &spec.shape, start_peak, qk)?;
-        let sizing = size_caps(design, tube, &spec, qk)?;
+        let sizing = size_caps(design, tube, &spec, qk, &run)?;
         let td = tapered(design, &spec.taper);
         let tbase = Base::from_design(&td, tube.clone());
         let tpl = pulse_linearity(&tbase, &spec.shape, start_peak, qk)?;

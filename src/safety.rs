@@ -191,6 +191,11 @@ pub fn assess(design: &Design, op: &OperatingPoint) -> Safety {
             None,
         ));
     }
+    if let Some(m) = &design.multiplier {
+        for (label, farads, volts) in crate::multiplier::stored(m) {
+            caps.push(stored(label, farads, volts, None));
+        }
+    }
     let total_coulombs = caps.iter().map(|c| c.coulombs).sum();
     let total_joules = caps.iter().map(|c| c.joules).sum();
 
@@ -255,6 +260,9 @@ pub fn assess(design: &Design, op: &OperatingPoint) -> Safety {
                 i * 1e3,
                 TOUCH_CURRENT_DC_AMPS * 1e3
             ));
+    }
+    if design.multiplier.is_some() {
+        specific.push("The supply's multiplier capacitors hold up to their no-load charge and discharge into the divider only through the multiplier's diodes, one column at a time; the bleed-down time above does not include them. Discharge each capacitor of the multiplier to ground through a resistor and measure it before touching.".to_string());
     }
     for label in &never_bleeds {
         specific.push(format!(

@@ -28,6 +28,7 @@
 
 use crate::cathode::{self, BOLTZMANN, Cathode, ELEMENTARY_CHARGE};
 use crate::design::{Design, InstrumentResponse, ReadoutSpec};
+use crate::frontend::{FrontEnd, FrontNoise};
 use crate::light::{self, FWHM_PER_SIGMA, Shape, Spectrum};
 use crate::units::format_eng as eng;
 use crate::waveform::{self, CurrentPulse, LoadCircuit, PulseFigures, Waveform};
@@ -77,6 +78,8 @@ pub struct Chain {
     pub divider_amps: f64,
     /// The tube's average anode current rating, A.
     pub max_anode_amps: f64,
+    /// Gain of the first dynode δ1 at the operating point.
+    pub first_stage_gain: f64,
 }
 
 /// The verdict on a pulse at an instrument.
@@ -113,8 +116,11 @@ pub struct Noise {
     pub per_division: bool,
     /// Instrument's own at that range, V rms.
     pub instrument: f64,
-    /// Johnson–Nyquist of the load over the bandwidth, V rms.
+    /// Johnson–Nyquist of the load over the bandwidth, V rms (through the front end when one
+    /// is fitted).
     pub johnson: f64,
+    /// The front end's own noise at its output, V rms (0 without a front end).
+    pub amplifier: f64,
     /// Baseline total, V rms.
     pub total: f64,
 }
@@ -226,6 +232,64 @@ pub struct Timing {
     pub walk: Option<f64>,
     /// Smallest and largest expected pulse used, V.
     pub walk_range: (f64, f64),
+    /// Leading-edge walk over the same range from the Monte Carlo, s.
+    pub walk_leading_edge_mc: Option<f64>,
+    /// Constant-fraction walk over the same range from the Monte Carlo, s.
+    pub walk_constant_fraction_mc: Option<f64>,
+    /// The timing-bench figures.
+    pub bench: Bench,
+}
+
+/// A delay measured on a timing bench (docs/physics.md §18): the tube's transit time moves
+/// with its supply (`t ∝ V^(−1/2)`, from memory), averaging N pulses narrows the jitter by
+/// √N until the supply's drift dominates.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Bench {
+    /// Transit time at the design's supply, s (`None` without `tube.transit_time`).
+    pub transit: Option<f64>,
+    /// Change of the transit time per volt of supply magnitude, s/V (negative).
+    pub delay_per_volt: Option<f64>,
+    /// Peak-to-peak delay shift from the supply's ripple, s.
+    pub ripple_delay: Option<f64>,
+    /// Delay shift from the supply's drift over the run, s.
+    pub drift_delay: Option<f64>,
+    /// Jitter of one pulse with the ripple's share, s rms.
+    pub per_pulse: f64,
+    /// Pulses averaged.
+    pub pulses: u64,
+    /// Resolution of the averaged delay, s: `√(σ²/N + drift²)`.
+    pub averaged: f64,
+    /// Pulses beyond which the drift dominates, `(σ/drift)²`.
+    pub drift_dominates_after: Option<f64>,
+}
+
+/// What a front end did to the pulse.
+#[derive(Debug, Clone, PartialEq)]
+pub struct FrontEndFigures {
+    /// `voltage_amplifier` or `charge_preamplifier`.
+    pub kind: &'static str,
+    /// In words.
+    pub description: String,
+    /// Peak at the front end's input, V.
+    pub input_peak: f64,
+    /// Peak at its output, V.
+    pub peak: f64,
+    /// Time of the output's peak, s.
+    pub t_peak: f64,
+    /// Peak over baseline noise at the instrument (with a readout).
+    pub snr: Option<f64>,
+    /// The front end's noise at its output.
+    pub noise: FrontNoise,
+    /// Charge into the preamplifier, C.
+    pub charge_in: Option<f64>,
+    /// Its step `Q / C_f`, V.
+    pub step: Option<f64>,
+    /// Output peak after the charge's centroid, s (measured).
+    pub peaking_time: Option<f64>,
+    /// Measured output peak over the step and shaper gain.
+    pub peak_factor: Option<f64>,
+    /// `n^n e^(−n)/n!` beside it.
+    pub peak_factor_theory: Option<f64>,
 }
 
 /// Steady light against the divider and the rating.
@@ -360,6 +424,10 @@ pub struct SignalBudget {
     pub photodiode: Option<Photodiode>,
     /// The load sweep.
     pub sweep: LoadSweep,
+    /// The front end's figures, when one is fitted.
+    pub front_end: Option<FrontEndFigures>,
+    /// Photon counting, with a counting block or below one photoelectron per pulse.
+    pub counting: Option<crate::counting::PhotonCounting>,
     /// Warnings for the report's list.
     pub warnings: Vec<String>,
     /// Assumptions.
@@ -478,7 +546,20 @@ pub fn path_line(design: &Design) -> String {
         };
         far.push(format!("{} {what}", eng(rl.get::<ohm>(), "Ω")));
     }
-    if let Some(r) = readout {
+    if let Some(f) = &design.signal.front_end {
+        let (rf, cf) = f.input();
+        let mut input = eng(rf, "Ω");
+        if cf > 0.0 {
+            input = format!("{input} ∥ {}", eng(cf, "F"));
+        }
+        far.push(format!("{input} front-end input"));
+        parts.push(far.join(" ∥ "));
+        far = Vec::new();
+        parts.push(f.describe());
+        if let Some(r) = readout {
+            parts.push(format!("{} instrument", eng(r.bandwidth, "Hz")));
+        }
+    } else if let Some(r) = readout {
         let mut input = eng(r.input_resistance, "Ω");
         if r.input_capacitance > 0.0 {
             input = format!("{input} ∥ {}", eng(r.input_capacitance, "F"));
@@ -495,9 +576,17 @@ pub fn path_line(design: &Design) -> String {
 /// sweep tries them.
 pub fn circuit_with_termination(design: &Design, termination: Option<f64>) -> LoadCircuit {
     let r = design.signal.readout.as_ref();
-    let (rin, cin) = r.map_or((None, 0.0), |r| {
-        (Some(r.input_resistance), r.input_capacitance)
-    });
+    // The far end's input: a front end's when one is fitted (its input is the termination),
+    // else the instrument's.
+    let (rin, cin) = match &design.signal.front_end {
+        Some(f) => {
+            let (rf, cf) = f.input();
+            (Some(rf), cf)
+        }
+        None => r.map_or((None, 0.0), |r| {
+            (Some(r.input_resistance), r.input_capacitance)
+        }),
+    };
     LoadCircuit {
         anode_capacitance: design.load_capacitance.get::<farad>(),
         anode_resistance: design.anode_resistor.map(|x| x.get::<ohm>()),
@@ -620,7 +709,7 @@ pub fn judge(
         }
     }
     let snr_words = format!(
-        "peak over baseline noise {:.1} at the {} range it needs (noise {} rms: instrument {}, load resistor {})",
+        "peak over baseline noise {:.1} at the {} range it needs (noise {} rms: instrument {}, load resistor {}{})",
         snr.min(1e9),
         if noise.per_division {
             format!("{}/div", eng(noise.range, "V"))
@@ -629,7 +718,12 @@ pub fn judge(
         },
         eng(noise.total, "V"),
         eng(noise.instrument, "V"),
-        eng(noise.johnson, "V")
+        eng(noise.johnson, "V"),
+        if noise.amplifier > 0.0 {
+            format!(", front end {}", eng(noise.amplifier, "V"))
+        } else {
+            String::new()
+        }
     );
     if snr < 3.0 {
         bump(
@@ -706,6 +800,8 @@ pub fn judge(
 /// (Polya) distribution of relative variance `f − 1` (the chain's excess noise factor; the
 /// model of docs/physics.md §11, from memory): `Q(k, k·fraction)` with
 /// `k = 1/(f − 1)`, the regularised upper incomplete gamma function.
+/// The reports use the fuller spectrum of [`crate::counting`] (this gamma part, an
+/// under-amplified exponential part and the baseline noise), built on the same function.
 pub fn threshold_efficiency(fraction: f64, f: f64) -> f64 {
     let var = (f - 1.0).max(1e-6);
     let k = 1.0 / var;
@@ -715,7 +811,7 @@ pub fn threshold_efficiency(fraction: f64, f: f64) -> f64 {
 /// `Q(a, x) = Γ(a, x)/Γ(a)` by the power series of `P` below `x < a + 1` and the continued
 /// fraction of `Q` above (the standard pair for the incomplete gamma function, with the
 /// modified Lentz evaluation), to about 1e-14.
-fn upper_gamma_regularised(a: f64, x: f64) -> f64 {
+pub(crate) fn upper_gamma_regularised(a: f64, x: f64) -> f64 {
     if x <= 0.0 {
         return 1.0;
     }
@@ -785,14 +881,24 @@ fn ln_gamma(x: f64) -> f64 {
     0.5 * (2.0 * std::f64::consts::PI).ln() + (x + 0.5) * t.ln() - t + s.ln()
 }
 
-/// Baseline noise at the instrument for a load circuit.
-pub fn noise(c: &LoadCircuit, r: &ReadoutSpec, peak: f64) -> Noise {
-    let johnson = johnson_rms(
-        c.pulse_resistance(),
-        c.total_capacitance(),
-        r.bandwidth,
-        r.response,
-    );
+/// Baseline noise at the instrument for a load circuit, through the front end when one is
+/// fitted (its own noise and the path's resistors through it).
+pub fn noise(c: &LoadCircuit, r: &ReadoutSpec, peak: f64, fe: Option<&FrontEnd>) -> Noise {
+    let (johnson, amplifier) = match fe {
+        None => (
+            johnson_rms(
+                c.pulse_resistance(),
+                c.total_capacitance(),
+                r.bandwidth,
+                r.response,
+            ),
+            0.0,
+        ),
+        Some(f) => {
+            let n = f.noise(front_end_shunt(c, f), c.total_capacitance());
+            (n.johnson, n.amplifier)
+        }
+    };
     let (range, per_division) = range_for(peak, r);
     // An oscilloscope's noise grows with V/div above its front end's floor; a digitiser's is a
     // fixed fraction of its full scale (common practice, docs/physics.md §11).
@@ -805,8 +911,36 @@ pub fn noise(c: &LoadCircuit, r: &ReadoutSpec, peak: f64) -> Noise {
         per_division,
         instrument,
         johnson,
-        total: rss(&[instrument, johnson]),
+        amplifier,
+        total: rss(&[instrument, johnson, amplifier]),
     }
+}
+
+/// The resistance whose Johnson noise a front end sees at its input, ohms: the whole path for
+/// a voltage amplifier (its input resistor is a real, noisy termination); the path without the
+/// preamplifier's own input for a charge preamplifier (its input is its transistor, whose noise
+/// is the series noise).
+pub fn front_end_shunt(c: &LoadCircuit, f: &FrontEnd) -> f64 {
+    match f {
+        FrontEnd::Voltage(_) => c.pulse_resistance(),
+        FrontEnd::Charge(p) => {
+            let g_term = (1.0 / c.load_resistance - 1.0 / p.input_resistance).max(0.0);
+            let term = (g_term > 1e-15).then(|| 1.0 / g_term);
+            waveform::parallel(&[c.anode_resistance, c.base_resistance, term])
+        }
+    }
+}
+
+/// The pulse at the far end of the path for `current`, and what the instrument receives: the
+/// same, or the front end's output.
+pub fn at_instrument(
+    c: &LoadCircuit,
+    fe: Option<&FrontEnd>,
+    current: &CurrentPulse,
+) -> (Waveform, Waveform) {
+    let far = waveform::simulate(c, current, 0.0);
+    let out = fe.map_or_else(|| far.clone(), |f| f.process(&far));
+    (far, out)
 }
 
 /// The range a pulse of `peak` volts is read on: the most sensitive one that shows it within
@@ -851,8 +985,9 @@ pub fn load_sweep(
     // setting instead, and say so.
     let mut note = None;
     let mut d2;
+    let fe = design.signal.front_end.as_ref();
     let design = match r {
-        Some(ro) if ro.input_resistance < 1e4 => {
+        Some(ro) if ro.input_resistance < 1e4 && fe.is_none() => {
             d2 = design.clone();
             if let Some(x) = d2.signal.readout.as_mut() {
                 x.input_resistance = 1e6;
@@ -885,19 +1020,19 @@ pub fn load_sweep(
         .map(|i| {
             let load = (lo + (hi - lo) * i as f64 / (n.max(2) - 1) as f64).exp();
             let c = circuit_with_termination(design, Some(load));
-            let w = waveform::simulate(&c, current, 0.0);
+            let (far, w) = at_instrument(&c, fe, current);
             let f = w.measure_first(c.cable.map(|l| l.delay));
-            let echo = echoes(&c, &w);
+            let echo = echoes(&c, &far);
             let inst = r.map(|r| rise_bandwidth(r.response).0 / r.bandwidth);
             let displayed = f.rise.map(|x| rss(&[x, inst.unwrap_or(0.0)]));
             let (snr, verdict) = match r {
                 Some(ro) => {
                     let one = single_pe
                         .filter(|_| photoelectrons.is_some_and(|x| x < 1.0))
-                        .map(|p| waveform::simulate(&c, p, 0.0).measure().peak);
+                        .map(|p| at_instrument(&c, fe, p).1.measure().peak);
                     let j = judge(
                         f.peak,
-                        noise(&c, ro, one.unwrap_or(f.peak)),
+                        noise(&c, ro, one.unwrap_or(f.peak), fe),
                         displayed,
                         ro,
                         photoelectrons,
@@ -1034,13 +1169,16 @@ pub fn budget(design: &Design, chain: &Chain) -> Option<SignalBudget> {
     let sigma = (sigma_ser * sigma_ser + sigma_tts * sigma_tts).sqrt();
     let current = waveform::convolved_pulse(&l.shape, sigma, charge.max(1e-30));
     let c = circuit(design);
-    let w = waveform::simulate(&c, &current, 0.0);
+    let fe = s.front_end.as_ref();
+    let (far, w) = at_instrument(&c, fe, &current);
     let mut pulse = w.measure_first(c.cable.map(|l| l.delay));
     if charge <= 0.0 {
         pulse.peak = 0.0;
     }
     let single = waveform::gaussian_pulse(sigma_ser, mult * ELEMENTARY_CHARGE);
-    let single_volts = waveform::simulate(&c, &single, 0.0).measure().peak;
+    // One photoelectron's pulse at the instrument, through the same circuit and front end.
+    let one = at_instrument(&c, fe, &single).1;
+    let single_volts = one.measure().peak;
     let r = s.readout.as_ref();
     let current_fig = current.as_waveform().measure();
     let rc_rise = 9f64.ln() * rss(&c.edge_time_constants());
@@ -1059,7 +1197,7 @@ pub fn budget(design: &Design, chain: &Chain) -> Option<SignalBudget> {
         instrument_rise: inst.zip(r).map(|((k, _), r)| k / r.bandwidth),
         instrument_model: inst.map(|(_, m)| m),
     };
-    let echoes = echoes(&c, &w);
+    let echoes = echoes(&c, &far);
     let f = chain.excess_noise;
     let spread = if npe > 0.0 { (f / npe).sqrt() } else { 0.0 };
     let displayed = pulse
@@ -1076,6 +1214,7 @@ pub fn budget(design: &Design, chain: &Chain) -> Option<SignalBudget> {
                 } else {
                     pulse.peak
                 },
+                fe,
             ),
             displayed,
             ro,
@@ -1087,10 +1226,16 @@ pub fn budget(design: &Design, chain: &Chain) -> Option<SignalBudget> {
             // The discriminator: the design's timing threshold, or a quarter of a
             // photoelectron (common practice for counting).
             let thr = ro.threshold.unwrap_or(COUNTING_THRESHOLD * single_volts);
-            let eff = threshold_efficiency(thr / single_volts, f);
+            let model = crate::counting::spe_model(
+                s.counting.as_ref(),
+                f,
+                chain.first_stage_gain,
+                j.noise.total / single_volts,
+            );
+            let eff = crate::counting::spectrum(&model).above(thr / single_volts);
             j.threshold_efficiency = Some(eff);
             let words = format!(
-                "{:.1} % of single photoelectrons clear a {} threshold ({:.2} of a photoelectron; gamma-shaped single-photoelectron spectrum with relative variance F − 1 = {:.3})",
+                "{:.1} % of single photoelectrons clear a {} threshold ({:.2} of a photoelectron; the single-photoelectron spectrum of the photon-counting section, relative variance F − 1 = {:.3}, with the baseline noise)",
                 eff * 100.0,
                 eng(thr, "V"),
                 thr / single_volts,
@@ -1129,8 +1274,6 @@ pub fn budget(design: &Design, chain: &Chain) -> Option<SignalBudget> {
         let noise_jitter = noise_total.zip(slope).map(|(n, s)| n / s);
         let centroid_jitter =
             (sigma_tts * sigma_tts + light_sigma(&l.shape).powi(2)).sqrt() / npe.max(1.0).sqrt();
-        // One photoelectron's pulse at the instrument, through the same circuit.
-        let one = waveform::simulate(&c, &single, 0.0);
         let mc = crate::timing::monte_carlo(&crate::timing::TimingInput {
             shape: &l.shape,
             photoelectrons: npe,
@@ -1159,6 +1302,8 @@ pub fn budget(design: &Design, chain: &Chain) -> Option<SignalBudget> {
                 .flatten()
         };
         let walk = cross(lo).zip(cross(hi)).map(|(a, b)| a - b);
+        let total_jitter = noise_jitter.map(|n| rss(&[n, photon_jitter]));
+        let bench = bench(design, total_jitter.unwrap_or(photon_jitter));
         Some(Timing {
             threshold,
             noise_jitter,
@@ -1166,9 +1311,14 @@ pub fn budget(design: &Design, chain: &Chain) -> Option<SignalBudget> {
             centroid_jitter,
             cfd_jitter,
             from_monte_carlo: mc.is_some(),
-            total_jitter: noise_jitter.map(|n| rss(&[n, photon_jitter])),
+            total_jitter,
             walk,
             walk_range: (lo, hi),
+            // Over the same amplitude range, from the Monte Carlo's slopes of time against
+            // each trial's peak (positive: small pulses come late).
+            walk_leading_edge_mc: mc.map(|m| -m.leading_edge_walk * (hi - lo)),
+            walk_constant_fraction_mc: mc.map(|m| -m.constant_fraction_walk * (hi - lo)),
+            bench,
         })
     } else {
         None
@@ -1219,6 +1369,26 @@ pub fn budget(design: &Design, chain: &Chain) -> Option<SignalBudget> {
                 b.over_divider
             ));
     }
+    let noise_volts = readable.as_ref().map_or(0.0, |x| x.noise.total);
+    let counting = (s.counting.is_some() || (r.is_some() && npe > 0.0 && npe < 1.0)).then(|| {
+        let thr = r
+            .and_then(|r| r.threshold)
+            .unwrap_or(COUNTING_THRESHOLD * single_volts);
+        let background_pe = background.map_or(0.0, |b| {
+            b.cathode_amps / ELEMENTARY_CHARGE * chain.collection
+        });
+        crate::counting::photon_counting(&crate::counting::CountingInput {
+            spec: s.counting.as_ref(),
+            excess_noise: f,
+            first_stage_gain: chain.first_stage_gain,
+            single_volts,
+            noise_volts,
+            threshold_volts: thr,
+            pulse_pair: crate::counting::pulse_pair_resolution(&one, thr),
+            signal_rate: l.rate.unwrap_or(0.0) * (1.0 - (-npe).exp()) + background_pe,
+        })
+    });
+    let front_end = fe.map(|fe| front_end_figures(fe, &c, &far, &pulse, readable.as_ref()));
     let photodiode = photodiode_alternative(
         &l.spectrum,
         conv.photons_at_cathode,
@@ -1256,9 +1426,105 @@ pub fn budget(design: &Design, chain: &Chain) -> Option<SignalBudget> {
         background,
         photodiode,
         sweep,
+        front_end,
+        counting,
         warnings,
         assumptions,
     })
+}
+
+/// What the front end did to the pulse.
+fn front_end_figures(
+    fe: &FrontEnd,
+    c: &LoadCircuit,
+    far: &Waveform,
+    pulse: &PulseFigures,
+    readable: Option<&Readability>,
+) -> FrontEndFigures {
+    let noise = fe.noise(front_end_shunt(c, fe), c.total_capacitance());
+    let mut fig = FrontEndFigures {
+        kind: fe.kind(),
+        description: fe.describe(),
+        input_peak: far.measure().peak,
+        peak: pulse.peak,
+        t_peak: pulse.t_peak,
+        snr: readable.map(|r| r.snr),
+        noise,
+        charge_in: None,
+        step: None,
+        peaking_time: None,
+        peak_factor: None,
+        peak_factor_theory: None,
+    };
+    if let FrontEnd::Charge(p) = fe {
+        // The charge that entered the preamplifier and when (its centroid), by the trapezoid
+        // rule on the computed input.
+        let (mut q, mut qt) = (0.0, 0.0);
+        for i in 1..far.t.len() {
+            let h = far.t[i] - far.t[i - 1];
+            let a = 0.5 * (far.v[i] + far.v[i - 1]) / p.input_resistance;
+            q += a * h;
+            qt += a * h * 0.5 * (far.t[i] + far.t[i - 1]);
+        }
+        let step = q / p.feedback_capacitance;
+        fig.charge_in = Some(q);
+        fig.step = Some(step);
+        if q > 0.0 {
+            fig.peaking_time = Some(pulse.t_peak - qt / q);
+            fig.peak_factor = Some(pulse.peak / (step * p.shaper_gain));
+        }
+        fig.peak_factor_theory = Some(crate::frontend::peak_factor(p.order));
+    }
+    fig
+}
+
+/// Pulses averaged for a delay when the design gives no number (a choice of this tool).
+pub const DEFAULT_AVERAGE_PULSES: u64 = 1000;
+
+/// The timing-bench figures for a per-pulse jitter `jitter` (docs/physics.md §18).
+fn bench(design: &Design, jitter: f64) -> Bench {
+    use uom::si::electric_potential::volt;
+    use uom::si::f64::{ElectricPotential, Time};
+    use uom::si::time::second;
+    let v = design.supply_magnitude();
+    let transit = design.signal.timing.transit.map(|(t0, v0)| {
+        let (t, d) = crate::timing::transit_at(
+            Time::new::<second>(t0),
+            ElectricPotential::new::<volt>(v0.unwrap_or(v)),
+            ElectricPotential::new::<volt>(v),
+        );
+        (t.get::<second>(), d)
+    });
+    let per_volt = transit.map(|x| x.1);
+    let q = design.supply_quality.as_ref();
+    let ripple_delay = per_volt
+        .zip(q.and_then(|q| q.ripple_volts))
+        .map(|(d, r)| d.abs() * r);
+    let drift_delay = per_volt
+        .zip(q.and_then(|q| q.drift))
+        .map(|(d, x)| d.abs() * x * v);
+    // A ripple taken as a sine: rms = peak-to-peak / (2√2), uncorrelated with the pulses.
+    let per_pulse = rss(&[
+        jitter,
+        ripple_delay.map_or(0.0, |r| r / (2.0 * std::f64::consts::SQRT_2)),
+    ]);
+    let pulses = design
+        .signal
+        .readout
+        .as_ref()
+        .and_then(|r| r.average_pulses)
+        .unwrap_or(DEFAULT_AVERAGE_PULSES);
+    let drift = drift_delay.unwrap_or(0.0);
+    Bench {
+        transit: transit.map(|x| x.0),
+        delay_per_volt: per_volt,
+        ripple_delay,
+        drift_delay,
+        per_pulse,
+        pulses,
+        averaged: (per_pulse * per_pulse / pulses as f64 + drift * drift).sqrt(),
+        drift_dominates_after: (drift > 0.0).then(|| (per_pulse / drift).powi(2)),
+    }
 }
 
 /// A PIN photodiode and transimpedance amplifier giving the same peak voltage and rise.
@@ -1397,9 +1663,10 @@ pub fn light_match(
     // The pulse is linear in the charge: one waveform per coulomb serves every cell.
     let unit = waveform::convolved_pulse(&shape, sigma, 1.0);
     let c = circuit(design);
-    let w = waveform::simulate(&c, &unit, 0.0);
+    let fe = s.front_end.as_ref();
+    let (far, w) = at_instrument(&c, fe, &unit);
     let f = w.measure_first(c.cable.map(|l| l.delay));
-    let echo = echoes(&c, &w);
+    let echo = echoes(&c, &far);
     let r = s.readout.as_ref();
     let displayed = f.rise.map(|x| {
         rss(&[
@@ -1407,11 +1674,12 @@ pub fn light_match(
             r.map_or(0.0, |r| rise_bandwidth(r.response).0 / r.bandwidth),
         ])
     });
-    let one_pe = waveform::simulate(
+    let one_pe = at_instrument(
         &c,
+        fe,
         &waveform::gaussian_pulse(sigma_ser, mult * ELEMENTARY_CHARGE),
-        0.0,
     )
+    .1
     .measure()
     .peak;
     lines
@@ -1431,7 +1699,7 @@ pub fn light_match(
                         photoelectrons: npe,
                         peak_volts: peak,
                         verdict: r.map(|ro| {
-                            let n = noise(&c, ro, peak);
+                            let n = noise(&c, ro, peak, fe);
                             judge(peak, n, displayed, ro, Some(npe), echo, Some(one_pe)).verdict
                         }),
                     }

@@ -58,12 +58,7 @@ pub use crate::constants::ELEMENTARY_CHARGE;
 pub const DEVIATION_MARGIN: f64 = 0.85;
 /// Default power derating: parts run at no more than half their rated power (common practice).
 pub const DEFAULT_DERATING: f64 = 0.5;
-/// Capacitor ratings offered, volts (common values of film and ceramic parts; common practice).
-pub const CAPACITOR_RATINGS: [f64; 12] = [
-    50.0, 100.0, 200.0, 250.0, 400.0, 500.0, 630.0, 1000.0, 1500.0, 2000.0, 3000.0, 5000.0,
-];
-/// Capacitor rating margin over the gap voltage (common practice: at least 1.5×).
-pub const CAPACITOR_RATING_MARGIN: f64 = 1.5;
+pub use crate::eseries::CAPACITOR_RATING_MARGIN;
 /// Ratio error (worst gap, as |ln(share/ideal)|) the snapping may give up for a smaller divider
 /// current: 0.25 % (a quarter of a 1 % part's tolerance; this tool's choice).
 pub const RATIO_ERROR_SLACK: f64 = 0.0025;
@@ -537,6 +532,7 @@ pub fn parse_requirements(text: &str, file: &str) -> Result<Requirements, Sizing
             output_capacitance: raw.supply.output_capacitance.clone(),
             quality: raw.supply.quality,
             output_resistance: None,
+            multiplier: None,
         },
         divider: RawDivider {
             gaps: (0..=n).map(|_| RawElement::R(Value::Number(1e6))).collect(),
@@ -556,6 +552,8 @@ pub fn parse_requirements(text: &str, file: &str) -> Result<Requirements, Sizing
         train: None,
         light: None,
         readout: None,
+        front_end: None,
+        counting: None,
     };
     let base = design::check_raw(placeholder, f).map_err(|e| match e {
         DesignError::Field {
@@ -1258,22 +1256,7 @@ fn size_capacitors(
         // Sized at the low end of the tolerance so that every part holds the droop.
         let need = qi / (droop * v * (1.0 - req.capacitor_tolerance));
         let c = series.clean(series.snap(need, Snap::Up).unwrap_or(need));
-        let rating = CAPACITOR_RATINGS
-            .iter()
-            .copied()
-            .find(|r| *r >= CAPACITOR_RATING_MARGIN * v)
-            .ok_or_else(|| {
-                infeasible(
-                    req,
-                    "capacitors",
-                    format!(
-                        "gap {} holds {}: no capacitor rating offered reaches {}× that",
-                        j + 1,
-                        format_eng(v, "V"),
-                        CAPACITOR_RATING_MARGIN
-                    ),
-                )
-            })?;
+        let rating = crate::eseries::capacitor_rating(v);
         if c > 1e-4 {
             return Err(infeasible(
                 req,

@@ -59,6 +59,11 @@ pub struct TimingSpread {
     pub constant_fraction: f64,
     /// Trials that crossed the threshold.
     pub crossed: usize,
+    /// Leading-edge walk: the least-squares slope of the crossing time against the trial's
+    /// peak, s/V (negative: larger pulses cross earlier).
+    pub leading_edge_walk: f64,
+    /// Constant-fraction walk: the same slope for the constant-fraction time, s/V.
+    pub constant_fraction_walk: f64,
 }
 
 /// Run the Monte Carlo; `None` when fewer than 20 trials cross the threshold.
@@ -102,6 +107,7 @@ pub fn monte_carlo(input: &TimingInput) -> Option<TimingSpread> {
     let gain = Gamma::new(1.0 / var, var).ok()?;
     let tts = Normal::new(0.0, input.sigma_tts.max(0.0)).ok()?;
     let (mut le, mut cf) = (Vec::new(), Vec::new());
+    let (mut peaks_le, mut peaks_cf) = (Vec::new(), Vec::new());
     let mut bins = vec![0.0; grid];
     let mut v = vec![0.0; grid];
     for _ in 0..input.trials {
@@ -129,15 +135,51 @@ pub fn monte_carlo(input: &TimingInput) -> Option<TimingSpread> {
         };
         le.push(t_le);
         let peak = v.iter().copied().fold(0.0, f64::max);
+        peaks_le.push(peak);
         if let Some(t_cf) = first_crossing(&v, input.fraction * peak, dt) {
             cf.push(t_cf);
+            peaks_cf.push(peak);
         }
     }
     (le.len() >= 20).then(|| TimingSpread {
         leading_edge: std_dev(&le),
         constant_fraction: std_dev(&cf),
         crossed: le.len(),
+        leading_edge_walk: slope(&peaks_le, &le),
+        constant_fraction_walk: slope(&peaks_cf, &cf),
     })
+}
+
+/// Least-squares slope of `y` against `x` (0 when `x` does not vary).
+fn slope(x: &[f64], y: &[f64]) -> f64 {
+    let n = x.len().min(y.len());
+    if n < 2 {
+        return 0.0;
+    }
+    let mx = x[..n].iter().sum::<f64>() / n as f64;
+    let my = y[..n].iter().sum::<f64>() / n as f64;
+    let sxy: f64 = (0..n).map(|i| (x[i] - mx) * (y[i] - my)).sum();
+    let sxx: f64 = (0..n).map(|i| (x[i] - mx).powi(2)).sum();
+    if sxx > 0.0 { sxy / sxx } else { 0.0 }
+}
+
+/// Transit time at supply magnitude `volts` from a stated `t0` at `v0`: `t0 √(v0/V)` (electron
+/// transit across fixed gaps, t ∝ V^(−1/2): from memory), and its change per volt of supply,
+/// `dt/dV = −t/(2V)`.
+pub fn transit_at(
+    t0: uom::si::f64::Time,
+    v0: uom::si::f64::ElectricPotential,
+    volts: uom::si::f64::ElectricPotential,
+) -> (uom::si::f64::Time, f64) {
+    use uom::si::electric_potential::volt;
+    use uom::si::time::second;
+    let (t0, v0, v) = (
+        t0.get::<second>(),
+        v0.get::<volt>(),
+        volts.get::<volt>().abs(),
+    );
+    let t = t0 * (v0.abs() / v).sqrt();
+    (uom::si::f64::Time::new::<second>(t), -t / (2.0 * v))
 }
 
 fn single_width(w: &Waveform) -> f64 {

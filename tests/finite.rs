@@ -53,6 +53,10 @@ pub const NULLABLE: &[&str] = &[
     "supply_quality.setting_accuracy",
     "supply_quality.setting_gain",
     "supply_quality.meets",
+    // report: supply_model (no supply.multiplier block; no filter)
+    "supply_model",
+    "supply_model.filter_ohms",
+    "supply_model.filter_farads",
     // spread: optional inputs, limits not reached, gaps without a limit or a resistor rating
     "inputs.pulse_charge_coulombs",
     "minus_1pct",
@@ -115,6 +119,31 @@ pub const NULLABLE: &[&str] = &[
     "verdict",
     "meets_rise_need",
     "first_echo",
+    // report: front end, photon counting, timing bench (docs/json.md "Front end, photon
+    // counting and timing-bench JSON"): absent parts, figures of the other kind of front end,
+    // no transit time or supply quality given, a Monte Carlo that could not run
+    "front_end",
+    "photon_counting",
+    "enc_electrons",
+    "charge_in_coulombs",
+    "step_volts",
+    "peaking_time_s",
+    "peak_factor",
+    "peak_factor_theory",
+    "peak_to_valley",
+    "accidental_rate_hz",
+    "dead_time_loss",
+    "dark_rate_hz",
+    "coincidence_window_s",
+    "other_rate_hz",
+    "pulse_pair_resolution_s",
+    "timing.walk_leading_edge_mc_s",
+    "timing.walk_constant_fraction_mc_s",
+    "timing.transit_s",
+    "timing.delay_per_volt_s",
+    "timing.ripple_delay_s",
+    "timing.drift_delay_s",
+    "timing.drift_dominates_after_pulses",
 ];
 
 /// Whether the value at `path` (e.g. `gaps[3].delta`) may be null.

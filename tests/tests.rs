@@ -19,10 +19,15 @@ mod edge_cases;
 mod file_safety;
 /// Shared check for non-finite figures in reports (also used by the fuzz target).
 mod finite;
+/// Front ends, photon counting and timing benches: shaping theory, counting statistics and
+/// the Poisson cascade by Monte Carlo.
+mod frontends;
 /// Golden reports of every demo, so a restructuring cannot move a figure silently.
 mod golden;
 /// Hostile input as properties: arbitrary bytes, byte- and value-mutated designs.
 mod hostile;
+/// The supply as built: the voltage multiplier against ngspice and the textbook.
+mod multiplier;
 /// The DC operating point against ngspice on the same netlist.
 mod ngspice_dc;
 /// Figures, HTML, Markdown, JSON schema, netlist and output hygiene.

@@ -8,7 +8,10 @@ use serde::Deserialize;
 
 use super::{Checker, DesignError, RawDesign, Value};
 use crate::cathode::{self, Cathode, Curve};
+use crate::counting::CountingSpec;
+use crate::frontend::{ChargePreamp, FrontEnd, VoltageAmplifier};
 use crate::light::{self, Background, LightSpec, Shape, SourceKind, Spectrum};
+use crate::limits::{self, Range};
 use crate::units::{self, Kind};
 
 /// Single-electron rise time assumed when the tube gives none (10–90 %, from memory: a few ns
@@ -255,6 +258,93 @@ pub struct RawReadout {
     /// Cable from the base to the instrument.
     #[serde(default)]
     pub cable: Option<RawCable>,
+    /// Pulses averaged for a delay measurement (timing benches).
+    #[serde(default)]
+    pub average_pulses: Option<i64>,
+}
+
+/// The tube's transit time at a supply voltage.
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct RawTransit {
+    /// Transit time (cathode to anode pulse).
+    pub time: Value,
+    /// Supply voltage magnitude at which it holds (default the design's supply).
+    #[serde(default)]
+    pub volts: Option<Value>,
+}
+
+/// An amplifier between the signal path and the instrument (the `front_end` block).
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub enum RawFrontEnd {
+    /// A fast voltage amplifier.
+    Voltage {
+        /// Voltage gain.
+        gain: f64,
+        /// −3 dB bandwidth.
+        bandwidth: Value,
+        /// Response type (default SinglePole).
+        #[serde(default)]
+        response: Option<InstrumentResponse>,
+        /// Input resistance: the far-end termination.
+        input_resistance: Value,
+        /// Input capacitance (default 0).
+        #[serde(default)]
+        input_capacitance: Option<Value>,
+        /// Input voltage noise density, e.g. "1.5 nV/rtHz".
+        noise_density: Value,
+    },
+    /// A charge-sensitive preamplifier with a CR–RC^n shaper.
+    Charge {
+        /// Feedback capacitance.
+        feedback_capacitance: Value,
+        /// Feedback resistance.
+        feedback_resistance: Value,
+        /// Shaping time constant τ.
+        shaping_time: Value,
+        /// Number of RC integrators n.
+        order: i64,
+        /// Shaper gain (default 1).
+        #[serde(default)]
+        shaper_gain: Option<f64>,
+        /// Input resistance (default 50 ohm).
+        #[serde(default)]
+        input_resistance: Option<Value>,
+        /// Input capacitance of the amplifier (default 5 pF).
+        #[serde(default)]
+        input_capacitance: Option<Value>,
+        /// Series noise density (default 1 nV/rtHz).
+        #[serde(default)]
+        noise_density: Option<Value>,
+        /// Parallel noise current density besides the resistors' (default 0).
+        #[serde(default)]
+        noise_current: Option<Value>,
+        /// Measured equivalent noise charge, electrons rms (replaces the computed one).
+        #[serde(default)]
+        enc_electrons: Option<f64>,
+    },
+}
+
+/// The `counting` block.
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct RawCounting {
+    /// Dark-count rate above the threshold.
+    #[serde(default)]
+    pub dark_rate: Option<Value>,
+    /// Dead time of the counter (default the pulse-pair resolution).
+    #[serde(default)]
+    pub dead_time: Option<Value>,
+    /// Coincidence window τ_w (pulses within ±τ_w coincide).
+    #[serde(default)]
+    pub coincidence_window: Option<Value>,
+    /// The other channel's rate (default the same dark rate).
+    #[serde(default)]
+    pub other_rate: Option<Value>,
+    /// Weight of the under-amplified part of the single-photoelectron spectrum (default 10 %).
+    #[serde(default)]
+    pub under_amplified: Option<Value>,
 }
 
 // ---------------------------------------------------------------------------------------------
@@ -272,6 +362,8 @@ pub struct TubeTiming {
     pub rise_assumed: bool,
     /// Whether the spread was assumed.
     pub spread_assumed: bool,
+    /// Transit time, s, and the supply magnitude it holds at (V; `None`: the design's supply).
+    pub transit: Option<(f64, Option<f64>)>,
 }
 
 /// A checked cable.
@@ -321,6 +413,8 @@ pub struct ReadoutSpec {
     pub threshold: Option<f64>,
     /// Cable.
     pub cable: Option<CableSpec>,
+    /// Pulses averaged for a delay measurement.
+    pub average_pulses: Option<u64>,
 }
 
 /// Everything the signal budget reads from a design.
@@ -336,6 +430,10 @@ pub struct SignalSpec {
     pub light: Option<LightSpec>,
     /// The readout, if given.
     pub readout: Option<ReadoutSpec>,
+    /// The front end, if given.
+    pub front_end: Option<FrontEnd>,
+    /// Photon counting, if given.
+    pub counting: Option<CountingSpec>,
 }
 
 fn wavelength(c: &Checker, field: &str, v: &Value) -> Result<f64, DesignError> {
@@ -839,6 +937,203 @@ fn check_readout(c: &Checker, r: &RawReadout) -> Result<ReadoutSpec, DesignError
         rise_need,
         threshold,
         cable,
+        average_pulses: match r.average_pulses {
+            None => None,
+            Some(n) => {
+                Some(integer(c, "readout.average_pulses", n, limits::AVERAGE_PULSES)? as u64)
+            }
+        },
+    })
+}
+
+fn integer(c: &Checker, field: &str, n: i64, (lo, hi): (i64, i64)) -> Result<i64, DesignError> {
+    if (lo..=hi).contains(&n) {
+        Ok(n)
+    } else {
+        Err(c.fail(
+            field,
+            format!("expected a whole number from {lo} to {hi}, found {n}"),
+        ))
+    }
+}
+
+fn plain(c: &Checker, field: &str, x: f64, range: &Range) -> Result<f64, DesignError> {
+    if range.contains(x) {
+        Ok(x)
+    } else {
+        Err(c.fail(
+            field,
+            format!(
+                "expected a number from {}, found {}",
+                range.describe(),
+                units::show_number(x)
+            ),
+        ))
+    }
+}
+
+/// A noise density: the quantity with an optional "/rtHz", "/√Hz" or "/sqrt(Hz)" after it.
+fn density(c: &Checker, field: &str, v: &Value, range: &Range) -> Result<f64, DesignError> {
+    let v = match v {
+        Value::Text(t) => {
+            let mut t = t.trim().to_string();
+            for suffix in ["/rtHz", "/√Hz", "/sqrt(Hz)", "/sqrtHz"] {
+                if let Some(stripped) = t.strip_suffix(suffix) {
+                    t = stripped.trim_end().to_string();
+                    break;
+                }
+            }
+            Value::Text(t)
+        }
+        other => other.clone(),
+    };
+    c.within(field, &v, range).map_err(|e| match e {
+        DesignError::Field {
+            file,
+            field,
+            message,
+        } => DesignError::Field {
+            file,
+            field,
+            message: format!("{message} (a noise density, per √Hz)"),
+        },
+        other => other,
+    })
+}
+
+fn check_front_end(c: &Checker, f: &RawFrontEnd) -> Result<FrontEnd, DesignError> {
+    Ok(match f {
+        RawFrontEnd::Voltage {
+            gain,
+            bandwidth,
+            response,
+            input_resistance,
+            input_capacitance,
+            noise_density,
+        } => FrontEnd::Voltage(VoltageAmplifier {
+            gain: plain(c, "front_end.gain", *gain, &limits::FRONT_GAIN)?,
+            bandwidth: c.within("front_end.bandwidth", bandwidth, &limits::FRONT_BANDWIDTH)?,
+            response: response.unwrap_or(InstrumentResponse::SinglePole),
+            input_resistance: c.within(
+                "front_end.input_resistance",
+                input_resistance,
+                &limits::FRONT_INPUT_RESISTANCE,
+            )?,
+            input_capacitance: match input_capacitance {
+                None => 0.0,
+                Some(v) => c.within(
+                    "front_end.input_capacitance",
+                    v,
+                    &limits::FRONT_INPUT_CAPACITANCE,
+                )?,
+            },
+            noise_density: density(
+                c,
+                "front_end.noise_density",
+                noise_density,
+                &limits::NOISE_DENSITY,
+            )?,
+        }),
+        RawFrontEnd::Charge {
+            feedback_capacitance,
+            feedback_resistance,
+            shaping_time,
+            order,
+            shaper_gain,
+            input_resistance,
+            input_capacitance,
+            noise_density,
+            noise_current,
+            enc_electrons,
+        } => FrontEnd::Charge(ChargePreamp {
+            feedback_capacitance: c.within(
+                "front_end.feedback_capacitance",
+                feedback_capacitance,
+                &limits::FEEDBACK_CAPACITANCE,
+            )?,
+            feedback_resistance: c.within(
+                "front_end.feedback_resistance",
+                feedback_resistance,
+                &limits::FEEDBACK_RESISTANCE,
+            )?,
+            shaping_time: c.within(
+                "front_end.shaping_time",
+                shaping_time,
+                &limits::SHAPING_TIME,
+            )?,
+            order: integer(c, "front_end.order", *order, limits::SHAPER_ORDER)? as u32,
+            shaper_gain: match shaper_gain {
+                None => 1.0,
+                Some(g) => plain(c, "front_end.shaper_gain", *g, &limits::SHAPER_GAIN)?,
+            },
+            input_resistance: match input_resistance {
+                None => crate::frontend::TYPICAL_PREAMP_INPUT_OHMS,
+                Some(v) => c.within(
+                    "front_end.input_resistance",
+                    v,
+                    &limits::FRONT_INPUT_RESISTANCE,
+                )?,
+            },
+            input_capacitance: match input_capacitance {
+                None => crate::frontend::TYPICAL_PREAMP_INPUT_FARADS,
+                Some(v) => c.within(
+                    "front_end.input_capacitance",
+                    v,
+                    &limits::FRONT_INPUT_CAPACITANCE,
+                )?,
+            },
+            noise_density: match noise_density {
+                None => crate::frontend::TYPICAL_PREAMP_NOISE,
+                Some(v) => density(c, "front_end.noise_density", v, &limits::NOISE_DENSITY)?,
+            },
+            noise_current: match noise_current {
+                None => 0.0,
+                Some(v) => density(c, "front_end.noise_current", v, &limits::NOISE_CURRENT)?,
+            },
+            enc_electrons: match enc_electrons {
+                None => None,
+                Some(e) => Some(plain(
+                    c,
+                    "front_end.enc_electrons",
+                    *e,
+                    &limits::ENC_ELECTRONS,
+                )?),
+            },
+        }),
+    })
+}
+
+fn check_counting(c: &Checker, k: &RawCounting) -> Result<CountingSpec, DesignError> {
+    let opt = |field: &str, v: &Option<Value>, range: &Range| -> Result<Option<f64>, DesignError> {
+        v.as_ref().map(|v| c.within(field, v, range)).transpose()
+    };
+    let under = match &k.under_amplified {
+        None => None,
+        Some(v) => {
+            let x = c.quantity("counting.under_amplified", v, Kind::Ratio)?;
+            if !limits::UNDER_AMPLIFIED.contains(x) {
+                return Err(c.fail(
+                    "counting.under_amplified",
+                    format!(
+                        "expected a fraction from {} such as \"10 %\", found {v}",
+                        limits::UNDER_AMPLIFIED.describe()
+                    ),
+                ));
+            }
+            Some(x)
+        }
+    };
+    Ok(CountingSpec {
+        dark_rate: opt("counting.dark_rate", &k.dark_rate, &limits::COUNT_RATE)?,
+        dead_time: opt("counting.dead_time", &k.dead_time, &limits::DEAD_TIME)?,
+        coincidence_window: opt(
+            "counting.coincidence_window",
+            &k.coincidence_window,
+            &limits::COINCIDENCE_WINDOW,
+        )?,
+        other_rate: opt("counting.other_rate", &k.other_rate, &limits::COUNT_RATE)?,
+        under_amplified: under.unwrap_or(crate::counting::TYPICAL_UNDER_AMPLIFIED),
+        under_assumed: under.is_none(),
     })
 }
 
@@ -868,6 +1163,26 @@ pub(super) fn check_signal(c: &Checker, raw: &RawDesign) -> Result<SignalSpec, D
         None => None,
         Some(r) => Some(check_readout(c, r)?),
     };
+    let transit = match &t.transit_time {
+        None => None,
+        Some(tr) => Some((
+            c.within("tube.transit_time.time", &tr.time, &limits::TRANSIT_TIME)?,
+            tr.volts
+                .as_ref()
+                .map(|v| c.within("tube.transit_time.volts", v, &limits::TUBE_VOLTS))
+                .transpose()?,
+        )),
+    };
+    let front_end = raw
+        .front_end
+        .as_ref()
+        .map(|f| check_front_end(c, f))
+        .transpose()?;
+    let counting = raw
+        .counting
+        .as_ref()
+        .map(|k| check_counting(c, k))
+        .transpose()?;
     Ok(SignalSpec {
         cathode,
         cathode_assumed,
@@ -876,8 +1191,11 @@ pub(super) fn check_signal(c: &Checker, raw: &RawDesign) -> Result<SignalSpec, D
             tts_fwhm,
             rise_assumed,
             spread_assumed,
+            transit,
         },
         light,
         readout,
+        front_end,
+        counting,
     })
 }

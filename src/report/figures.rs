@@ -214,17 +214,36 @@ pub fn pulse(s: &crate::signal::SignalBudget) -> Figure {
     let w = &s.waveform;
     let p = &s.pulse;
     let (lo, hi) = pulse_window(s);
+    // With a front end the figure shows its output as computed (its sign depends on the
+    // amplifier); without, the anode pulse as the instrument shows it, negative-going.
+    let place = if s.front_end.is_some() {
+        "the front end's output"
+    } else {
+        "the instrument"
+    };
     let mut f = Figure::new(
         "pulse",
-        "Pulse at the instrument (computed waveform, negative-going as displayed)",
+        &if s.front_end.is_some() {
+            format!("Pulse at {place} (computed waveform, magnitude)")
+        } else {
+            format!("Pulse at {place} (computed waveform, negative-going as displayed)")
+        },
         Axis::linear("time from the start of the anode current", Some("s")),
-        Axis::linear("signal at the instrument", Some("V")),
-    )
-    .with("computed pulse", Style::Line, displayed(w, lo, hi));
-    f.markers.push(Marker::Y(-0.9 * p.peak, "90 %".to_string()));
-    f.markers.push(Marker::Y(-0.1 * p.peak, "10 %".to_string()));
+        Axis::linear(&format!("signal at {place}"), Some("V")),
+    );
+    let sign = if s.front_end.is_some() { 1.0 } else { -1.0 };
+    let pts: Vec<(f64, f64)> = displayed(w, lo, hi)
+        .into_iter()
+        .map(|(t, shown)| (t, -sign * shown))
+        .collect();
+    f = f.with("computed pulse", Style::Line, pts);
+    f.markers
+        .push(Marker::Y(sign * 0.9 * p.peak, "90 %".to_string()));
+    f.markers
+        .push(Marker::Y(sign * 0.1 * p.peak, "10 %".to_string()));
     f.title = format!(
-        "Pulse at the instrument: peak −{}{}",
+        "Pulse at {place}: peak {}{}{}",
+        if sign < 0.0 { "−" } else { "" },
         crate::units::format_eng(p.peak, "V"),
         p.rise.map_or(String::new(), |r| format!(
             ", 10–90 % rise {}",
@@ -284,6 +303,45 @@ pub fn pulse_after(s: &crate::signal::SignalBudget) -> Option<Figure> {
     }
     f.legend = crate::plot::Legend::LowerRight;
     Some(f)
+}
+
+/// The single-photoelectron spectrum with the noise, and the discriminator threshold.
+pub fn spe_spectrum(c: &crate::counting::PhotonCounting) -> Figure {
+    let sp = &c.spectrum;
+    let k = (sp.p.len() / 400).max(1);
+    let pts: Vec<(f64, f64)> =
+        sp.x.chunks(k)
+            .zip(sp.p.chunks(k))
+            .map(|(xs, ps)| {
+                (
+                    xs.iter().sum::<f64>() / xs.len() as f64,
+                    ps.iter().sum::<f64>() / (sp.dx * ps.len() as f64),
+                )
+            })
+            .collect();
+    let mut f = Figure::new(
+        "spe-spectrum",
+        &format!(
+            "Single-photoelectron spectrum: {:.1} % above the threshold{}",
+            c.threshold_efficiency * 100.0,
+            c.peak_to_valley
+                .map_or_else(String::new, |p| format!(", peak-to-valley {p:.2}"))
+        ),
+        Axis::linear(
+            "charge over the dynode multiplication (1 = mean photoelectron)",
+            None,
+        ),
+        Axis::linear("probability density", None),
+    )
+    .with(
+        "gamma + exponential, with the baseline noise",
+        Style::Line,
+        pts,
+    );
+    f.markers
+        .push(Marker::X(c.threshold.1, "threshold".to_string()));
+    f.legend = crate::plot::Legend::UpperRight;
+    f
 }
 
 /// The cathode's quantum efficiency with the light's spectrum marked.
@@ -386,6 +444,9 @@ pub fn all(a: &Analysis) -> Vec<Figure> {
         v.push(cathode(a));
         if s.sweep.rows.len() > 1 {
             v.extend(load_sweep(s));
+        }
+        if let Some(c) = &s.counting {
+            v.push(spe_spectrum(c));
         }
     }
     if let Some(t) = &a.train {

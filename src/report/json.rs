@@ -71,6 +71,7 @@ pub fn to_value(a: &Analysis) -> Value {
         "gain_sensitivity_dlnG_dlnV": a.sensitivity,
         "excess_noise_factor": t.excess_noise_factor(&a.op.tube_gap_volts()),
         "supply_quality": crate::report::supply::to_value(a),
+        "supply_model": crate::report::supply::model_value(a),
         "linearity": {
             "plus_1pct_amps": l.plus_1pct,
             "minus_1pct_amps": l.minus_1pct,

@@ -87,6 +87,9 @@ pub fn render(a: &Analysis, format: Format) -> String {
 /// The HTML and Markdown renderers show each one; a capability adds its section here.
 pub fn extra_sections(a: &Analysis) -> Vec<(String, String)> {
     let mut v = vec![(supply::TITLE.to_string(), supply::body(a))];
+    if let Some(b) = supply::model_body(a) {
+        v.push((supply::MODEL_TITLE.to_string(), b));
+    }
     if a.signal.is_some() {
         let mut s = String::new();
         signal::render_text(&mut s, a);

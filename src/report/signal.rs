@@ -54,6 +54,169 @@ fn share(x: f64) -> String {
     }
 }
 
+fn front_end_text(out: &mut String, f: &crate::signal::FrontEndFigures) {
+    let _ = writeln!(out, "FRONT END (the pulse above is its output)");
+    wrap(out, "  amplifier     ", &f.description);
+    let _ = writeln!(
+        out,
+        "  peak          {} out for {} at its input; output peak at {}",
+        eng(f.peak, "V"),
+        eng(f.input_peak, "V"),
+        eng(f.t_peak, "s")
+    );
+    if let (Some(q), Some(step)) = (f.charge_in, f.step) {
+        let _ = writeln!(
+            out,
+            "  charge        {} into the preamplifier: step Q/C_f = {}",
+            eng(q, "C"),
+            eng(step, "V")
+        );
+    }
+    if let (Some(tp), Some(k), Some(th)) = (f.peaking_time, f.peak_factor, f.peak_factor_theory) {
+        wrap(
+            out,
+            "  shaped        ",
+            &format!(
+                "peaks {} after the charge arrives, at {:.4} of the step × shaper gain (computed in time; CR–RC^n theory gives n·τ and n^n e^(−n)/n! = {:.4})",
+                eng(tp, "s"),
+                k,
+                th
+            ),
+        );
+    }
+    let mut noise = format!(
+        "{} rms own, {} rms from the path's resistors, at the output",
+        eng(f.noise.amplifier, "V"),
+        eng(f.noise.johnson, "V")
+    );
+    if let Some(e) = f.noise.enc_electrons {
+        noise.push_str(&format!(
+            "; equivalent noise charge {e:.0} electrons rms (shaper noise indices from CR–RC^n theory, from memory; 1/f noise not counted)"
+        ));
+    } else {
+        noise.push_str(" (input noise density over the noise bandwidth, in quadrature)");
+    }
+    wrap(out, "  noise         ", &noise);
+    if let Some(snr) = f.snr {
+        let _ = writeln!(out, "  S/N           {:.1} at the instrument", snr.min(1e9));
+    }
+    let _ = writeln!(out);
+}
+
+fn bench_text(out: &mut String, b: &crate::signal::Bench) {
+    match (b.transit, b.delay_per_volt) {
+        (Some(t), Some(d)) => {
+            wrap(
+                out,
+                "  transit time        ",
+                &format!(
+                    "{} at this supply, moving {} per volt of supply (t ∝ V^(−1/2), from memory)",
+                    eng(t, "s"),
+                    eng(d, "s")
+                ),
+            );
+            let mut words = Vec::new();
+            if let Some(r) = b.ripple_delay {
+                words.push(format!(
+                    "the supply's ripple moves it {} peak to peak",
+                    eng(r, "s")
+                ));
+            }
+            if let Some(x) = b.drift_delay {
+                words.push(format!("its drift {} over the run", eng(x, "s")));
+            }
+            if !words.is_empty() {
+                wrap(out, "  delay shifts        ", &words.join("; "));
+            }
+        }
+        _ => {
+            let _ = writeln!(
+                out,
+                "  transit time        not known (give tube.transit_time for the delay's change with the supply)"
+            );
+        }
+    }
+    wrap(
+        out,
+        "  averaged delay      ",
+        &format!(
+            "{} rms over {} pulses ({} per pulse{}){}",
+            eng(b.averaged, "s"),
+            b.pulses,
+            eng(b.per_pulse, "s"),
+            if b.ripple_delay.is_some() {
+                ", ripple taken as a sine"
+            } else {
+                ""
+            },
+            b.drift_dominates_after.map_or_else(
+                || ": √N narrowing".to_string(),
+                |n| format!(": √N narrowing until the drift dominates beyond about {n:.0} pulses")
+            )
+        ),
+    );
+}
+
+fn counting_text(out: &mut String, c: &crate::counting::PhotonCounting) {
+    let _ = writeln!(out, "PHOTON COUNTING");
+    for n in &c.notes {
+        wrap(out, "  * ", n);
+    }
+    let _ = writeln!(
+        out,
+        "  threshold           {} ({:.2} of a photoelectron): {:.1} % of single photoelectrons above it",
+        eng(c.threshold.0, "V"),
+        c.threshold.1,
+        c.threshold_efficiency * 100.0
+    );
+    let _ = writeln!(
+        out,
+        "  peak-to-valley      {}",
+        c.peak_to_valley.map_or_else(
+            || "— (no single-photoelectron peak stands out of the noise)".to_string(),
+            |p| format!("{p:.2}")
+        )
+    );
+    if let Some(d) = c.dark_rate {
+        let _ = writeln!(out, "  dark counts         {} (as given)", eng(d, "Hz"));
+    }
+    if let Some((r, w, r2)) = c.accidental {
+        let _ = writeln!(
+            out,
+            "  accidentals         {} with a second channel at {} in a ±{} window (2 τ_w R1 R2)",
+            eng(r, "Hz"),
+            eng(r2, "Hz"),
+            eng(w, "s")
+        );
+    }
+    if let Some(p) = c.pulse_pair {
+        let _ = writeln!(
+            out,
+            "  pulse-pair          {} (two single photoelectrons closer than this stay above the threshold between them)",
+            eng(p, "s")
+        );
+    }
+    if let Some(l) = c.losses {
+        wrap(
+            out,
+            "  counting losses     ",
+            &format!(
+                "at {} true: {} lost non-paralysable, {} paralysable, with a {} dead time{}",
+                eng(l.true_rate, "Hz"),
+                share(l.non_paralysable),
+                share(l.paralysable),
+                eng(l.dead_time, "s"),
+                if l.from_pulse_pair {
+                    " (the pulse-pair resolution; give counting.dead_time)"
+                } else {
+                    ""
+                }
+            ),
+        );
+    }
+    let _ = writeln!(out);
+}
+
 /// Append the signal sections to a text report.
 pub fn render_text(out: &mut String, a: &Analysis) {
     let Some(s) = &a.signal else {
@@ -161,11 +324,16 @@ pub fn render_text(out: &mut String, a: &Analysis) {
     let e = &s.estimates;
     let _ = writeln!(
         out,
-        "  peak          {:<12} estimates: {} = {} (short-pulse limit), Q/C = {} (integrating limit)",
+        "  peak          {:<12} estimates: {} = {} (short-pulse limit), Q/C = {} (integrating limit){}",
         eng(p.peak, "V"),
         e.short_pulse_formula,
         eng(e.i_times_r, "V"),
-        eng(e.q_over_c, "V")
+        eng(e.q_over_c, "V"),
+        if s.front_end.is_some() {
+            " at the front end's input"
+        } else {
+            ""
+        }
     );
     let _ = writeln!(
         out,
@@ -227,6 +395,10 @@ pub fn render_text(out: &mut String, a: &Analysis) {
     }
     let _ = writeln!(out);
 
+    if let Some(f) = &s.front_end {
+        front_end_text(out, f);
+    }
+
     if let Some(r) = &s.readable {
         let _ = writeln!(out, "READOUT: {}", r.verdict.as_str().to_uppercase());
         for why in &r.reasons {
@@ -282,7 +454,7 @@ pub fn render_text(out: &mut String, a: &Analysis) {
         if let Some(j) = t.cfd_jitter {
             let _ = writeln!(
                 out,
-                "  constant fraction   {} rms at {:.0} % of each pulse's own peak (no amplitude walk)",
+                "  constant fraction   {} rms at {:.0} % of each pulse's own peak (removes amplitude walk to first order)",
                 eng(j, "s"),
                 crate::signal::CFD_FRACTION * 100.0
             );
@@ -297,7 +469,23 @@ pub fn render_text(out: &mut String, a: &Analysis) {
             eng(t.walk_range.0, "V"),
             eng(t.walk_range.1, "V")
         );
+        if let (Some(le), Some(cf)) = (t.walk_leading_edge_mc, t.walk_constant_fraction_mc) {
+            wrap(
+                out,
+                "  walk, both ways     ",
+                &format!(
+                    "leading edge {}, constant fraction {} over the same range (Monte Carlo: least-squares slope of each trial's time against its own peak)",
+                    eng(le, "s"),
+                    eng(cf, "s")
+                ),
+            );
+        }
+        bench_text(out, &t.bench);
         let _ = writeln!(out);
+    }
+
+    if let Some(c) = &s.counting {
+        counting_text(out, c);
     }
 
     if s.average_anode_amps.is_some() || s.background.is_some() {
@@ -455,6 +643,16 @@ fn budget_json(s: &SignalBudget) -> Value {
             "total_jitter_s": t.total_jitter,
             "walk_s": t.walk,
             "walk_range_volts": [t.walk_range.0, t.walk_range.1],
+            "walk_leading_edge_mc_s": t.walk_leading_edge_mc,
+            "walk_constant_fraction_mc_s": t.walk_constant_fraction_mc,
+            "transit_s": t.bench.transit,
+            "delay_per_volt_s": t.bench.delay_per_volt,
+            "ripple_delay_s": t.bench.ripple_delay,
+            "drift_delay_s": t.bench.drift_delay,
+            "per_pulse_jitter_s": t.bench.per_pulse,
+            "average_pulses": t.bench.pulses,
+            "averaged_delay_resolution_s": t.bench.averaged,
+            "drift_dominates_after_pulses": t.bench.drift_dominates_after,
         })),
         "average_anode_amps": s.average_anode_amps,
         "background": s.background.map(|b| json!({
@@ -554,4 +752,71 @@ pub fn add_json(v: &mut Value, a: &Analysis) {
         }),
     );
     obj.insert("signal".into(), s.map_or(Value::Null, budget_json));
+    obj.insert(
+        "front_end".into(),
+        s.and_then(|s| s.front_end.as_ref())
+            .map_or(Value::Null, front_end_json),
+    );
+    obj.insert(
+        "photon_counting".into(),
+        s.and_then(|s| s.counting.as_ref())
+            .map_or(Value::Null, counting_json),
+    );
+}
+
+fn front_end_json(f: &crate::signal::FrontEndFigures) -> Value {
+    json!({
+        "kind": f.kind,
+        "description": f.description,
+        "peak_volts": f.peak,
+        "input_peak_volts": f.input_peak,
+        "t_peak_s": f.t_peak,
+        "snr": f.snr,
+        "noise_volts": {
+            "amplifier": f.noise.amplifier,
+            "johnson": f.noise.johnson,
+        },
+        "enc_electrons": f.noise.enc_electrons,
+        "charge_in_coulombs": f.charge_in,
+        "step_volts": f.step,
+        "peaking_time_s": f.peaking_time,
+        "peak_factor": f.peak_factor,
+        "peak_factor_theory": f.peak_factor_theory,
+    })
+}
+
+fn counting_json(c: &crate::counting::PhotonCounting) -> Value {
+    // The spectrum in at most 200 points (cell sums), as a density per unit of the mean.
+    let k = (c.spectrum.p.len() / 200).max(1);
+    let (mut x, mut density) = (Vec::new(), Vec::new());
+    for (xs, ps) in c.spectrum.x.chunks(k).zip(c.spectrum.p.chunks(k)) {
+        x.push(xs.iter().sum::<f64>() / xs.len() as f64);
+        density.push(ps.iter().sum::<f64>() / (c.spectrum.dx * ps.len() as f64));
+    }
+    json!({
+        "threshold_efficiency": c.threshold_efficiency,
+        "peak_to_valley": c.peak_to_valley,
+        "accidental_rate_hz": c.accidental.map(|a| a.0),
+        "dead_time_loss": c.losses.map(|l| json!({
+            "dead_time_s": l.dead_time,
+            "from_pulse_pair": l.from_pulse_pair,
+            "true_rate_hz": l.true_rate,
+            "non_paralysable": l.non_paralysable,
+            "paralysable": l.paralysable,
+        })),
+        "threshold_volts": c.threshold.0,
+        "threshold_fraction": c.threshold.1,
+        "dark_rate_hz": c.dark_rate,
+        "coincidence_window_s": c.accidental.map(|a| a.1),
+        "other_rate_hz": c.accidental.map(|a| a.2),
+        "pulse_pair_resolution_s": c.pulse_pair,
+        "model": {
+            "relative_variance": c.model.relative_variance,
+            "under_amplified_weight": c.model.under_weight,
+            "under_amplified_mean": c.model.under_mean,
+            "noise": c.model.noise,
+        },
+        "spectrum": { "x": x, "density": density },
+        "notes": c.notes,
+    })
 }

@@ -12,7 +12,10 @@ use crate::units::format_eng as eng;
 /// Title of the section.
 pub const TITLE: &str = "Supply quality (gain change = d ln G / d ln V × supply change)";
 
-/// Append the text section.
+/// Title of the supply-model section.
+pub const MODEL_TITLE: &str = "Supply as built (voltage multiplier under the base's load)";
+
+/// Append the text section(s).
 pub fn text(out: &mut String, a: &Analysis) {
     let _ = writeln!(
         out,
@@ -20,6 +23,107 @@ pub fn text(out: &mut String, a: &Analysis) {
     );
     out.push_str(&body(a));
     let _ = writeln!(out);
+    if let Some(b) = model_body(a) {
+        let _ = writeln!(
+            out,
+            "SUPPLY AS BUILT (voltage multiplier under the base's load)"
+        );
+        out.push_str(&b);
+        let _ = writeln!(out);
+    }
+}
+
+/// The supply-model section's lines, when the design describes its multiplier.
+pub fn model_body(a: &Analysis) -> Option<String> {
+    let m = a.supply_model.as_ref()?;
+    let s = &m.steady;
+    let mut text = String::new();
+    let out = &mut text;
+    let _ = writeln!(
+        out,
+        "  {}-stage Cockcroft–Walton multiplier, {} per capacitor, driven at {} with {} peak\n  {}",
+        m.stages,
+        eng(m.capacitance_farads, "F"),
+        eng(m.frequency_hz, "Hz"),
+        eng(m.amplitude_volts, "V"),
+        match (m.filter_ohms, m.filter_farads) {
+            (Some(r), Some(c)) => format!("RC filter {} and {} after it", eng(r, "Ω"), eng(c, "F")),
+            _ => "no filter".to_string(),
+        }
+    );
+    let _ = writeln!(
+        out,
+        "  load: the base draws {} at the setting (taken as {})",
+        eng(s.load_amps, "A"),
+        eng(s.load_ohms, "Ω")
+    );
+    let _ = writeln!(
+        out,
+        "  {:<38} {:>12} {:>14} {:>10}",
+        "periodic steady state", "as built", "ideal diodes", "textbook"
+    );
+    let _ = writeln!(
+        out,
+        "  {:<38} {:>12} {:>14} {:>10}",
+        "droop of the peak output below 2 n V_p",
+        eng(s.droop_volts, "V"),
+        eng(m.ideal_droop_volts, "V"),
+        eng(m.textbook_droop_volts, "V")
+    );
+    let _ = writeln!(
+        out,
+        "  {:<38} {:>12} {:>14} {:>10}",
+        "ripple at the multiplier, p-p",
+        eng(s.multiplier_ripple_volts, "V"),
+        eng(m.ideal_ripple_volts, "V"),
+        eng(m.textbook_ripple_volts, "V")
+    );
+    if m.filter_ohms.is_some() {
+        let _ = writeln!(
+            out,
+            "  {:<38} {:>12} {:>14} {:>10}",
+            "ripple after the filter, p-p",
+            eng(s.ripple_volts, "V"),
+            "",
+            eng(m.textbook_filtered_ripple_volts, "V")
+        );
+    }
+    let _ = writeln!(
+        out,
+        "  mean output at the base {} ({} {} the setting of {})",
+        eng(s.output_volts, "V"),
+        eng(m.output_minus_setting_volts.abs(), "V"),
+        if m.output_minus_setting_volts >= 0.0 {
+            "above"
+        } else {
+            "below"
+        },
+        eng(a.design.supply_magnitude(), "V")
+    );
+    let _ = writeln!(
+        out,
+        "  ripple at the base {} p-p moves the gain {:.4} % p-p (d ln G / d ln V = {:.2});\n  {} gain stability of {:.2} %: {}",
+        eng(s.ripple_volts, "V"),
+        m.gain_ripple * 100.0,
+        a.sensitivity,
+        if m.gain_stability_given {
+            "the stated"
+        } else {
+            "an example"
+        },
+        m.gain_stability * 100.0,
+        if m.meets {
+            "meets it"
+        } else {
+            "does NOT meet it"
+        }
+    );
+    let _ = writeln!(
+        out,
+        "  no-load output 2 n V_p = {}; as built: silicon rectifiers, whose forward drops add to the droop\n  textbook (high-voltage engineering texts, from memory): ripple I·n(n+1)/(2fC),\n  drop (I/(fC))(2n³/3+n²/2−n/6), filter ÷ 2πfRC (for a sine; the real ripple is not one)",
+        eng(s.no_load_volts, "V")
+    );
+    Some(text)
 }
 
 /// The section's lines (shared by every format).
@@ -74,6 +178,41 @@ pub fn body(a: &Analysis) -> String {
         None => {}
     }
     text
+}
+
+/// The JSON value of the supply model (`supply_model`): null without a multiplier.
+pub fn model_value(a: &Analysis) -> Value {
+    match &a.supply_model {
+        None => Value::Null,
+        Some(m) => {
+            let s = &m.steady;
+            serde_json::json!({
+                "stages": m.stages,
+                "capacitance_farads": m.capacitance_farads,
+                "frequency_hz": m.frequency_hz,
+                "amplitude_volts": m.amplitude_volts,
+                "filter_ohms": m.filter_ohms,
+                "filter_farads": m.filter_farads,
+                "load_amps": s.load_amps,
+                "load_ohms": s.load_ohms,
+                "no_load_volts": s.no_load_volts,
+                "output_volts": s.output_volts,
+                "output_minus_setting_volts": m.output_minus_setting_volts,
+                "droop_volts": s.droop_volts,
+                "ripple_volts": s.ripple_volts,
+                "multiplier_ripple_volts": s.multiplier_ripple_volts,
+                "ideal_droop_volts": m.ideal_droop_volts,
+                "ideal_ripple_volts": m.ideal_ripple_volts,
+                "textbook_droop_volts": m.textbook_droop_volts,
+                "textbook_ripple_volts": m.textbook_ripple_volts,
+                "textbook_filtered_ripple_volts": m.textbook_filtered_ripple_volts,
+                "gain_ripple": m.gain_ripple,
+                "gain_stability": m.gain_stability,
+                "gain_stability_given": m.gain_stability_given,
+                "meets": m.meets,
+            })
+        }
+    }
 }
 
 /// The JSON value of the section.

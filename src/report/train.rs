@@ -223,10 +223,23 @@ fn section(out: &mut String, t: &TrainAnalysis, a: &Analysis) {
         );
     }
     if let Some(s) = &t.sizing {
-        let _ = writeln!(
+        wrap(
             out,
-            "  capacitors for at most {:.1} % droop of each decoupled gap over this train (IEC 60063 E12):",
-            s.allowed * 100.0
+            "  ",
+            &format!(
+                "capacitors for at most {:.1} % droop of each decoupled gap from the pulses themselves ({}; the DC shift at the average current is the divider's and no capacitor removes it; IEC 60063 E12):",
+                s.allowed * 100.0,
+                match t.spec.pattern {
+                    _ if !s.for_ever
+                        && !matches!(t.spec.pattern, crate::train::Pattern::Single) =>
+                        "over this train from rest: the base has no steady state at its rate",
+                    crate::train::Pattern::Single => "one pulse from rest",
+                    crate::train::Pattern::Poisson(..) =>
+                        "the rate continuing for ever, Poisson arrivals: the drop beyond the mean shift exceeded by 1 % of pulses",
+                    _ =>
+                        "the pattern continuing for ever: the drop a period's pulses add in the periodic steady state",
+                }
+            ),
         );
         let _ = writeln!(
             out,
@@ -250,7 +263,8 @@ fn section(out: &mut String, t: &TrainAnalysis, a: &Analysis) {
             out,
             "    ",
             &format!(
-                "Ratings: 2× the gap voltage across a gap, 1.5× the tap voltage from a dynode to the return (common practice), rounded up to a common rating. The recommended capacitors store {} in all ({} {} than the fitted ones); quoted limits {} mJ and {} µC (IEC 61010-1, from memory).{}",
+                "Ratings: {}× the voltage each capacitor holds (common practice), rounded up to a common rating. The recommended capacitors store {} in all ({} {} than the fitted ones); quoted limits {} mJ and {} µC (IEC 61010-1, from memory).{}",
+                crate::eseries::CAPACITOR_RATING_MARGIN,
                 eng(s.total_joules, "J"),
                 eng(s.added_joules.abs(), "J"),
                 if s.added_joules >= 0.0 {
