@@ -154,6 +154,58 @@ pub fn starting_points() -> Vec<(&'static str, &'static str, Starter)> {
             ),
         ),
         (
+            "multiplier",
+            "battery-run scintillation counter (like designs/multiplier-fed.ron; add its supply.multiplier block by hand)",
+            s(
+                "Multiplier-fed counter (starter)",
+                10,
+                1100.0,
+                CathodeNegative,
+                FirstDouble,
+                LightKind::Scintillator,
+                ReadoutKind::Scope,
+            ),
+        ),
+        (
+            "dark-counter",
+            "photon counting with a 12-stage tube (like designs/photon-counter-dark.ron; add its front_end block by hand)",
+            s(
+                "Dark-count photon counter (starter)",
+                12,
+                1300.0,
+                CathodeNegative,
+                FirstDouble,
+                LightKind::Led,
+                ReadoutKind::Scope,
+            ),
+        ),
+        (
+            "spectroscopy",
+            "scintillation spectroscopy at a modest supply (like designs/spectroscopy-preamp.ron; add its front_end block by hand)",
+            s(
+                "Scintillation spectroscopy (starter)",
+                10,
+                750.0,
+                CathodeNegative,
+                FirstDouble,
+                LightKind::Scintillator,
+                ReadoutKind::Scope,
+            ),
+        ),
+        (
+            "timing-bench",
+            "time-of-flight bench with a pulsed laser (like designs/timing-bench.ron)",
+            s(
+                "Timing bench (starter)",
+                10,
+                1600.0,
+                CathodeNegative,
+                Tapered,
+                LightKind::Laser,
+                ReadoutKind::Scope,
+            ),
+        ),
+        (
             "photon-counter",
             "photon counting with the anode at +HV and a coupling capacitor (like designs/photon-counter-positive.ron)",
             s(
