@@ -13,6 +13,8 @@
 
 pub mod analysis;
 pub mod cathode;
+pub mod commands;
+pub mod compare;
 pub mod constants;
 pub mod counting;
 pub mod design;
@@ -25,14 +27,18 @@ pub mod multiplier;
 pub mod netlist;
 pub mod network;
 pub mod output;
+pub mod parts;
 pub mod plot;
 pub mod pulsetrain;
 pub mod report;
 pub mod safety;
+pub mod schematic;
+pub mod serve;
 pub mod signal;
 pub mod sizing;
 pub mod spread;
 pub mod stability;
+pub mod starter;
 pub mod sweep;
 pub mod timing;
 pub mod train;

@@ -538,3 +538,24 @@ pub fn render_json(a: &Analysis) -> String {
     s.push('\n');
     s
 }
+
+/// The stand-alone report of `dynode train` in any format: the train section only (with the
+/// cautions and warnings), never the full report.
+pub fn render(a: &Analysis, format: crate::report::Format) -> String {
+    use crate::report::Format;
+    match format {
+        Format::Text => render_text(a),
+        Format::Json => render_json(a),
+        Format::PartsCsv => crate::parts::csv(a),
+        Format::Html | Format::Markdown => {
+            let text = section_text(a).unwrap_or_else(|| {
+                "The design gives no train block; nothing to solve in time.\n".to_string()
+            });
+            if format == Format::Html {
+                crate::report::html::section_page(a, "train", "Pulse train", &text)
+            } else {
+                crate::report::markdown::section_page(a, "train", "Pulse train", &text)
+            }
+        }
+    }
+}
