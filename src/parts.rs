@@ -13,7 +13,7 @@
 //! that should last (derating to two thirds of rated voltage and half of rated power; from
 //! memory). A resistor's voltage is also limited by `√(P R)` (IEC 60115-1's rated voltage, from
 //! memory), so the power to order covers that too. The design's own ratings are kept when they
-//! already meet the margin; otherwise the next step of [`RESISTOR_VOLTS`], [`CAPACITOR_VOLTS`]
+//! already meet the margin; otherwise the next step of [`RESISTOR_VOLTS`], `eseries::CAPACITOR_RATINGS`
 //! or [`POWERS`] is listed with a note. Lines with the same part are merged, with a count.
 //!
 //! No IO; [`csv`] and [`text`] render the list.
@@ -35,11 +35,6 @@ pub const POWER_MARGIN: f64 = 2.0;
 pub const RESISTOR_VOLTS: [f64; 15] = [
     150.0, 200.0, 250.0, 300.0, 350.0, 400.0, 500.0, 750.0, 1000.0, 1500.0, 2000.0, 2500.0, 3000.0,
     5000.0, 10000.0,
-];
-/// Voltage-rating steps of capacitors as commonly sold, volts (from memory).
-pub const CAPACITOR_VOLTS: [f64; 17] = [
-    50.0, 100.0, 200.0, 250.0, 400.0, 500.0, 630.0, 1000.0, 1500.0, 2000.0, 3000.0, 4000.0, 5000.0,
-    6000.0, 8000.0, 10000.0, 15000.0,
 ];
 /// Power-rating steps of resistors and Zeners as commonly sold, watts (from memory).
 pub const POWERS: [f64; 12] = [
@@ -493,11 +488,12 @@ fn merge(parts: Vec<Part>) -> Vec<Line> {
                 }
             }
             Kind::Capacitor => {
-                let need = p.volts * VOLTAGE_MARGIN;
+                // The one capacitor rule (eseries::capacitor_rating), shared with size and train.
+                let need = p.volts * crate::eseries::CAPACITOR_RATING_MARGIN;
                 match p.given_volts {
                     Some(v) if v >= need => (None, Some(v), Vec::new()),
                     Some(v) => {
-                        let r = step_up(&CAPACITOR_VOLTS, need);
+                        let r = crate::eseries::capacitor_rating(p.volts);
                         (
                             None,
                             Some(r),
@@ -510,7 +506,7 @@ fn merge(parts: Vec<Part>) -> Vec<Line> {
                     }
                     None => (
                         None,
-                        Some(step_up(&CAPACITOR_VOLTS, need)),
+                        Some(crate::eseries::capacitor_rating(p.volts)),
                         vec!["no rating in the design: chosen from the voltage".to_string()],
                     ),
                 }

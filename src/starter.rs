@@ -268,13 +268,7 @@ pub fn write(o: &Starter) -> String {
         .collect();
     let total: f64 = rs.iter().sum();
     let gap = |j: usize| o.supply * rs[j] / total;
-    let cap_rating = |v: f64| {
-        crate::parts::CAPACITOR_VOLTS
-            .iter()
-            .copied()
-            .find(|s| *s >= 2.0 * v)
-            .unwrap_or(((2.0 * v) / 1000.0).ceil() * 1000.0)
-    };
+    let cap_rating = crate::eseries::capacitor_rating;
     let max_supply = ((o.supply * 1.35) / 100.0).ceil() * 100.0;
     let sign = if o.polarity == Polarity::CathodeNegative {
         "-"
