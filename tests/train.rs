@@ -43,11 +43,17 @@ fn chain(decoupling: &str, size: &str, pattern: &str) -> (Design, Base, f64) {
         .replace("{DECOUPLING}", decoupling)
         .replace("{SIZE}", size)
         .replace("{PATTERN}", pattern);
-    let d = parse_str(&text, "test-chain.ron").expect("test design reads");
+    solved(&text, "test-chain.ron")
+}
+
+/// The design read, its base, and the cathode charge of one pulse of its train at the
+/// small-signal gain before the train.
+fn solved(text: &str, name: &str) -> (Design, Base, f64) {
+    let d = parse_str(text, name).expect("test design reads");
     let tube = TubeModel::from_spec(&d.tube).expect("tube calibrates");
     let base = Base::from_design(&d, tube);
     let (nv, _) = base.quiescent_state().expect("DC state");
-    let gaps: Vec<f64> = (1..=11).map(|j| nv[j] - nv[j - 1]).collect();
+    let gaps: Vec<f64> = (1..=d.tube.stages + 1).map(|j| nv[j] - nv[j - 1]).collect();
     let g0 = base.tube.gain_for_gaps(&gaps);
     let spec = d.train.clone().expect("train block");
     let qk = cathode_charge(spec.size, &spec.shape, g0);
@@ -273,15 +279,7 @@ fn vanishing_pulses_keep_every_gain_ratio_at_one() {
 fn bench_chain(pattern: &str) -> (Design, Base, f64) {
     let text = std::fs::read_to_string("bench/train-chain.ron").expect("benchmark design");
     let text = text.replace(r#"Periodic(count: 20, rate: "1 MHz")"#, pattern);
-    let d = parse_str(&text, "train-chain.ron").expect("benchmark design reads");
-    let tube = TubeModel::from_spec(&d.tube).expect("tube calibrates");
-    let base = Base::from_design(&d, tube);
-    let (nv, _) = base.quiescent_state().expect("DC state");
-    let gaps: Vec<f64> = (1..=11).map(|j| nv[j] - nv[j - 1]).collect();
-    let g0 = base.tube.gain_for_gaps(&gaps);
-    let spec = d.train.clone().expect("train block");
-    let qk = cathode_charge(spec.size, &spec.shape, g0);
-    (d, base, qk)
+    solved(&text, "train-chain.ron")
 }
 
 #[test]

@@ -86,15 +86,13 @@ fn table_html(out: &mut String, t: &Table, pairs: bool) {
     let _ = writeln!(out, "</tbody></table>");
 }
 
-/// Render the report.
-pub fn render(a: &Analysis) -> String {
-    let mut out = String::new();
-    let d = &a.design;
+/// The page's head and the cautions that open every page, then the design's name.
+fn open_page(out: &mut String, a: &Analysis, title: &str) {
     let _ = writeln!(
         out,
         "<!DOCTYPE html>\n<html lang=\"en\">\n<head>\n<meta charset=\"utf-8\">"
     );
-    let _ = writeln!(out, "<title>dynode report: {}</title>", esc(&d.name));
+    let _ = writeln!(out, "<title>{}</title>", esc(title));
     let _ = writeln!(out, "<style>{STYLE}</style>\n</head>\n<body>");
     let _ = writeln!(
         out,
@@ -104,7 +102,14 @@ pub fn render(a: &Analysis) -> String {
         let _ = writeln!(out, "<li>{}</li>", esc(&c));
     }
     let _ = writeln!(out, "</ul></section>");
-    let _ = writeln!(out, "<h1>{}</h1>", esc(&d.name));
+    let _ = writeln!(out, "<h1>{}</h1>", esc(&a.design.name));
+}
+
+/// Render the report.
+pub fn render(a: &Analysis) -> String {
+    let mut out = String::new();
+    let d = &a.design;
+    open_page(&mut out, a, &format!("dynode report: {}", d.name));
     let _ = writeln!(
         out,
         "<p class=\"meta\">dynode report of design file <code>{}</code></p>",
@@ -190,26 +195,7 @@ pub fn render(a: &Analysis) -> String {
 pub fn section_page(a: &Analysis, command: &str, title: &str, text: &str) -> String {
     let mut out = String::new();
     let d = &a.design;
-    let _ = writeln!(
-        out,
-        "<!DOCTYPE html>\n<html lang=\"en\">\n<head>\n<meta charset=\"utf-8\">"
-    );
-    let _ = writeln!(
-        out,
-        "<title>dynode {}: {}</title>",
-        esc(command),
-        esc(&d.name)
-    );
-    let _ = writeln!(out, "<style>{STYLE}</style>\n</head>\n<body>");
-    let _ = writeln!(
-        out,
-        "<section class=\"caution\" id=\"caution-first\"><h2>High-voltage caution</h2><ul>"
-    );
-    for c in tables::cautions(a) {
-        let _ = writeln!(out, "<li>{}</li>", esc(&c));
-    }
-    let _ = writeln!(out, "</ul></section>");
-    let _ = writeln!(out, "<h1>{}</h1>", esc(&d.name));
+    open_page(&mut out, a, &format!("dynode {command}: {}", d.name));
     let _ = writeln!(
         out,
         "<p class=\"meta\">dynode {}: design file <code>{}</code></p>",
