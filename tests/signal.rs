@@ -48,6 +48,15 @@ fn a_table_in_milliamps_per_watt_becomes_qe_and_out_of_range_is_zero() {
     let d = dynode::design::parse_str(&text, "table.ron").unwrap();
     let k = &d.signal.cathode;
     assert!((k.qe(420.0) * 100.0 - 29.52).abs() < 0.005);
+    // Between points the table is interpolated in its own unit: at 360 nm, halfway from 60 to
+    // 100 mA/W, S = 80 mA/W, so QE = 0.08 · 1239.84/360 = 27.55 % (interpolating the converted
+    // QE instead would give 27.16 %).
+    let want = qe_from_sensitivity(0.08, 360.0);
+    assert!(
+        (k.qe(360.0) / want - 1.0).abs() < 1e-4,
+        "{} vs {want}",
+        k.qe(360.0)
+    );
     // Outside the table: zero response, flagged out of range (not a crash).
     let r = k.response(700.0);
     assert!(r.qe == 0.0 && !r.in_range);

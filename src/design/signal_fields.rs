@@ -534,17 +534,32 @@ fn check_cathode(c: &Checker, raw: &Option<RawCathode>) -> Result<(Cathode, bool
                 TableUnit::MilliampsPerWatt => (2000.0, "the design's table (mA/W)"),
             };
             let curve = table(c, "tube.cathode.points", points, max)?;
-            let qe: Vec<(f64, f64)> = curve
-                .points
-                .iter()
-                .map(|(nm, y)| match unit {
-                    TableUnit::QePercent => (*nm, y / 100.0),
-                    TableUnit::MilliampsPerWatt => {
-                        (*nm, cathode::qe_from_sensitivity(y / 1000.0, *nm))
+            let to_qe = |(nm, y): &(f64, f64)| match unit {
+                TableUnit::QePercent => (*nm, y / 100.0),
+                TableUnit::MilliampsPerWatt => (*nm, cathode::qe_from_sensitivity(y / 1000.0, *nm)),
+            };
+            // A table in mA/W is interpolated in mA/W, as given: it is resampled every
+            // nanometre (linear in sensitivity) before the conversion to quantum efficiency,
+            // whose own linear interpolation then follows the sensitivity's to within rounding.
+            let resampled: Vec<(f64, f64)> = match unit {
+                TableUnit::QePercent => curve.points.clone(),
+                TableUnit::MilliampsPerWatt => {
+                    let mut v = Vec::new();
+                    for w in curve.points.windows(2) {
+                        let ((a, ya), (b, yb)) = (w[0], w[1]);
+                        let steps = ((b - a).ceil() as usize).clamp(1, 2000);
+                        for i in 0..steps {
+                            let f = i as f64 / steps as f64;
+                            v.push((a + f * (b - a), ya + f * (yb - ya)));
+                        }
                     }
-                })
-                .collect();
-            if let Some((i, (nm, q))) = qe.iter().enumerate().find(|(_, (_, q))| *q > 1.0) {
+                    v.extend(curve.points.last().copied());
+                    v
+                }
+            };
+            let qe: Vec<(f64, f64)> = resampled.iter().map(to_qe).collect();
+            let at_points: Vec<(f64, f64)> = curve.points.iter().map(to_qe).collect();
+            if let Some((i, (nm, q))) = at_points.iter().enumerate().find(|(_, (_, q))| *q > 1.0) {
                 return Err(c.fail(
                     format!("tube.cathode.points[{i}]"),
                     format!(
