@@ -55,13 +55,20 @@ pub fn text(design: &Design, s: &Sweep) -> String {
     }
     let _ = writeln!(
         out,
-        "at an average anode current of {}; ±1 % limit = anode current where the DC gain deviation first reaches 1 %; pulse = peak at the load (negative-going), rise as displayed, S/N = peak over baseline noise, droop = Q/(C·V) per pulse on the last gap's capacitor",
-        eng(
-            design
-                .anode_current
-                .get::<uom::si::electric_current::ampere>(),
-            "A"
-        )
+        "at {}; ±1 % limit = anode current where the DC gain deviation first reaches 1 %; pulse = peak at the load (negative-going), rise as displayed, S/N = peak over baseline noise, droop = Q/(C·V) per pulse on the last gap's capacitor",
+        if s.axes.iter().any(|a| a.path == "operating.anode_current") {
+            "the swept average anode current".to_string()
+        } else {
+            format!(
+                "an average anode current of {}",
+                eng(
+                    design
+                        .anode_current
+                        .get::<uom::si::electric_current::ampere>(),
+                    "A"
+                )
+            )
+        }
     );
     let _ = writeln!(out);
     let mut head = String::new();
