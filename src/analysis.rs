@@ -420,7 +420,8 @@ pub fn analyse_with(
             format_eng(max_ia, "A")
         ));
     }
-    if quiescent_amps < 10.0 * ia {
+    // Followers carry the last stages' current: their limits count with the divider's.
+    if design.followers.is_none() && quiescent_amps < 10.0 * ia {
         warnings.push(format!(
             "The divider current {} is less than ten times the anode current {} (common practice asks 10× to 100×); see the linearity figures.",
             format_eng(quiescent_amps, "A"),
