@@ -123,6 +123,8 @@ pub const FILTER_RESISTANCE: Range = r(Kind::Resistance, 1.0, 1e9);
 pub const FILTER_CAPACITANCE: Range = r(Kind::Capacitance, 1e-12, 1e-4);
 /// A divider resistor (each part of a series string).
 pub const RESISTOR: Range = r(Kind::Resistance, 1.0, 1e11);
+/// The factor `sweep` scales every divider resistor by (`divider.gaps[*]`).
+pub const GAP_SCALE: Range = r(Kind::Ratio, 1e-3, 1e3);
 /// A Zener diode's voltage.
 pub const ZENER_VOLTS: Range = r(Kind::Voltage, 1.0, 1e4);
 /// A decoupling capacitor.
@@ -258,6 +260,7 @@ pub fn of_field(generic: &str, zener: bool) -> Option<Range> {
         "supply.current_limit" => SUPPLY_CURRENT_LIMIT,
         "divider.gaps[i]" if zener => ZENER_VOLTS,
         "divider.gaps[i]" => RESISTOR,
+        "divider.gaps[*]" => GAP_SCALE,
         "divider.decoupling[i].value" => DECOUPLING,
         "divider.stray" => STRAY,
         "load.resistance" => LOAD_RESISTANCE,

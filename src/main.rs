@@ -217,9 +217,9 @@ enum Command {
         #[command(flatten)]
         out: OutputArgs,
     },
-    /// Vary one or two fields of the design and tabulate gain, divider current, linearity.
+    /// Vary one or two fields of the design and tabulate gain, divider current, linearity, pulse.
     #[command(
-        after_help = "Example:\n  dynode sweep designs/rooftop-paddle.ron --vary supply.volts=900V..1500V:13\n  dynode sweep designs/rooftop-paddle.ron --vary divider.gaps[10]=470k..2M:9:log --vary operating.anode_current=1uA..20uA:4\n\nFields: supply.volts, divider.gaps[i], load.resistance, tube.gain.exponent, operating.anode_current, … (docs/design-file.md lists them all)."
+        after_help = "Example:\n  dynode sweep designs/rooftop-paddle.ron --vary supply.volts=900V..1500V:13\n  dynode sweep designs/rooftop-paddle.ron --vary divider.gaps[11]=470k..2M:9:log --vary operating.anode_current=1uA..20uA:4\n  dynode sweep designs/rooftop-paddle.ron --vary 'divider.gaps[*]=0.33..1:5'\n\nGaps count from 1 (gap 1 = K–D1) as in the design file; divider.gaps[*] scales every divider resistor.\nFields: supply.volts, divider.gaps[i], divider.gaps[*], load.resistance, tube.gain.exponent, operating.anode_current, … (docs/design-file.md lists them all)."
     )]
     Sweep {
         /// The design file (RON).
@@ -235,6 +235,70 @@ enum Command {
         plots: Option<PathBuf>,
         #[command(flatten)]
         out: OutputArgs,
+    },
+    /// Set two or more designs side by side: gap voltages, divider current, gain, linearity
+    /// limits, pulse, verdicts, dissipation, stored charge, bleed-down; differences marked.
+    #[command(
+        after_help = "Example:\n  dynode compare designs/rooftop-paddle.ron paddle-1M.ron\n  dynode compare a.ron b.ron c.ron --format json -o compare.json"
+    )]
+    Compare {
+        /// The design files (RON), two or more.
+        #[arg(required = true, num_args = 2..)]
+        designs: Vec<PathBuf>,
+        /// Output format.
+        #[arg(short, long, value_enum, default_value_t = DataFormat::Text)]
+        format: DataFormat,
+        #[command(flatten)]
+        out: OutputArgs,
+    },
+    /// Write a commented starter design from a few answers or a named starting point.
+    #[command(
+        after_help = "Examples:\n  dynode new --from paddle -o my-paddle.ron\n  dynode new --stages 12 --supply 1600V --divider tapered --light laser --readout scope -o timing.ron\n  dynode new --list\n\nEvery number it writes is an invented starting value, marked for replacing with your own."
+    )]
+    New {
+        /// Start from a named starting point (`--list` shows them); other flags change it.
+        #[arg(long, value_name = "NAME")]
+        from: Option<String>,
+        /// List the starting points and exit.
+        #[arg(long)]
+        list: bool,
+        /// Number of dynodes.
+        #[arg(long, value_name = "N")]
+        stages: Option<usize>,
+        /// Supply voltage magnitude (e.g. "1100V").
+        #[arg(long, value_name = "VOLTS")]
+        supply: Option<String>,
+        /// Anode at +HV instead of the cathode at −HV.
+        #[arg(long)]
+        anode_positive: bool,
+        /// Built-in cathode curve (`dynode cathodes` lists them).
+        #[arg(long, value_name = "NAME")]
+        cathode: Option<String>,
+        /// Divider style.
+        #[arg(long, value_enum)]
+        divider: Option<dynode::starter::DividerStyle>,
+        /// Divider current with no tube current (e.g. "200uA").
+        #[arg(long, value_name = "CURRENT")]
+        divider_current: Option<String>,
+        /// What lights the cathode.
+        #[arg(long, value_enum)]
+        light: Option<dynode::starter::LightKind>,
+        /// What reads the pulse.
+        #[arg(long, value_enum)]
+        readout: Option<dynode::starter::ReadoutKind>,
+        #[command(flatten)]
+        out: OutputArgs,
+    },
+    /// Show the HTML report on a page on this machine, solved again whenever the file is saved.
+    #[command(
+        after_help = "Example:\n  dynode serve designs/rooftop-paddle.ron\n  (open http://127.0.0.1:8040/ and edit the file; Ctrl-C stops)\n\nListens on the loopback address only: nothing off this machine can reach the page."
+    )]
+    Serve {
+        /// The design file (RON).
+        design: PathBuf,
+        /// Port on 127.0.0.1 (0: any free port, printed at start).
+        #[arg(long, default_value_t = 8040)]
+        port: u16,
     },
     /// Size a base from a requirements file: supply, divider, preferred values, capacitors.
     #[command(
@@ -302,7 +366,7 @@ fn print_exit(text: &str) -> ExitCode {
 /// Read and check a design, and check that the output target may be written, before any
 /// work is done (so that a refusal writes nothing).
 fn load_for_output(design: &Path, out: &OutputArgs) -> Result<design::Design, ExitCode> {
-    let d = design::load(design).map_err(|e| fail(e, Exit::BadInput))?;
+    let d = dynode::commands::load_design(design).map_err(|e| fail(&e, command_exit(&e)))?;
     if let Some(p) = &out.output {
         output::check_target(p, &[design], out.force).map_err(|e| fail(e, Exit::BadInput))?;
     }
@@ -332,11 +396,23 @@ fn analysis_exit(e: &AnalysisError) -> Exit {
     }
 }
 
+fn command_exit(e: &dynode::commands::CommandError) -> Exit {
+    match e.exit_code() {
+        3 => Exit::SolveFailed,
+        _ => Exit::BadInput,
+    }
+}
+
 fn emit(text: &str, out: &OutputArgs, input: &Path) -> Result<(), ExitCode> {
+    emit_from(text, out, &[input])
+}
+
+/// [`emit`] for a command that reads several inputs (none of which may be overwritten).
+fn emit_from(text: &str, out: &OutputArgs, inputs: &[&Path]) -> Result<(), ExitCode> {
     match &out.output {
         Some(path) => {
             let text = dynode::report::printable(text);
-            output::write_atomic(path, text.as_bytes(), &[input], out.force)
+            output::write_atomic(path, text.as_bytes(), inputs, out.force)
                 .map_err(|e| fail(e, Exit::BadInput))?;
             if !out.quiet {
                 say!("dynode: wrote {}", path.display());
@@ -689,20 +765,9 @@ fn run() -> ExitCode {
             force,
             quiet,
         } => run_size(&requirements, &output, force, quiet),
-        Command::Check { design } => match design::load(&design) {
-            // A check solves the DC design but runs no pulse train (`report` and `train` do).
-            Ok(d) => match analysis::analyse_with(&d, None) {
-                Ok(a) => {
-                    let mut text = format!("{}: the design reads and solves\n", design.display());
-                    // Plausibility warnings never block, but a check shows them too.
-                    for w in &a.warnings {
-                        text.push_str(&format!("warning: {w}\n"));
-                    }
-                    print_exit(&text)
-                }
-                Err(e) => fail(&e, analysis_exit(&e)),
-            },
-            Err(e) => fail(e, Exit::BadInput),
+        Command::Check { design } => match dynode::commands::check(&design) {
+            Ok(text) => print_exit(&text),
+            Err(e) => fail(&e, command_exit(&e)),
         },
         Command::Report {
             design,
@@ -755,6 +820,116 @@ fn run() -> ExitCode {
             }
             ExitCode::from(Exit::Ok as u8)
         }
+        Command::Compare {
+            designs,
+            format,
+            out,
+        } => {
+            let inputs: Vec<&Path> = designs.iter().map(PathBuf::as_path).collect();
+            if let Some(p) = &out.output
+                && let Err(e) = output::check_target(p, &inputs, out.force)
+            {
+                return fail(e, Exit::BadInput);
+            }
+            match dynode::commands::compare(&designs, format == DataFormat::Json) {
+                Ok(text) => match emit_from(&text, &out, &inputs) {
+                    Ok(()) => ExitCode::from(Exit::Ok as u8),
+                    Err(code) => code,
+                },
+                Err(e) => fail(&e, command_exit(&e)),
+            }
+        }
+        Command::New {
+            from,
+            list,
+            stages,
+            supply,
+            anode_positive,
+            cathode,
+            divider,
+            divider_current,
+            light,
+            readout,
+            out,
+        } => {
+            use dynode::starter::{Starter, starting_points};
+            let points = starting_points();
+            if list {
+                let mut text = String::from("Starting points for `dynode new --from NAME`:\n");
+                for (name, what, _) in &points {
+                    text.push_str(&format!("  {name:<16} {what}\n"));
+                }
+                return print_exit(&text);
+            }
+            let mut s: Starter = match &from {
+                Some(name) => match points.iter().find(|p| p.0 == name) {
+                    Some(p) => p.2.clone(),
+                    None => {
+                        let names: Vec<&str> = points.iter().map(|p| p.0).collect();
+                        return fail(
+                            format!("--from {name}: expected one of {}", names.join(", ")),
+                            Exit::BadInput,
+                        );
+                    }
+                },
+                None => points[0].2.clone(),
+            };
+            if from.is_none() {
+                s.name = "New base (starter)".to_string();
+            }
+            if let Some(n) = stages {
+                s.stages = n;
+            }
+            if let Some(v) = &supply {
+                match units::parse(v, Kind::Voltage) {
+                    Ok(x) => s.supply = x.abs(),
+                    Err(e) => return fail(format!("--supply: {e}"), Exit::BadInput),
+                }
+            }
+            if anode_positive {
+                s.polarity = design::Polarity::AnodePositive;
+            }
+            if let Some(c) = cathode {
+                s.cathode = c;
+                s.window = None;
+            }
+            if let Some(d) = divider {
+                s.divider = d;
+            }
+            if let Some(i) = &divider_current {
+                match units::parse(i, Kind::Current) {
+                    Ok(x) => s.divider_current = x,
+                    Err(e) => return fail(format!("--divider-current: {e}"), Exit::BadInput),
+                }
+            }
+            if let Some(l) = light {
+                s.light = l;
+            }
+            if let Some(r) = readout {
+                s.readout = r;
+            }
+            if let Some(p) = &out.output
+                && let Err(e) = output::check_target(p, &[], out.force)
+            {
+                return fail(e, Exit::BadInput);
+            }
+            match dynode::commands::new_design(&s) {
+                Ok(text) => match emit_from(&text, &out, &[]) {
+                    Ok(()) => ExitCode::from(Exit::Ok as u8),
+                    Err(code) => code,
+                },
+                Err(e) => fail(&e, command_exit(&e)),
+            }
+        }
+        Command::Serve { design, port } => {
+            let shown = design.display().to_string();
+            match dynode::serve::run(&design, port, |addr| {
+                say!("dynode: serving {shown} at http://{addr}/ (Ctrl-C stops)");
+            }) {
+                Ok(()) => ExitCode::from(Exit::Ok as u8),
+                Err(e) => fail(&e, command_exit(&e)),
+            }
+        }
         Command::Cathodes => print_exit(&cathode_catalogue()),
         Command::LightMatch {
             design,
@@ -803,12 +978,7 @@ fn run() -> ExitCode {
                 a.warnings.extend(t.warnings.iter().cloned());
             }
             a.train = train;
-            let text = match format {
-                Format::Text => report::train::render_text(&a),
-                Format::Json => report::train::render_json(&a),
-                // The richer formats carry the train as a section of the full report.
-                Format::Html | Format::Markdown => report::render(&a, format),
-            };
+            let text = report::train::render(&a, format);
             if let Err(code) = emit(&text, &out, &design) {
                 return code;
             }

@@ -138,6 +138,61 @@ pub struct Figure {
     pub y_limits: Option<(f64, f64)>,
     /// Where the legend goes.
     pub legend: Legend,
+    /// A drawing in pixels (a schematic) instead of a chart: when set, the axes, series,
+    /// markers and bands are not drawn.
+    pub sketch: Option<Sketch>,
+}
+
+/// A drawing made of plain strokes and words, in pixels from the top left: a schematic.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Sketch {
+    /// Width, pixels.
+    pub width: u32,
+    /// Height, pixels.
+    pub height: u32,
+    /// What is drawn, in order.
+    pub ink: Vec<Ink>,
+}
+
+/// Where a text sits against its point.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Anchor {
+    /// The point is at the text's left end.
+    Left,
+    /// The point is at the text's middle.
+    Centre,
+    /// The point is at the text's right end.
+    Right,
+}
+
+/// One stroke of a [`Sketch`].
+#[derive(Debug, Clone, PartialEq)]
+pub enum Ink {
+    /// A polyline, 2 px.
+    Path(Vec<(i32, i32)>),
+    /// A thin polyline, 1 px, grey (an outline such as the tube's envelope).
+    Thin(Vec<(i32, i32)>),
+    /// Text with its baseline's vertical middle at `y`.
+    Text {
+        /// Point.
+        x: i32,
+        /// Point.
+        y: i32,
+        /// Words.
+        text: String,
+        /// Pixel size.
+        size: u32,
+        /// Anchor.
+        anchor: Anchor,
+        /// Bold face.
+        bold: bool,
+    },
+    /// A rectangle outline (a resistor's body, an instrument).
+    Frame(i32, i32, i32, i32),
+    /// A filled dot (a junction).
+    Dot(i32, i32),
+    /// A circle outline (a source).
+    Ring(i32, i32, i32),
 }
 
 /// Legend corner.
@@ -165,6 +220,7 @@ impl Figure {
             integer_x: false,
             y_limits: None,
             legend: Legend::UpperLeft,
+            sketch: None,
         }
     }
     /// Add a series.
@@ -311,23 +367,123 @@ fn thinned(points: &[(f64, f64)]) -> Vec<(f64, f64)> {
     out
 }
 
-fn tick_text(v: f64, axis: &Axis, integer: bool) -> String {
+/// A tick label in engineering notation, resolved to the axis's tick step so that no two
+/// labels read the same: a prefix (or, for a plain number, an exponent that is a multiple of
+/// three, the same along a linear axis) chosen per value, and as many decimals as the step needs in that prefix. `span` is
+/// the axis's range for a linear axis and `None` for a log axis (ticks at powers of ten or
+/// 1-2-5 steps within a decade, three significant digits resolve them). `%` and units that
+/// take no prefix print as plain numbers ("0.55 %", never "550 m%").
+fn tick_text(v: f64, axis: &Axis, integer: bool, range: Option<(f64, f64)>) -> String {
     if integer {
         return format!("{}", v.round() as i64);
     }
-    match &axis.unit {
-        Some(u) => format_eng(v, u),
-        None => {
-            let a = v.abs();
-            if a != 0.0 && !(1e-3..1e5).contains(&a) {
-                format!("{v:.0e}")
-            } else {
-                let s = format!("{v:.4}");
-                let s = s.trim_end_matches('0').trim_end_matches('.');
-                s.to_string()
+    if !v.is_finite() {
+        return String::new();
+    }
+    // Linear ticks sit on a 1-2-5 step; a label needs the decimals of that step's decade.
+    let step = range.map(|(lo, hi)| {
+        let s = hi - lo;
+        // The smallest 1-2-5 step that gives at most twenty labels (plotters draws about ten,
+        // sometimes a few more), and the decade it is in.
+        let raw = s.abs().max(1e-300) / 20.0;
+        let decade = 10f64.powf(raw.log10().floor());
+        let nice = [1.0, 2.0, 5.0, 10.0]
+            .into_iter()
+            .find(|m| m * decade >= raw * (1.0 - 1e-9))
+            .unwrap_or(10.0);
+        if nice >= 10.0 { decade * 10.0 } else { decade }
+    });
+    // A value within rounding of zero on a linear axis is zero.
+    let v = match step {
+        Some(st) if v.abs() < st * 1e-6 => 0.0,
+        _ => v,
+    };
+    let unit = axis.unit.as_deref().unwrap_or("");
+    let prefixable = !unit.is_empty() && unit != "%" && unit != "°";
+    let decimals = |scale: f64| -> usize {
+        match step {
+            Some(st) => (-(st / scale).log10().floor()).clamp(0.0, 9.0) as usize,
+            None => {
+                let x = (v / scale).abs();
+                if x >= 99.95 {
+                    0
+                } else if x >= 9.995 {
+                    1
+                } else {
+                    2
+                }
             }
         }
+    };
+    let trim = |s: String| -> String {
+        // On a log axis the ticks are round numbers: "1.00 k" reads better as "1 k".
+        if step.is_none() && s.contains('.') {
+            s.trim_end_matches('0').trim_end_matches('.').to_string()
+        } else {
+            s
+        }
+    };
+    if v == 0.0 {
+        return if unit.is_empty() {
+            "0".into()
+        } else {
+            format!("0 {unit}")
+        };
     }
+    if step.is_none() && v > 0.0 {
+        // A log axis: label 1, 2 and 5 of each decade only; plotters puts a tick at every
+        // integer of a decade, and "7e6 8e6 9e6 10e6" run into each other.
+        let m = v / 10f64.powf(v.log10().floor());
+        if ![1.0, 2.0, 5.0, 10.0]
+            .iter()
+            .any(|k| (m - k).abs() < 1e-6 * k)
+        {
+            return String::new();
+        }
+    }
+    let a = v.abs();
+    if prefixable {
+        let (scale, p) = crate::units::engineering_prefix(a, "µ", 0.9995);
+        let x = trim(format!("{:.*}", decimals(scale), v / scale));
+        return format!("{x} {p}{unit}");
+    }
+    // A plain number (or %): as it is from 0.001 to 99 999, else mantissa and an exponent that
+    // is a multiple of three ("2.5e6", "100e3").
+    let top = range.map_or(a, |(lo, hi)| lo.abs().max(hi.abs()));
+    let exp3 = if (1e-3..1e5).contains(&top) {
+        0
+    } else {
+        (top.log10().floor() / 3.0).floor() as i32 * 3
+    };
+    let scale = 10f64.powi(exp3);
+    let x = trim(format!("{:.*}", decimals(scale), v / scale));
+    let num = if exp3 == 0 { x } else { format!("{x}e{exp3}") };
+    if unit.is_empty() {
+        num
+    } else {
+        format!("{num} {unit}")
+    }
+}
+
+/// When a linear axis spans less than 10 % of its largest value, the whole height is a small
+/// change; say so in the axis label, so a 2 % change does not read as a cliff. Returns the
+/// note, e.g. "full height 2.30 % of 3.45 ns".
+pub fn narrow_note(lo: f64, hi: f64, unit: Option<&str>) -> Option<String> {
+    let top = lo.abs().max(hi.abs());
+    let span = hi - lo;
+    if !top.is_finite() || top <= 0.0 || !span.is_finite() || span <= 0.0 || lo * hi <= 0.0 {
+        return None;
+    }
+    let frac = span / top;
+    (frac < 0.10).then(|| {
+        let mid = 0.5 * (lo + hi);
+        let at = match unit {
+            Some(u) if u != "%" => format_eng(mid, u),
+            Some(_) => format!("{} %", format_eng(mid, "").trim_end()),
+            None => format_eng(mid, "").trim_end().to_string(),
+        };
+        format!("full height {:.2} % of {at}", frac * 100.0)
+    })
 }
 
 fn draw<DB, X, Y>(
@@ -357,11 +513,22 @@ where
         .y_label_area_size(84)
         .build_cartesian_2d(xs, ys)
         .map_err(e)?;
-    let xf = |v: &f64| tick_text(*v, &fig.x, fig.integer_x);
-    let yf = |v: &f64| tick_text(*v, &fig.y, false);
+    let span = |r: (f64, f64), scale: Scale| (scale == Scale::Linear).then_some(r);
+    let (xspan, yspan) = (span(xr, fig.x.scale), span(yr, fig.y.scale));
+    let xf = |v: &f64| tick_text(*v, &fig.x, fig.integer_x, xspan);
+    let yf = |v: &f64| tick_text(*v, &fig.y, false, yspan);
+    // A percentage axis (a ratio, a deviation) already reads as a change: no note.
+    let desc = |a: &Axis, r: (f64, f64)| {
+        let percent = a.unit.as_deref() == Some("%") || (a.unit.is_none() && a.label.contains('%'));
+        match (a.scale, narrow_note(r.0, r.1, a.unit.as_deref())) {
+            (Scale::Linear, Some(n)) if !percent => format!("{} ({n})", a.label),
+            _ => a.label.clone(),
+        }
+    };
+    let (xdesc, ydesc) = (desc(&fig.x, xr), desc(&fig.y, yr));
     let mut mesh = chart.configure_mesh();
-    mesh.x_desc(fig.x.label.as_str())
-        .y_desc(fig.y.label.as_str())
+    mesh.x_desc(xdesc.as_str())
+        .y_desc(ydesc.as_str())
         .x_label_formatter(&xf)
         .y_label_formatter(&yf)
         .label_style(("sans-serif", 15))
@@ -451,8 +618,13 @@ where
                         .map_err(e)?,
                 }
             }
+            // Points outside a fixed vertical range are left out, not piled on the frame.
             Style::Points => chart
-                .draw_series(pts.into_iter().map(|p| Circle::new(p, 3, colour.filled())))
+                .draw_series(
+                    pts.into_iter()
+                        .filter(|p| p.1 >= yr.0 && p.1 <= yr.1)
+                        .map(|p| Circle::new(p, 3, colour.filled())),
+                )
                 .map_err(e)?,
             Style::Bars => {
                 let k = bar_series.len().max(1) as f64;
@@ -548,8 +720,89 @@ where
     Ok(())
 }
 
+/// Pixel size of a figure: a chart is [`WIDTH`] × [`HEIGHT`]; a sketch has its own.
+pub fn size(fig: &Figure) -> (u32, u32) {
+    fig.sketch
+        .as_ref()
+        .map_or((WIDTH, HEIGHT), |s| (s.width, s.height))
+}
+
+fn draw_sketch<DB: DrawingBackend>(
+    root: &DrawingArea<DB, Shift>,
+    fig: &Figure,
+    sk: &Sketch,
+) -> Result<(), String> {
+    use plotters::style::text_anchor::{HPos, Pos, VPos};
+    let e = |e: DrawingAreaErrorKind<DB::ErrorType>| format!("{e:?}");
+    let ink = RGBColor(30, 30, 30);
+    let thin = RGBColor(120, 120, 120);
+    root.fill(&WHITE).map_err(e)?;
+    root.draw(&Text::new(
+        fig.title.clone(),
+        (sk.width as i32 / 2, 22),
+        ("sans-serif", 20)
+            .into_font()
+            .style(FontStyle::Bold)
+            .color(&BLACK)
+            .pos(Pos::new(HPos::Center, VPos::Center)),
+    ))
+    .map_err(e)?;
+    for i in &sk.ink {
+        match i {
+            Ink::Path(p) => root
+                .draw(&PathElement::new(p.clone(), ink.stroke_width(2)))
+                .map_err(e)?,
+            Ink::Thin(p) => root
+                .draw(&PathElement::new(p.clone(), thin.stroke_width(1)))
+                .map_err(e)?,
+            Ink::Frame(x0, y0, x1, y1) => root
+                .draw(&Rectangle::new(
+                    [(*x0, *y0), (*x1, *y1)],
+                    ink.stroke_width(2),
+                ))
+                .map_err(e)?,
+            Ink::Dot(x, y) => root
+                .draw(&Circle::new((*x, *y), 3, ink.filled()))
+                .map_err(e)?,
+            Ink::Ring(x, y, r) => root
+                .draw(&Circle::new((*x, *y), *r, ink.stroke_width(2)))
+                .map_err(e)?,
+            Ink::Text {
+                x,
+                y,
+                text,
+                size,
+                anchor,
+                bold,
+            } => {
+                let h = match anchor {
+                    Anchor::Left => HPos::Left,
+                    Anchor::Centre => HPos::Center,
+                    Anchor::Right => HPos::Right,
+                };
+                let font = ("sans-serif", *size).into_font().style(if *bold {
+                    FontStyle::Bold
+                } else {
+                    FontStyle::Normal
+                });
+                root.draw(&Text::new(
+                    text.clone(),
+                    (*x, *y),
+                    font.color(&BLACK).pos(Pos::new(h, VPos::Center)),
+                ))
+                .map_err(e)?
+            }
+        }
+    }
+    root.present().map_err(e)?;
+    Ok(())
+}
+
 fn render<DB: DrawingBackend>(root: DrawingArea<DB, Shift>, fig: &Figure) -> Result<(), String> {
     register_fonts()?;
+    if let Some(sk) = &fig.sketch {
+        return draw_sketch(&root, fig, sk);
+    }
     let xs = fig
         .series
         .iter()
@@ -632,7 +885,7 @@ fn render<DB: DrawingBackend>(root: DrawingArea<DB, Shift>, fig: &Figure) -> Res
 pub fn svg(fig: &Figure) -> Result<String, PlotError> {
     let mut out = String::new();
     {
-        let root = SVGBackend::with_string(&mut out, (WIDTH, HEIGHT)).into_drawing_area();
+        let root = SVGBackend::with_string(&mut out, size(fig)).into_drawing_area();
         render(root, fig).map_err(|reason| PlotError::Draw {
             figure: fig.name.clone(),
             reason,
@@ -656,18 +909,94 @@ pub fn png_bytes(fig: &Figure) -> Result<Vec<u8>, PlotError> {
         figure: fig.name.clone(),
         reason,
     };
-    let mut rgb = vec![0u8; WIDTH as usize * HEIGHT as usize * 3];
+    let (width, height) = size(fig);
+    let mut rgb = vec![0u8; width as usize * height as usize * 3];
     {
-        let root = BitMapBackend::with_buffer(&mut rgb, (WIDTH, HEIGHT)).into_drawing_area();
+        let root = BitMapBackend::with_buffer(&mut rgb, (width, height)).into_drawing_area();
         render(root, fig).map_err(fail)?;
     }
     let mut out = Vec::new();
     {
-        let mut enc = png::Encoder::new(&mut out, WIDTH, HEIGHT);
+        let mut enc = png::Encoder::new(&mut out, width, height);
         enc.set_color(png::ColorType::Rgb);
         enc.set_depth(png::BitDepth::Eight);
         let mut w = enc.write_header().map_err(|e| fail(e.to_string()))?;
         w.write_image_data(&rgb).map_err(|e| fail(e.to_string()))?;
     }
     Ok(out)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// Every `<text>` of a rendered SVG.
+    fn texts(svg: &str) -> Vec<String> {
+        svg.split("<text")
+            .skip(1)
+            .filter_map(|t| {
+                let body = &t[t.find('>')? + 1..];
+                Some(body[..body.find("</text>")?].trim().to_string())
+            })
+            .collect()
+    }
+
+    fn line(name: &str, x: Axis, y: Axis, pts: Vec<(f64, f64)>) -> Figure {
+        Figure::new(name, name, x, y).with("data", Style::Line, pts)
+    }
+
+    /// Ranges the issue met (a gain from 2e6 to 4.4e6 read "2e6 2e6 … 4e6 4e6", a spread axis
+    /// read "550 m%", a rise over 3.41–3.49 ns) and a few more: the rendered tick labels are all
+    /// different, and a percentage never takes a prefix.
+    #[test]
+    fn tick_labels_never_repeat() {
+        let cases: Vec<(Option<&str>, f64, f64)> = vec![
+            (None, 2.0e6, 4.4e6),
+            (Some("%"), 0.2, 0.9),
+            (Some("s"), 3.41e-9, 3.49e-9),
+            (Some("V"), 660.0, 1500.0),
+            (Some("V"), 999.0, 1001.0),
+            (None, 0.9998, 1.0003),
+            (Some("A"), -2e-6, 7e-6),
+            (None, 100.0, 1.0e5),
+        ];
+        for (unit, lo, hi) in cases {
+            let pts: Vec<(f64, f64)> = (0..=20)
+                .map(|i| (f64::from(i), lo + (hi - lo) * f64::from(i) / 20.0))
+                .collect();
+            let fig = line(
+                "t",
+                Axis::linear("x", Some("Hz")),
+                Axis::linear("y", unit),
+                pts,
+            );
+            let svg = svg(&fig).unwrap();
+            let t = texts(&svg);
+            let mut seen = std::collections::BTreeSet::new();
+            for label in &t {
+                assert!(
+                    seen.insert(label.clone()),
+                    "{unit:?} {lo}..{hi}: '{label}' twice in {t:?}"
+                );
+                assert!(!label.contains("m%"), "{label}");
+            }
+        }
+    }
+
+    /// A linear axis whose height is a small part of its value says so in its label; one that
+    /// spans zero or a wide range does not.
+    #[test]
+    fn narrow_axes_say_so() {
+        let n = narrow_note(3.41e-9, 3.49e-9, Some("s")).unwrap();
+        assert!(n.contains("2.29 %") && n.contains("3.45 ns"), "{n}");
+        assert!(narrow_note(-1.0, 1.0, Some("V")).is_none());
+        assert!(narrow_note(660.0, 1500.0, Some("V")).is_none());
+        let fig = line(
+            "rise",
+            Axis::linear("x", None),
+            Axis::linear("rise", Some("s")),
+            vec![(0.0, 3.85e-9), (1.0, 3.92e-9)],
+        );
+        assert!(svg(&fig).unwrap().contains("full height"));
+    }
 }

@@ -124,6 +124,8 @@ pub struct SizedCap {
 /// Capacitor sizing for an allowed droop.
 #[derive(Debug, Clone, PartialEq)]
 pub struct Sizing {
+    /// Pulses of the train the sizing ran when not sized for ever (at most [`DERIVED_PULSES`]).
+    pub pulses_sized: usize,
     /// Whether the values hold the pattern continuing for ever (its steady state), rather than
     /// the train as given from rest (a single pulse, or a rate the base cannot sustain).
     pub for_ever: bool,
@@ -142,6 +144,8 @@ pub struct Sizing {
 /// Tapered against as-built.
 #[derive(Debug, Clone, PartialEq)]
 pub struct TaperComparison {
+    /// Pulses of the train the comparison ran (at most [`DERIVED_PULSES`]).
+    pub pulses_compared: usize,
     /// Factors applied to the last gaps' resistors.
     pub factors: Vec<f64>,
     /// Whether the factors were the default.
@@ -182,6 +186,10 @@ pub struct SteadyReport {
     /// One-period solves the shooting took.
     pub periods_solved: usize,
 }
+
+/// The most pulses a comparison or a sizing that re-runs the train takes (the train's first
+/// ones), so that a long train costs its own run and little more.
+pub const DERIVED_PULSES: usize = 200;
 
 /// Pulses the Poisson statistics draw.
 pub const POISSON_PULSES: usize = 200_000;
@@ -658,6 +666,7 @@ fn size_caps(
         });
     }
     Ok(Some(Sizing {
+        pulses_sized: spec.pattern.arrivals_len(),
         for_ever: steady && !matches!(spec.pattern, Pattern::Single),
         allowed,
         caps,
@@ -739,18 +748,43 @@ pub fn analyse(
         (None, None, None)
     } else {
         let pl = pulse_linearity(&base, &spec.shape, start_peak, qk)?;
-        let sizing = size_caps(design, tube, &spec, qk, &run)?;
+        // Comparisons that re-run the train take at most its first DERIVED_PULSES pulses.
+        let count = spec.pattern.arrivals_len();
+        let short = (count > DERIVED_PULSES).then(|| TrainSpec {
+            pattern: spec.pattern.with_count(DERIVED_PULSES),
+            ..spec.clone()
+        });
+        let derived = short.as_ref().unwrap_or(&spec);
+        let sizing = size_caps(design, tube, derived, qk, &run)?;
         let td = tapered(design, &spec.taper);
         let tbase = Base::from_design(&td, tube.clone());
         let tpl = pulse_linearity(&tbase, &spec.shape, start_peak, qk)?;
-        let trun = run_train(&tbase, &spec, qk, &quiet())?;
+        let trun = run_train(&tbase, derived, qk, &quiet())?;
+        // The shorter train's pulses are the first ones of the train as solved when its
+        // arrivals are a prefix (a train from rest does not know its future); else re-run.
+        let built_worst = match &short {
+            Some(sp) => {
+                let a = sp.pattern.arrivals();
+                if spec.pattern.arrivals().starts_with(&a) {
+                    let g1 = run.pulses[0].gain();
+                    run.pulses[..a.len()]
+                        .iter()
+                        .map(|p| p.gain() / g1)
+                        .fold(f64::INFINITY, f64::min)
+                } else {
+                    worst_ratio(&run_train(&base, sp, qk, &quiet())?)
+                }
+            }
+            None => worst_ratio(&run),
+        };
         let taper = TaperComparison {
+            pulses_compared: derived.pattern.arrivals_len(),
             factors: spec.taper.clone(),
             assumed: spec.taper_assumed,
             gain: (run.initial_gain, trun.initial_gain),
             pct1_amps: (pl.pct1_amps, tpl.pct1_amps),
             pct5_amps: (pl.pct5_amps, tpl.pct5_amps),
-            worst_gain_ratio: (worst_ratio(&run), worst_ratio(&trun)),
+            worst_gain_ratio: (built_worst, worst_ratio(&trun)),
             last_gap_volts: (run.elements_initial[n], trun.elements_initial[n]),
         };
         (Some(pl), sizing, Some(taper))

@@ -30,6 +30,7 @@ pub const FIELDS: &[(&str, Kind)] = &[
     ("supply.volts", Kind::Voltage),
     ("supply.current_limit", Kind::Current),
     ("divider.gaps[i]", Kind::Resistance),
+    ("divider.gaps[*]", Kind::Ratio),
     ("divider.decoupling[i].value", Kind::Capacitance),
     ("divider.stray", Kind::Capacitance),
     ("load.resistance", Kind::Resistance),
@@ -74,6 +75,9 @@ pub struct Axis {
 }
 
 fn field_kind(path: &str) -> Option<(Kind, Option<usize>)> {
+    if path == "divider.gaps[*]" {
+        return Some((Kind::Ratio, None));
+    }
     // Replace one `[digits]` by `[i]`.
     let (generic, index) = match (path.find('['), path.find(']')) {
         (Some(a), Some(b)) if b > a + 1 => {
@@ -169,17 +173,27 @@ pub fn parse_axis(spec: &str) -> Result<Axis, SweepError> {
 /// Set one field of a checked design. Errors name the field and the problem.
 pub fn set_field(d: &mut Design, path: &str, x: f64) -> Result<(), String> {
     let (_, index) = field_kind(path).ok_or_else(|| format!("{path}: not a sweepable field"))?;
+    // Indices count from 1, as the design file numbers gaps (gap 1 = K–D1) and the parts
+    // list numbers capacitors (C1 first).
     let idx = |len: usize| -> Result<usize, String> {
-        let i = index.ok_or_else(|| format!("{path}: expected an index"))?;
-        if i >= len {
+        let i = index.ok_or_else(|| format!("{path}: expected an index from 1, or [*]"))?;
+        if i == 0 || i > len {
             return Err(format!(
-                "{path}: index {i} is out of range (0 to {})",
-                len - 1
+                "{path}: index {i} is out of range: they count from 1 (gap 1 = K–D1), as in the design file, up to {len}"
             ));
         }
-        Ok(i)
+        Ok(i - 1)
     };
     let v = ElectricPotential::new::<volt>;
+    if path == "divider.gaps[*]" {
+        // Every resistor of the divider scaled together (a Zener keeps its voltage).
+        for e in &mut d.elements {
+            if let Element::Resistor(r) = e {
+                *e = Element::Resistor(ElectricalResistance::new::<ohm>(r.get::<ohm>() * x));
+            }
+        }
+        return Ok(());
+    }
     let generic = match path.find('[') {
         Some(a) => format!(
             "{}[i]{}",
@@ -282,6 +296,15 @@ pub struct Row {
     pub dissipation_watts: Option<f64>,
     /// Anode current where |deviation| first reaches 1 %, amperes (None: not reached).
     pub linearity_1pct_amps: Option<f64>,
+    /// Peak of the pulse at the load, volts (with a light block).
+    pub pulse_peak_volts: Option<f64>,
+    /// 10–90 % rise as displayed (with a readout), else of the computed pulse, seconds.
+    pub rise_s: Option<f64>,
+    /// Peak over baseline noise (with a readout).
+    pub snr: Option<f64>,
+    /// Droop of the capacitor on the last gap per pulse, `Q / (C V)` as a fraction of its gap
+    /// voltage (with a light or train block and a capacitor on the last gap).
+    pub droop: Option<f64>,
     /// "ok", or what is broken.
     pub verdict: String,
 }
@@ -295,7 +318,42 @@ pub struct Sweep {
     pub rows: Vec<Row>,
 }
 
-fn point(base: &Design, axes: &[Axis], values: &[f64], ws: &mut Workspace) -> Row {
+/// Most grid points for which the pulse columns are computed (each runs the signal budget).
+pub const MAX_SIGNAL_POINTS: usize = 50;
+
+/// The pulse, rise, S/N and droop columns of one point, from the core analysis of the
+/// changed design (no pulse train is run).
+fn pulse_columns(d: &Design, row: &mut Row) {
+    let Ok(a) = crate::analysis::analyse_with(d, None) else {
+        return;
+    };
+    let Some(s) = &a.signal else { return };
+    row.pulse_peak_volts = Some(s.pulse.peak).filter(|x| x.is_finite());
+    row.rise_s = s
+        .readable
+        .as_ref()
+        .and_then(|r| r.displayed_rise)
+        .or(s.pulse.rise)
+        .filter(|x| x.is_finite());
+    row.snr = s.readable.as_ref().map(|r| r.snr).filter(|x| x.is_finite());
+    // ΔV = Q/C on the capacitor holding the last gap (across it, or from Dn to the return).
+    let n = d.tube.stages;
+    let c_last: f64 = d
+        .decoupling
+        .iter()
+        .filter(|c| {
+            matches!(c.style, CapStyle::Across(g) if g == n + 1)
+                || matches!(c.style, CapStyle::ToReturn(k) if k == n)
+        })
+        .map(|c| c.value.get::<farad>())
+        .sum();
+    let v_last = a.gaps.last().map_or(0.0, |g| g.volts.abs());
+    if c_last > 0.0 && v_last > 0.0 {
+        row.droop = Some(s.charge / (c_last * v_last)).filter(|x| x.is_finite());
+    }
+}
+
+fn point(base: &Design, axes: &[Axis], values: &[f64], ws: &mut Workspace, signal: bool) -> Row {
     let mut d = base.clone();
     let mut row = Row {
         values: values.to_vec(),
@@ -307,6 +365,10 @@ fn point(base: &Design, axes: &[Axis], values: &[f64], ws: &mut Workspace) -> Ro
         sensitivity: None,
         dissipation_watts: None,
         linearity_1pct_amps: None,
+        pulse_peak_volts: None,
+        rise_s: None,
+        snr: None,
+        droop: None,
         verdict: String::new(),
     };
     for (a, x) in axes.iter().zip(values) {
@@ -395,6 +457,9 @@ fn point(base: &Design, axes: &[Axis], values: &[f64], ws: &mut Workspace) -> Ro
         problems.push("anode current above rating".into());
     }
     row.linearity_1pct_amps = crate::linearity::crossing(&net, 0.01, true, ws);
+    if signal {
+        pulse_columns(&d, &mut row);
+    }
     problems.dedup();
     row.verdict = if problems.is_empty() {
         "ok".into()
@@ -415,9 +480,12 @@ pub fn run(design: &Design, axes: &[Axis]) -> Sweep {
             .collect(),
         _ => Vec::new(),
     };
+    let signal = design.signal.light.is_some() && grid.len() <= MAX_SIGNAL_POINTS;
     let rows = grid
         .par_iter()
-        .map_init(Workspace::default, |ws, v| point(design, axes, v, ws))
+        .map_init(Workspace::default, |ws, v| {
+            point(design, axes, v, ws, signal)
+        })
         .collect();
     Sweep {
         axes: axes.to_vec(),
@@ -433,19 +501,39 @@ pub fn check_axes(design: &Design, axes: &[Axis]) -> Result<(), String> {
         let mut d = design.clone();
         set_field(&mut d, &a.path, a.values[0])?;
         let generic = match (a.path.find('['), a.path.find(']')) {
+            _ if a.path == "divider.gaps[*]" => a.path.clone(),
             (Some(i), Some(j)) if j > i => format!("{}[i]{}", &a.path[..i], &a.path[j + 1..]),
             _ => a.path.clone(),
         };
         let zener = generic == "divider.gaps[i]"
             && field_kind(&a.path)
                 .and_then(|(_, i)| i)
-                .and_then(|i| design.elements.get(i))
+                .and_then(|i| design.elements.get(i.wrapping_sub(1)))
                 .is_some_and(|e| matches!(e, Element::Zener(..)));
         if let Some(range) = crate::limits::of_field(&generic, zener) {
             for v in &a.values {
                 range.check(*v).map_err(|e| {
                     format!("{}: {e} (the design file's range for this field)", a.path)
                 })?;
+            }
+        }
+        if a.path == "divider.gaps[*]" {
+            // The scaled resistors must stay within the design file's range for a resistor.
+            for v in [a.values[0], *a.values.last().unwrap_or(&1.0)] {
+                let mut d = design.clone();
+                set_field(&mut d, &a.path, v)?;
+                for (j, e) in d.elements.iter().enumerate() {
+                    if let Element::Resistor(r) = e {
+                        crate::limits::RESISTOR.check(r.get::<ohm>()).map_err(|e| {
+                            format!(
+                                "{}: scaled by {}, gap {}: {e}",
+                                a.path,
+                                units::show_number(v),
+                                j + 1
+                            )
+                        })?;
+                    }
+                }
             }
         }
     }

@@ -148,6 +148,8 @@ const COMMANDS: &[&[&str]] = &[
     &["spread", "{design}", "--samples", "50", "--plots", "{out}"],
     &["sweep", "{design}", "--vary", "supply.volts=900V..1500V:3", "-o", "{out}"],
     &["sweep", "{design}", "--vary", "supply.volts=900V..1500V:3", "--plots", "{out}"],
+    &["compare", "{design}", "{design}", "-o", "{out}"],
+    &["report", "{design}", "--format", "parts-csv", "-o", "{out}"],
 ];
 
 fn run(args: &[&str]) -> Output {

@@ -34,6 +34,13 @@ pub const NULLABLE: &[&str] = &[
     "energy_resolution_fwhm",
     "readable.threshold_efficiency",
     "energy_resolution_statistical_fwhm",
+    // report: parts (a value in no E-series; no power for a capacitor, no voltage rating for
+    // a Zener, no margin for a part that sees no voltage)
+    "parts[].series",
+    "parts[].power_watts",
+    "parts[].power_rating_watts",
+    "parts[].voltage_rating_volts",
+    "parts[].voltage_margin",
     // report: safety
     "capacitors[].rating_volts",
     "bleed_seconds",
@@ -64,6 +71,10 @@ pub const NULLABLE: &[&str] = &[
     "rows[].sensitivity",
     "rows[].dissipation_watts",
     "rows[].linearity_1pct_amps",
+    "rows[].pulse_peak_volts",
+    "rows[].rise_s",
+    "rows[].snr",
+    "rows[].droop",
     // train (docs/json.md, "Train JSON"): no train block; limits not reached; scans not made
     "train",
     "train.recovery_s",

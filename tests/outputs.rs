@@ -58,10 +58,8 @@ fn every_demo_renders_every_figure_as_svg_and_png() {
         stems.sort();
         let d = dynode::design::load(&design).unwrap();
         let a = dynode::analysis::analyse(&d).unwrap();
-        let names: Vec<String> = dynode::report::figures::all(&a)
-            .into_iter()
-            .map(|f| f.name)
-            .collect();
+        let figs = dynode::report::figures::all(&a);
+        let names: Vec<String> = figs.iter().map(|f| f.name.clone()).collect();
         for core in ["gaps", "gain-curve", "linearity"] {
             assert!(names.iter().any(|n| n == core), "{core} is always drawn");
         }
@@ -73,11 +71,8 @@ fn every_demo_renders_every_figure_as_svg_and_png() {
             );
             assert!(svg.contains("<text"), "{name}.svg has text");
             let (w, h, var) = png_stats(&dir.join(format!("{name}.png")));
-            assert_eq!(
-                (w, h),
-                (dynode::plot::WIDTH, dynode::plot::HEIGHT),
-                "{name}.png size"
-            );
+            let fig = figs.iter().find(|f| &f.name == name).unwrap();
+            assert_eq!((w, h), dynode::plot::size(fig), "{name}.png size");
             assert!(var > 200.0, "{name}.png looks blank (grey variance {var})");
         }
         assert!(

@@ -4,6 +4,8 @@
 
 /// Bad and hostile input, the corpus in tests/bad_designs/, and "nothing lost" for outputs.
 mod bad_input;
+/// From the screen to the bench: starters, schematic, parts list, compare, live page.
+mod bench;
 /// One circuit: the same base in every section; the signal path as wired.
 mod circuit;
 mod common;

@@ -165,37 +165,144 @@ pub fn train_droop(t: &crate::pulsetrain::TrainAnalysis) -> Option<Figure> {
     Some(f)
 }
 
-/// The computed pulse at the load with its 10 % and 90 % levels and the peak.
+/// The time window of the pulse itself on the computed record: from a little before the signal
+/// first reaches 1 % of the peak to a little after it falls back under 5 % (before the first
+/// cable echo can arrive), so that a 6 ns pulse is not drawn on a 600 ns axis.
+fn pulse_window(s: &crate::signal::SignalBudget) -> (f64, f64) {
+    let w = &s.waveform;
+    let p = &s.pulse;
+    let (t0, t1) = (
+        w.t.first().copied().unwrap_or(0.0),
+        w.t.last().copied().unwrap_or(1.0),
+    );
+    let start =
+        w.t.iter()
+            .zip(&w.v)
+            .find(|(_, v)| v.abs() >= 0.01 * p.peak)
+            .map_or(t0, |(t, _)| *t);
+    let fall =
+        w.t.iter()
+            .zip(&w.v)
+            .find(|(t, v)| **t > p.t_peak && v.abs() < 0.05 * p.peak)
+            .map_or(t1, |(t, _)| *t);
+    let width = (fall - start).max(1e-12);
+    let mut lo = (start - 0.6 * width).max(t0);
+    let mut hi = (fall + 1.5 * width).min(t1);
+    if let Some(e) = &s.echoes {
+        // Stop before the first echo, unless the pulse outlasts the round trip.
+        hi = hi.min((p.t_peak + 0.8 * e.spacing).max(fall + 0.25 * width));
+    }
+    if hi <= lo {
+        (lo, hi) = (t0, t1);
+    }
+    (lo, hi)
+}
+
+/// Samples of the record within `[lo, hi]`, signed as the instrument shows them.
+fn displayed(w: &crate::waveform::Waveform, lo: f64, hi: f64) -> Vec<(f64, f64)> {
+    w.t.iter()
+        .zip(&w.v)
+        .filter(|(t, _)| **t >= lo && **t <= hi)
+        .map(|(t, v)| (*t, -v))
+        .collect()
+}
+
+/// The computed pulse at the load as the instrument shows it: negative-going (electrons
+/// arriving at the anode pull the signal node down, and a coupling capacitor passes the same
+/// edge), zoomed on the pulse, with its 10 % and 90 % levels and the peak in the title.
 pub fn pulse(s: &crate::signal::SignalBudget) -> Figure {
     let w = &s.waveform;
     let p = &s.pulse;
+    let (lo, hi) = pulse_window(s);
+    // With a front end the figure shows its output as computed (its sign depends on the
+    // amplifier); without, the anode pulse as the instrument shows it, negative-going.
     let place = if s.front_end.is_some() {
         "the front end's output"
     } else {
-        "the load"
+        "the instrument"
     };
     let mut f = Figure::new(
         "pulse",
-        &format!("Pulse at {place} (computed waveform)"),
-        Axis::linear("time", Some("s")),
-        Axis::linear(&format!("signal at {place} (magnitude)"), Some("V")),
-    )
-    .with(
-        "computed pulse",
-        Style::Line,
-        w.t.iter().copied().zip(w.v.iter().copied()).collect(),
+        &if s.front_end.is_some() {
+            format!("Pulse at {place} (computed waveform, magnitude)")
+        } else {
+            format!("Pulse at {place} (computed waveform, negative-going as displayed)")
+        },
+        Axis::linear("time from the start of the anode current", Some("s")),
+        Axis::linear(&format!("signal at {place}"), Some("V")),
     );
-    f.markers.push(Marker::Y(0.9 * p.peak, "90 %".to_string()));
-    f.markers.push(Marker::Y(0.1 * p.peak, "10 %".to_string()));
-    if let Some(r) = p.rise {
-        f.title = format!(
-            "Pulse at {place}: peak {}, 10–90 % rise {}",
-            crate::units::format_eng(p.peak, "V"),
+    let sign = if s.front_end.is_some() { 1.0 } else { -1.0 };
+    let pts: Vec<(f64, f64)> = displayed(w, lo, hi)
+        .into_iter()
+        .map(|(t, shown)| (t, -sign * shown))
+        .collect();
+    f = f.with("computed pulse", Style::Line, pts);
+    f.markers
+        .push(Marker::Y(sign * 0.9 * p.peak, "90 %".to_string()));
+    f.markers
+        .push(Marker::Y(sign * 0.1 * p.peak, "10 %".to_string()));
+    f.title = format!(
+        "Pulse at {place}: peak {}{}{}",
+        if sign < 0.0 { "−" } else { "" },
+        crate::units::format_eng(p.peak, "V"),
+        p.rise.map_or(String::new(), |r| format!(
+            ", 10–90 % rise {}",
             crate::units::format_eng(r, "s")
-        );
-    }
-    f.legend = crate::plot::Legend::UpperRight;
+        ))
+    );
+    f.legend = crate::plot::Legend::LowerRight;
     f
+}
+
+/// What follows the pulse over the whole computed record — cable echoes and the tail a
+/// coupling capacitor leaves — on a vertical scale set by them (the pulse itself runs off the
+/// figure, as the title says). `None` when nothing after the pulse reaches 0.5 % of its peak.
+pub fn pulse_after(s: &crate::signal::SignalBudget) -> Option<Figure> {
+    let w = &s.waveform;
+    let p = &s.pulse;
+    let (t0, hi) = pulse_window(s);
+    // With a cable, six round trips show the echoes (a longer record is the slow tail of a
+    // coupling capacitor, whose size the report gives as the undershoot).
+    let last = w.t.last().copied().unwrap_or(1.0);
+    let t1 = s
+        .echoes
+        .as_ref()
+        .map_or(last, |e| (p.t_peak + 6.0 * e.spacing).min(last));
+    let after =
+        w.t.iter()
+            .zip(&w.v)
+            .filter(|(t, _)| **t > hi && **t <= t1)
+            .map(|(_, v)| v.abs())
+            .fold(0.0f64, f64::max);
+    if after.is_nan() || after <= 0.005 * p.peak {
+        return None;
+    }
+    let what = if s.echoes.is_some() {
+        "cable echoes and tail"
+    } else {
+        "tail"
+    };
+    let mut f = Figure::new(
+        "pulse-after",
+        &format!(
+            "After the pulse: {what} (the pulse, peak −{}, runs off the scale)",
+            crate::units::format_eng(p.peak, "V")
+        ),
+        Axis::linear("time from the start of the anode current", Some("s")),
+        Axis::linear("signal at the instrument", Some("V")),
+    )
+    .with("computed signal", Style::Line, displayed(w, t0, t1));
+    f.y_limits = Some((-1.25 * after, 1.25 * after));
+    if let Some(e) = &s.echoes {
+        for k in 1..=5 {
+            let t = p.t_peak + k as f64 * e.spacing;
+            if t < t1 {
+                f.markers.push(Marker::X(t, format!("echo {k}")));
+            }
+        }
+    }
+    f.legend = crate::plot::Legend::LowerRight;
+    Some(f)
 }
 
 /// The single-photoelectron spectrum with the noise, and the discriminator threshold.
@@ -325,9 +432,15 @@ pub fn load_sweep(s: &crate::signal::SignalBudget) -> Vec<Figure> {
 
 /// Every figure of a report, in order.
 pub fn all(a: &Analysis) -> Vec<Figure> {
-    let mut v = vec![gaps(a), gain_curve(a), linearity(a)];
+    let mut v = vec![
+        crate::schematic::figure(a),
+        gaps(a),
+        gain_curve(a),
+        linearity(a),
+    ];
     if let Some(s) = &a.signal {
         v.push(pulse(s));
+        v.extend(pulse_after(s));
         v.push(cathode(a));
         if s.sweep.rows.len() > 1 {
             v.extend(load_sweep(s));

@@ -184,3 +184,54 @@ pub fn render(a: &Analysis) -> String {
     let _ = writeln!(out, "</body>\n</html>");
     out
 }
+
+/// A stand-alone page holding one section of the report (e.g. the pulse train): the cautions
+/// first and last, the design's name, the section as preformatted text, the warnings.
+pub fn section_page(a: &Analysis, command: &str, title: &str, text: &str) -> String {
+    let mut out = String::new();
+    let d = &a.design;
+    let _ = writeln!(
+        out,
+        "<!DOCTYPE html>\n<html lang=\"en\">\n<head>\n<meta charset=\"utf-8\">"
+    );
+    let _ = writeln!(
+        out,
+        "<title>dynode {}: {}</title>",
+        esc(command),
+        esc(&d.name)
+    );
+    let _ = writeln!(out, "<style>{STYLE}</style>\n</head>\n<body>");
+    let _ = writeln!(
+        out,
+        "<section class=\"caution\" id=\"caution-first\"><h2>High-voltage caution</h2><ul>"
+    );
+    for c in tables::cautions(a) {
+        let _ = writeln!(out, "<li>{}</li>", esc(&c));
+    }
+    let _ = writeln!(out, "</ul></section>");
+    let _ = writeln!(out, "<h1>{}</h1>", esc(&d.name));
+    let _ = writeln!(
+        out,
+        "<p class=\"meta\">dynode {}: design file <code>{}</code></p>",
+        esc(command),
+        esc(&d.source)
+    );
+    let _ = writeln!(out, "<h2>{}</h2>\n<pre>{}</pre>", esc(title), esc(text));
+    let _ = writeln!(out, "<h2>Warnings</h2>");
+    if a.warnings.is_empty() {
+        let _ = writeln!(out, "<p>None.</p>");
+    } else {
+        let _ = writeln!(out, "<ul class=\"warn\">");
+        for w in &a.warnings {
+            let _ = writeln!(out, "<li>{}</li>", esc(w));
+        }
+        let _ = writeln!(out, "</ul>");
+    }
+    let _ = writeln!(
+        out,
+        "<section class=\"caution\" id=\"caution-last\"><p><strong>{}</strong></p></section>",
+        esc(CLOSING_CAUTION)
+    );
+    let _ = writeln!(out, "</body>\n</html>");
+    out
+}

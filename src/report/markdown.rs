@@ -120,3 +120,37 @@ pub fn render(a: &Analysis) -> String {
     let _ = writeln!(out, "\n> **{CLOSING_CAUTION}**");
     out
 }
+
+/// A stand-alone Markdown document holding one section of the report (e.g. the pulse train):
+/// the cautions first and last, the design's name, the section in a code block, the warnings.
+pub fn section_page(a: &Analysis, command: &str, title: &str, text: &str) -> String {
+    let mut out = String::new();
+    let d = &a.design;
+    let _ = writeln!(out, "> **HIGH-VOLTAGE CAUTION**\n>");
+    for c in tables::cautions(a) {
+        let _ = writeln!(out, "> - {c}");
+    }
+    let _ = writeln!(
+        out,
+        "\n# {}\n\ndynode {}: design file {}\n",
+        literal(&d.name),
+        literal(command),
+        literal(&d.source)
+    );
+    let f = fence(text);
+    let _ = writeln!(
+        out,
+        "## {}\n\n{f}text\n{}\n{f}\n",
+        literal(title),
+        text.trim_end()
+    );
+    let _ = writeln!(out, "## Warnings\n");
+    if a.warnings.is_empty() {
+        let _ = writeln!(out, "None.");
+    }
+    for w in &a.warnings {
+        let _ = writeln!(out, "- {w}");
+    }
+    let _ = writeln!(out, "\n> **{CLOSING_CAUTION}**");
+    out
+}

@@ -68,6 +68,9 @@ pub enum Format {
     Html,
     /// Markdown for notebooks and issue trackers.
     Markdown,
+    /// The parts list as CSV (one line per part, for a spreadsheet or an order).
+    #[value(name = "parts-csv")]
+    PartsCsv,
 }
 
 /// Render an analysis in the chosen format.
@@ -77,6 +80,7 @@ pub fn render(a: &Analysis, format: Format) -> String {
         Format::Json => json::render(a),
         Format::Html => html::render(a),
         Format::Markdown => markdown::render(a),
+        Format::PartsCsv => crate::parts::csv(a),
     }
 }
 
@@ -103,5 +107,6 @@ pub fn extra_sections(a: &Analysis) -> Vec<(String, String)> {
     if let Some(t) = train::section_text(a) {
         v.push(("Pulse train".to_string(), t));
     }
+    v.push(("Parts list".to_string(), crate::parts::text(a)));
     v
 }

@@ -55,7 +55,7 @@ pub fn text(design: &Design, s: &Sweep) -> String {
     }
     let _ = writeln!(
         out,
-        "at an average anode current of {}; ±1 % limit = anode current where the DC gain deviation first reaches 1 %",
+        "at an average anode current of {}; ±1 % limit = anode current where the DC gain deviation first reaches 1 %; pulse = peak at the load (negative-going), rise as displayed, S/N = peak over baseline noise, droop = Q/(C·V) per pulse on the last gap's capacitor",
         eng(
             design
                 .anode_current
@@ -69,20 +69,44 @@ pub fn text(design: &Design, s: &Sweep) -> String {
         let name = a.path.rsplit('.').next().unwrap_or(&a.path);
         let _ = write!(head, "{name:>12} ");
     }
+    let pulse = s.rows.iter().any(|r| r.pulse_peak_volts.is_some());
+    if !pulse && design.signal.light.is_some() && s.rows.len() > crate::sweep::MAX_SIGNAL_POINTS {
+        let _ = writeln!(
+            out,
+            "(the pulse, rise, S/N and droop columns are computed for sweeps of up to {} points)\n",
+            crate::sweep::MAX_SIGNAL_POINTS
+        );
+    }
+    let pulse_head = if pulse {
+        format!("{:>9} {:>9} {:>7} {:>8} ", "pulse", "rise", "S/N", "droop")
+    } else {
+        String::new()
+    };
     let _ = writeln!(
         out,
-        "{head}{:>9} {:>10} {:>10} {:>9} {:>9} {:>7} {:>9} {:>10}  verdict",
+        "{head}{:>9} {:>10} {:>10} {:>9} {:>9} {:>7} {:>9} {:>10} {pulse_head} verdict",
         "supply", "gain G0", "gain(op)", "dev(op)", "divider", "dlnG/dlnV", "power", "±1 % lim."
     );
     for r in &s.rows {
+        let o = |x: Option<f64>, f: &dyn Fn(f64) -> String| x.map_or("—".to_string(), f);
+        let pulse_cells = if pulse {
+            format!(
+                "{:>9} {:>9} {:>7} {:>8} ",
+                o(r.pulse_peak_volts, &|v| format!("−{}", eng(v, "V"))),
+                o(r.rise_s, &|t| eng(t, "s")),
+                o(r.snr, &|x| format!("{x:.0}")),
+                o(r.droop, &|x| format!("{:.3}%", x * 100.0)),
+            )
+        } else {
+            String::new()
+        };
         let mut line = String::new();
         for (a, x) in s.axes.iter().zip(&r.values) {
             let _ = write!(line, "{:>12} ", show(*x, a.kind));
         }
-        let o = |x: Option<f64>, f: &dyn Fn(f64) -> String| x.map_or("—".to_string(), f);
         let _ = writeln!(
             out,
-            "{line}{:>9} {:>10} {:>10} {:>9} {:>9} {:>7} {:>9} {:>10}  {}",
+            "{line}{:>9} {:>10} {:>10} {:>9} {:>9} {:>7} {:>9} {:>10} {pulse_cells} {}",
             eng(r.supply_volts, "V"),
             o(r.small_signal_gain, &|g| format!("{g:.3e}")),
             o(r.gain, &|g| format!("{g:.3e}")),
@@ -163,7 +187,12 @@ pub fn figures(s: &Sweep) -> Vec<crate::plot::Figure> {
             .enumerate()
             .map(|(j, v)| {
                 (
-                    format!("{} = {}", b.path, show(*v, b.kind)),
+                    // The field's last name is enough beside the title's full path.
+                    format!(
+                        "{} = {}",
+                        b.path.rsplit('.').next().unwrap_or(&b.path),
+                        show(*v, b.kind)
+                    ),
                     s.rows.iter().skip(j).step_by(b.values.len()).collect(),
                 )
             })
@@ -199,6 +228,27 @@ pub fn figures(s: &Sweep) -> Vec<crate::plot::Figure> {
             r.linearity_1pct_amps
         }),
     );
+    // A grid draws one small-signal line per value of the second axis only where it differs
+    // from the one before (the operating current, say, leaves it alone), so the legend stays
+    // short; the legend goes to the side the gain leaves free.
+    let g0_of = |rows: &Vec<&crate::sweep::Row>| -> Vec<f64> {
+        rows.iter().filter_map(|r| r.small_signal_gain).collect()
+    };
+    let all_same = groups.len() > 1
+        && groups.windows(2).all(|w| {
+            let (a, b) = (g0_of(&w[0].1), g0_of(&w[1].1));
+            a.len() == b.len() && a.iter().zip(&b).all(|(x, y)| (x / y - 1.0).abs() < 1e-9)
+        });
+    let l1_of = |rows: &Vec<&crate::sweep::Row>| -> Vec<f64> {
+        rows.iter().filter_map(|r| r.linearity_1pct_amps).collect()
+    };
+    let all_same_l1 = groups.len() > 1
+        && groups.windows(2).all(|w| {
+            let (a, b) = (l1_of(&w[0].1), l1_of(&w[1].1));
+            a.len() == b.len() && a.iter().zip(&b).all(|(x, y)| (x / y - 1.0).abs() < 1e-9)
+        });
+    let mut last_l1: Option<Vec<(f64, f64)>> = None;
+    let mut last_g0: Option<Vec<(f64, f64)>> = None;
     for (label, rows) in &groups {
         let sep = if label.is_empty() { "" } else { ", " };
         let pts = |f: &dyn Fn(&crate::sweep::Row) -> Option<f64>| -> Vec<(f64, f64)> {
@@ -209,22 +259,53 @@ pub fn figures(s: &Sweep) -> Vec<crate::plot::Figure> {
                 })
                 .collect()
         };
-        gain = gain
-            .with(
-                &format!("small-signal{sep}{label}"),
-                Style::Line,
-                pts(&|r| r.small_signal_gain),
-            )
-            .with(
-                &format!("at the operating point{sep}{label}"),
-                Style::Points,
-                pts(&|r| r.gain),
-            );
-        lin = lin.with(
-            &format!("±1 % limit{sep}{label}"),
-            Style::Line,
-            pts(&|r| r.linearity_1pct_amps),
+        let g0 = pts(&|r| r.small_signal_gain);
+        let same = last_g0.as_ref().is_some_and(|p: &Vec<(f64, f64)>| {
+            p.len() == g0.len()
+                && p.iter()
+                    .zip(&g0)
+                    .all(|(a, b)| (a.1 / b.1 - 1.0).abs() < 1e-9)
+        });
+        if !same {
+            let text = if all_same {
+                "small-signal (the same at every value of the second field)".to_string()
+            } else {
+                format!("small-signal{sep}{label}")
+            };
+            gain = gain.with(&text, Style::Line, g0.clone());
+        }
+        last_g0 = Some(g0);
+        gain = gain.with(
+            &format!("at the operating point{sep}{label}"),
+            Style::Points,
+            pts(&|r| r.gain),
         );
+        let l1 = pts(&|r| r.linearity_1pct_amps);
+        let same_l1 = last_l1.as_ref().is_some_and(|p: &Vec<(f64, f64)>| {
+            p.len() == l1.len()
+                && p.iter()
+                    .zip(&l1)
+                    .all(|(a, b)| (a.1 / b.1 - 1.0).abs() < 1e-9)
+        });
+        if !same_l1 {
+            let text = if all_same_l1 {
+                "±1 % limit (the same at every value of the second field)".to_string()
+            } else {
+                format!("±1 % limit{sep}{label}")
+            };
+            lin = lin.with(&text, Style::Line, l1.clone());
+        }
+        last_l1 = Some(l1);
+    }
+    let falls = |f: &crate::plot::Figure| {
+        f.series
+            .first()
+            .is_some_and(|s| s.points.len() > 1 && s.points[0].1 > s.points[s.points.len() - 1].1)
+    };
+    for f in [&mut gain, &mut lin] {
+        if falls(f) {
+            f.legend = crate::plot::Legend::UpperRight;
+        }
     }
     vec![gain, lin]
 }

@@ -352,6 +352,9 @@ pub fn render(a: &Analysis) -> String {
 
     super::train::text(&mut out, a);
     super::signal::render_text(&mut out, a);
+    let _ = writeln!(out, "PARTS LIST");
+    out.push_str(&crate::parts::text(a));
+    let _ = writeln!(out);
 
     let _ = writeln!(out, "WARNINGS");
     if a.warnings.is_empty() {

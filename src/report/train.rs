@@ -232,7 +232,11 @@ fn section(out: &mut String, t: &TrainAnalysis, a: &Analysis) {
                 match t.spec.pattern {
                     _ if !s.for_ever
                         && !matches!(t.spec.pattern, crate::train::Pattern::Single) =>
-                        "over this train from rest: the base has no steady state at its rate",
+                        if s.pulses_sized < t.count {
+                            "over the train's first 200 pulses from rest: the base has no steady state at its rate"
+                        } else {
+                            "over this train from rest: the base has no steady state at its rate"
+                        },
                     crate::train::Pattern::Single => "one pulse from rest",
                     crate::train::Pattern::Poisson(..) =>
                         "the rate continuing for ever, Poisson arrivals: the drop beyond the mean shift exceeded by 1 % of pulses",
@@ -328,7 +332,11 @@ fn section(out: &mut String, t: &TrainAnalysis, a: &Analysis) {
         let _ = writeln!(
             out,
             "    {:<34} {:>11.3} % {:>11.3} %",
-            "lowest pulse gain / first",
+            if tp.pulses_compared < t.count {
+                "lowest pulse gain / first (200 p.)"
+            } else {
+                "lowest pulse gain / first"
+            },
             tp.worst_gain_ratio.0 * 100.0,
             tp.worst_gain_ratio.1 * 100.0
         );
@@ -529,4 +537,25 @@ pub fn render_json(a: &Analysis) -> String {
     let mut s = serde_json::to_string_pretty(&v).unwrap_or_else(|_| "{}".to_string());
     s.push('\n');
     s
+}
+
+/// The stand-alone report of `dynode train` in any format: the train section only (with the
+/// cautions and warnings), never the full report.
+pub fn render(a: &Analysis, format: crate::report::Format) -> String {
+    use crate::report::Format;
+    match format {
+        Format::Text => render_text(a),
+        Format::Json => render_json(a),
+        Format::PartsCsv => crate::parts::csv(a),
+        Format::Html | Format::Markdown => {
+            let text = section_text(a).unwrap_or_else(|| {
+                "The design gives no train block; nothing to solve in time.\n".to_string()
+            });
+            if format == Format::Html {
+                crate::report::html::section_page(a, "train", "Pulse train", &text)
+            } else {
+                crate::report::markdown::section_page(a, "train", "Pulse train", &text)
+            }
+        }
+    }
 }
