@@ -72,7 +72,6 @@ pub fn to_value(a: &Analysis) -> Value {
         "excess_noise_factor": t.excess_noise_factor(&a.op.tube_gap_volts()),
         "supply_quality": crate::report::supply::to_value(a),
         "supply_model": crate::report::supply::model_value(a),
-        "active_stages": crate::report::active::value(a),
         "linearity": {
             "plus_1pct_amps": l.plus_1pct,
             "minus_1pct_amps": l.minus_1pct,
@@ -145,6 +144,7 @@ pub fn to_value(a: &Analysis) -> Value {
         "assumptions": a.assumptions,
     });
     super::signal::add_json(&mut v, a);
+    v["active_stages"] = crate::report::active::value(a);
     v
 }
 
