@@ -2001,13 +2001,13 @@ fn check_followers(c: &Checker, f: &RawFollowers, stages: usize) -> Result<Follo
     for (i, &d) in f.hold.iter().enumerate() {
         if d < 1 || d > stages as i64 {
             return Err(c.fail(
-                &format!("{field}[{i}]"),
+                format!("{field}[{i}]"),
                 format!("expected a dynode number from 1 to {stages}, found {d}"),
             ));
         }
         if hold.contains(&(d as usize)) {
             return Err(c.fail(
-                &format!("{field}[{i}]"),
+                format!("{field}[{i}]"),
                 format!("dynode {d} is named twice"),
             ));
         }
