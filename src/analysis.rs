@@ -125,6 +125,8 @@ pub struct Analysis {
     /// The supply as built (a voltage multiplier under the base's load), when the design
     /// describes one and its steady state was found.
     pub supply_model: Option<crate::multiplier::SupplyModel>,
+    /// Transistor-held stages against the passive divider, when the design has followers.
+    pub active_stages: Option<crate::active::ActiveStages>,
 }
 
 impl Analysis {
@@ -418,7 +420,8 @@ pub fn analyse_with(
             format_eng(max_ia, "A")
         ));
     }
-    if quiescent_amps < 10.0 * ia {
+    // Followers carry the last stages' current: their limits count with the divider's.
+    if design.followers.is_none() && quiescent_amps < 10.0 * ia {
         warnings.push(format!(
             "The divider current {} is less than ten times the anode current {} (common practice asks 10× to 100×); see the linearity figures.",
             format_eng(quiescent_amps, "A"),
@@ -597,7 +600,12 @@ pub fn analyse_with(
     if let Some(sm) = &supply_model {
         supply_model_warnings(design, sm, &mut warnings);
     }
+    let active_stages = crate::active::assess(design, &network, &op);
+    if let Some(act) = &active_stages {
+        warnings.extend(crate::active::warnings(act));
+    }
     Ok(Analysis {
+        active_stages,
         supply_model,
         gain_curve,
         train,

@@ -386,6 +386,31 @@ pub struct RawDivider {
     /// Resistor from the cathode-potential shield to its return, if fitted.
     #[serde(default)]
     pub shield_resistor: Option<Value>,
+    /// Followers holding the last dynodes (transistor-held stages), if fitted.
+    #[serde(default)]
+    pub followers: Option<RawFollowers>,
+}
+
+/// Transistor-held dynodes: each named dynode is held by a follower whose control terminal
+/// sits on a tap of a separate high-resistance string (docs/physics.md §14).
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct RawFollowers {
+    /// The dynodes held (numbers from 1 for D1).
+    pub hold: Vec<i64>,
+    /// Total resistance of the string from the cathode to the return rail.
+    pub string: Value,
+    /// The follower's drop (gate–source or base–emitter voltage) between tap and dynode.
+    pub drop: Value,
+    /// The most current a follower sinks or sources.
+    pub current_limit: Value,
+    /// A follower's small-signal output resistance (default 100 Ω).
+    #[serde(default)]
+    pub output_resistance: Option<Value>,
+    /// Each transistor's voltage rating.
+    pub volts_rating: Value,
+    /// Each transistor's power rating.
+    pub power_rating: Value,
 }
 
 /// The load block.
@@ -586,6 +611,8 @@ pub struct Design {
     pub supply_resistance: Option<ElectricalResistance>,
     /// The voltage multiplier that makes the supply, if the design describes it.
     pub multiplier: Option<crate::multiplier::Multiplier>,
+    /// Followers holding dynodes, if fitted.
+    pub followers: Option<Followers>,
     /// Pulse train, if the design gives one.
     pub train: Option<crate::train::TrainSpec>,
     /// Cathode response, tube timing, light and readout (signal budget).
@@ -1891,6 +1918,16 @@ fn check(raw: RawDesign, file: &str) -> Result<Design, DesignError> {
         ));
     }
 
+    let followers = match &d.followers {
+        None => None,
+        Some(f) => Some(check_followers(&c, f, elements.len() - 1)?),
+    };
+    if followers.is_some() && train.is_some() {
+        return Err(c.fail(
+            "divider.followers",
+            "the time-domain solve (the train block) does not model followers yet, so a train on this base would be answered as if the followers were absent: remove the train block to analyse the followers at DC, or the followers block to analyse the train on the passive divider",
+        ));
+    }
     Ok(Design {
         source: file.to_string(),
         name: raw.name,
@@ -1925,8 +1962,94 @@ fn check(raw: RawDesign, file: &str) -> Result<Design, DesignError> {
         supply_quality,
         supply_resistance: supply_resistance.map(ElectricalResistance::new::<ohm>),
         multiplier,
+        followers,
         train,
         signal,
+    })
+}
+
+/// Default small-signal output resistance of a follower, ohms (1/g_m of a small high-voltage
+/// MOSFET at a few milliamperes is tens of ohms; an order of magnitude from memory).
+pub const FOLLOWER_OUTPUT_OHMS: f64 = 100.0;
+
+/// Checked followers (docs/physics.md §14).
+#[derive(Debug, Clone, PartialEq)]
+pub struct Followers {
+    /// Dynodes held, 1-based, ascending.
+    pub hold: Vec<usize>,
+    /// Total string resistance, cathode to return rail.
+    pub string: ElectricalResistance,
+    /// Follower drop between tap and dynode.
+    pub drop: ElectricPotential,
+    /// Current limit of each follower.
+    pub current_limit: ElectricCurrent,
+    /// Small-signal output resistance of each follower.
+    pub output_resistance: ElectricalResistance,
+    /// Voltage rating of each transistor.
+    pub volts_rating: ElectricPotential,
+    /// Power rating of each transistor.
+    pub power_rating: Power,
+}
+
+/// The `divider.followers` block.
+fn check_followers(c: &Checker, f: &RawFollowers, stages: usize) -> Result<Followers, DesignError> {
+    let field = "divider.followers.hold";
+    if f.hold.is_empty() {
+        return Err(c.fail(field, "expected at least one dynode number, found none"));
+    }
+    let mut hold = Vec::with_capacity(f.hold.len());
+    for (i, &d) in f.hold.iter().enumerate() {
+        if d < 1 || d > stages as i64 {
+            return Err(c.fail(
+                format!("{field}[{i}]"),
+                format!("expected a dynode number from 1 to {stages}, found {d}"),
+            ));
+        }
+        if hold.contains(&(d as usize)) {
+            return Err(c.fail(
+                format!("{field}[{i}]"),
+                format!("dynode {d} is named twice"),
+            ));
+        }
+        hold.push(d as usize);
+    }
+    hold.sort_unstable();
+    let output_resistance = match &f.output_resistance {
+        None => FOLLOWER_OUTPUT_OHMS,
+        Some(v) => c.within(
+            "divider.followers.output_resistance",
+            v,
+            &limits::FOLLOWER_OUTPUT_RESISTANCE,
+        )?,
+    };
+    Ok(Followers {
+        hold,
+        string: ElectricalResistance::new::<ohm>(c.within(
+            "divider.followers.string",
+            &f.string,
+            &limits::FOLLOWER_STRING,
+        )?),
+        drop: ElectricPotential::new::<volt>(c.within(
+            "divider.followers.drop",
+            &f.drop,
+            &limits::FOLLOWER_DROP,
+        )?),
+        current_limit: ElectricCurrent::new::<ampere>(c.within(
+            "divider.followers.current_limit",
+            &f.current_limit,
+            &limits::FOLLOWER_CURRENT_LIMIT,
+        )?),
+        output_resistance: ElectricalResistance::new::<ohm>(output_resistance),
+        volts_rating: ElectricPotential::new::<volt>(c.within(
+            "divider.followers.volts_rating",
+            &f.volts_rating,
+            &limits::FOLLOWER_VOLTS_RATING,
+        )?),
+        power_rating: Power::new::<watt>(c.within(
+            "divider.followers.power_rating",
+            &f.power_rating,
+            &limits::FOLLOWER_POWER_RATING,
+        )?),
     })
 }
 

@@ -11,6 +11,7 @@
 // Numerical code indexes several parallel arrays by node number; iterator chains would hide that.
 #![allow(clippy::needless_range_loop)]
 
+pub mod active;
 pub mod analysis;
 pub mod cathode;
 pub mod commands;

@@ -221,6 +221,18 @@ pub const SHAPER_GAIN: Range = r(Kind::Ratio, 0.01, 1e4);
 pub const ENC_ELECTRONS: Range = r(Kind::Ratio, 0.1, 1e8);
 /// A dark-count rate or the other channel's rate of a coincidence.
 pub const COUNT_RATE: Range = r(Kind::Frequency, 1e-6, 1e9);
+/// A follower's drop (gate–source or base–emitter voltage) at a held dynode.
+pub const FOLLOWER_DROP: Range = r(Kind::Voltage, 0.1, 20.0);
+/// A follower's current limit.
+pub const FOLLOWER_CURRENT_LIMIT: Range = r(Kind::Current, 1e-6, 1.0);
+/// A follower's small-signal output resistance.
+pub const FOLLOWER_OUTPUT_RESISTANCE: Range = r(Kind::Resistance, 0.1, 1e5);
+/// The high-resistance string that sets the followers' taps.
+pub const FOLLOWER_STRING: Range = r(Kind::Resistance, 1e5, 1e11);
+/// A follower transistor's voltage rating.
+pub const FOLLOWER_VOLTS_RATING: Range = r(Kind::Voltage, 1.0, 1e5);
+/// A follower transistor's power rating.
+pub const FOLLOWER_POWER_RATING: Range = r(Kind::Power, 1e-3, 1e3);
 /// Dead time of a counter.
 pub const DEAD_TIME: Range = r(Kind::Time, 1e-11, 1.0);
 /// Coincidence window τ_w.

@@ -213,7 +213,7 @@ fn refine(
 /// `None` when not reached in that range. Used where many bases are solved (sweep, spread).
 pub fn crossing(net: &Network, target: f64, abs: bool, ws: &mut Workspace) -> Option<f64> {
     let g0 = net.small_signal_gain();
-    let (i_div, _) = net.quiescent();
+    let i_div = net.capacity();
     let lo = (1e-3 * i_div / g0).ln();
     let hi = (3.0 * i_div / g0).ln();
     let count = 24;
@@ -266,7 +266,7 @@ pub fn trace_points(
     ws: &mut Workspace,
 ) -> Result<Linearity, SolveError> {
     let g0 = net.small_signal_gain();
-    let (i_div, _) = net.quiescent();
+    let i_div = net.capacity();
     let lo = (1e-4 * i_div / g0).ln();
     let hi = (3.0 * i_div / g0).ln();
     let mut points = Vec::with_capacity(count);

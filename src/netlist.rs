@@ -7,6 +7,7 @@
 //! same secondary-emission law, smooth positive part and space-charge fold as [`crate::tube`];
 //! current sources inject `t(j+1) - t(j)` into each dynode, `t1` into the cathode, and draw
 //! `t(N+1)` from the anode. Zeners are behavioural too, with the solver's piecewise law.
+//! Followers of transistor-held dynodes are behavioural current sources on a resistor tap string.
 
 use std::fmt::Write;
 
@@ -70,11 +71,71 @@ pub fn write(design: &Design, tube: &TubeModel, opts: &NetlistOptions) -> String
         for e in 1..=n + 1 {
             let _ = writeln!(s, "print {}", relative_expr(design, e));
         }
+        if let Some(f) = &design.followers {
+            for d in &f.hold {
+                let _ = writeln!(s, "print i(vfs{d}) i(vfo{d})");
+            }
+        }
         let _ = writeln!(s, "quit 0");
         let _ = writeln!(s, ".endc");
     }
     let _ = writeln!(s, ".end");
     s
+}
+
+/// The followers of a transistor-held base (docs/physics.md §14) and their tap string. The
+/// string runs from the cathode to the return rail with a node `s<j>` at the fraction of the
+/// rail where dynode j is held (its control tap lies one drop below, inside the law); each
+/// follower is a behavioural current source with the solver's smooth limit,
+/// `i = L·tanh((v(dj) − v(sj))/(L·r))`, sinking its positive part to the cathode through the
+/// zero-volt source `vfs<j>` and sourcing its negative part from the return rail through
+/// `vfo<j>`.
+fn followers(s: &mut String, design: &Design, tube: &TubeModel, rtn: &str) {
+    let Some(f) = &design.followers else {
+        return;
+    };
+    let net = crate::network::Network::from_design(design, tube.clone());
+    let k = node(design, 0);
+    let total = f.string.get::<ohm>();
+    let _ = writeln!(
+        s,
+        "* Followers on {} (limit {} A, output resistance {} ohm, drop {} V) and their tap string.",
+        f.hold
+            .iter()
+            .map(|d| format!("d{d}"))
+            .collect::<Vec<_>>()
+            .join(", "),
+        num(f.current_limit.get::<uom::si::electric_current::ampere>()),
+        num(f.output_resistance.get::<ohm>()),
+        num(f.drop.get::<volt>()),
+    );
+    let mut below = k.clone();
+    let mut frac = 0.0;
+    for fl in &net.followers {
+        let tap = format!("s{}", fl.dynode);
+        let _ = writeln!(
+            s,
+            "RSTR{} {below} {tap} {}",
+            fl.dynode,
+            num(total * (fl.fraction - frac))
+        );
+        frac = fl.fraction;
+        below = tap;
+    }
+    let _ = writeln!(s, "RSTRTOP {below} {rtn} {}", num(total * (1.0 - frac)));
+    for fl in &net.followers {
+        let d = fl.dynode;
+        let lr = fl.limit * fl.output_resistance;
+        let law = format!(
+            "{l}*tanh((v(d{d})-v(s{d}))/{lr})",
+            l = num(fl.limit),
+            lr = num(lr)
+        );
+        let _ = writeln!(s, "VFS{d} d{d} xs{d} 0");
+        let _ = writeln!(s, "BFS{d} xs{d} {k} I = max({law}, 0)");
+        let _ = writeln!(s, "VFO{d} {rtn} xo{d} 0");
+        let _ = writeln!(s, "BFO{d} xo{d} d{d} I = max(-{law}, 0)");
+    }
 }
 
 /// How the cathode current enters the circuit.
@@ -213,6 +274,7 @@ fn circuit(design: &Design, tube: &TubeModel, source: Source) -> String {
             }
         }
     }
+    followers(&mut s, design, tube, &rtn);
     let _ = writeln!(s, "* Stray capacitance per gap, and decoupling capacitors.");
     let stray = design.stray.get::<farad>();
     for j in 0..=n {

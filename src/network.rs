@@ -91,6 +91,33 @@ impl Part {
     }
 }
 
+/// A follower holding one dynode (docs/physics.md §14): its control terminal sits on a tap of a
+/// separate high-resistance string from the cathode to the return rail, placed one drop from
+/// the divider's no-load potential of that dynode, so the dynode is held at `fraction` of the
+/// rail. It sinks the dynode's current to the cathode end (positive) or sources it from the
+/// return rail (negative), smoothly limited: `i = L·tanh((v − fraction·V_rail)/(L·r))`, so
+/// the hold has output resistance `r` at small currents and never passes more than `L`.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Follower {
+    /// The dynode held, 1-based.
+    pub dynode: usize,
+    /// Hold potential as a fraction of the rail (the divider's no-load fraction).
+    pub fraction: f64,
+    /// Current limit, amperes.
+    pub limit: f64,
+    /// Small-signal output resistance, ohms.
+    pub output_resistance: f64,
+}
+
+impl Follower {
+    /// Current sunk from the dynode at potential `v` with the rail at `rail`, and d i / d v.
+    #[inline]
+    pub fn current(&self, v: f64, rail: f64) -> (f64, f64) {
+        let th = ((v - self.fraction * rail) / (self.limit * self.output_resistance)).tanh();
+        (self.limit * th, (1.0 - th * th) / self.output_resistance)
+    }
+}
+
 /// The solver's view of a base: plain f64 behind the typed API.
 #[derive(Debug, Clone, PartialEq)]
 pub struct Network {
@@ -104,6 +131,10 @@ pub struct Network {
     pub anode_resistance: f64,
     /// The supply's output resistance in series with the base, ohms (0 for an ideal supply).
     pub supply_resistance: f64,
+    /// Followers holding dynodes (none for a passive divider).
+    pub followers: Vec<Follower>,
+    /// Resistance of the followers' tap string, ohms (infinite without followers).
+    pub string_resistance: f64,
 }
 
 /// A solved operating point. Potentials are relative to the cathode.
@@ -124,6 +155,11 @@ pub struct OperatingPoint {
     /// Voltage across the base (the return rail relative to the cathode), volts: the supply
     /// less the drop on its output resistance.
     pub rail_volts: f64,
+    /// Current each follower sinks from its dynode (negative: sources), amperes, in the order
+    /// of [`Network::followers`].
+    pub follower_amps: Vec<f64>,
+    /// Current in the followers' tap string, amperes (0 without followers).
+    pub string_amps: f64,
 }
 
 impl OperatingPoint {
@@ -147,9 +183,15 @@ impl OperatingPoint {
             })
             .collect()
     }
-    /// Current the supply delivers, amperes (bottom of the divider plus the cathode current).
+    /// Current the supply delivers, amperes: bottom of the divider, the cathode current, the
+    /// followers' tap string and what the followers sink to the cathode end (a follower that
+    /// sources draws from the return rail, and that current reaches the cathode end through
+    /// the divider, already counted).
     pub fn supply_amps(&self) -> f64 {
-        self.element_amps[0] + self.tube_currents[0]
+        self.element_amps[0]
+            + self.tube_currents[0]
+            + self.string_amps
+            + self.follower_amps.iter().map(|i| i.max(0.0)).sum::<f64>()
     }
     /// Conventional current the tube injects into each dynode node, amperes (`n`).
     pub fn dynode_injections(&self) -> Vec<f64> {
@@ -194,13 +236,48 @@ impl Network {
                 Element::Zener(v, r) => Part::Zener(v.get::<volt>(), r.get::<ohm>()),
             })
             .collect();
-        Network {
+        let mut net = Network {
             tube,
             parts,
             supply: design.supply_magnitude(),
             anode_resistance: design.anode_dc_resistance().get::<ohm>(),
-            supply_resistance: design.supply_resistance.map_or(0.0, |r| r.get::<ohm>()),
+            supply_resistance: 0.0,
+            followers: Vec::new(),
+            string_resistance: f64::INFINITY,
+        };
+        if let Some(f) = &design.followers {
+            // Each tap sits where the divider alone puts its dynode with no light (less the
+            // drop), so the dynode is held at the divider's no-load fraction of the rail.
+            let (_, w) = net.quiescent();
+            let cumulative: Vec<f64> = w
+                .iter()
+                .scan(0.0, |acc, x| {
+                    *acc += x;
+                    Some(*acc)
+                })
+                .collect();
+            net.followers = f
+                .hold
+                .iter()
+                .map(|&d| Follower {
+                    dynode: d,
+                    fraction: cumulative[d - 1] / net.supply,
+                    limit: f.current_limit.get::<ampere>(),
+                    output_resistance: f.output_resistance.get::<ohm>(),
+                })
+                .collect();
+            net.string_resistance = f.string.get::<ohm>();
         }
+        net.supply_resistance = design.supply_resistance.map_or(0.0, |r| r.get::<ohm>());
+        net
+    }
+
+    /// The same base with its followers removed (the passive divider alone).
+    pub fn passive(&self) -> Network {
+        let mut p = self.clone();
+        p.followers.clear();
+        p.string_resistance = f64::INFINITY;
+        p
     }
 
     /// Number of dynodes.
@@ -224,6 +301,12 @@ impl Network {
             })
             .collect();
         (i, volts)
+    }
+
+    /// The current the base can hand the tube's last stages, amperes: the no-light divider
+    /// current plus every follower's limit (the scale of the linearity scan).
+    pub fn capacity(&self) -> f64 {
+        self.quiescent().0 + self.followers.iter().map(|f| f.limit).sum::<f64>()
     }
 
     /// Small-signal gain (the limit of vanishing tube current).
@@ -346,6 +429,13 @@ impl Network {
             }
             set(&mut jac, row, ti(j + 1), 1.0);
             set(&mut jac, row, ti(j), -1.0);
+        }
+        // Followers sink current from their dynodes to fixed rails: the diagonal only.
+        for f in &self.followers {
+            let row = vi(f.dynode);
+            let (i, g) = f.current(x[row], self.supply);
+            res[row] -= i;
+            set(&mut jac, row, row, -g);
         }
         // Anode equation, row vi(n+1).
         let row = vi(n + 1);
@@ -539,6 +629,12 @@ impl Network {
             cathode_amps: ik,
             iterations,
             rail_volts: self.supply,
+            follower_amps: self
+                .followers
+                .iter()
+                .map(|f| f.current(x[2 * (f.dynode - 1)], self.supply).0)
+                .collect(),
+            string_amps: self.supply / self.string_resistance,
         }
     }
 

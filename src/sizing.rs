@@ -539,6 +539,7 @@ pub fn parse_requirements(text: &str, file: &str) -> Result<Requirements, Sizing
             decoupling: Vec::new(),
             stray,
             shield_resistor: None,
+            followers: None,
         },
         load: raw.load,
         resistors: Some(RawResistors {
@@ -719,6 +720,8 @@ fn network_for(tube: &TubeModel, ohms: &[f64], supply: f64, anode_resistance: f6
         supply,
         anode_resistance,
         supply_resistance: 0.0,
+        followers: Vec::new(),
+        string_resistance: f64::INFINITY,
     }
 }
 

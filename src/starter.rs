@@ -167,6 +167,19 @@ pub fn starting_points() -> Vec<(&'static str, &'static str, Starter)> {
             ),
         ),
         (
+            "transistor-held",
+            "high-rate counter whose last dynodes are held by followers (like designs/transistor-held.ron; add its divider.followers block by hand)",
+            s(
+                "Transistor-held counter (starter)",
+                10,
+                1100.0,
+                CathodeNegative,
+                FirstDouble,
+                LightKind::Scintillator,
+                ReadoutKind::Scope,
+            ),
+        ),
+        (
             "dark-counter",
             "photon counting with a 12-stage tube (like designs/photon-counter-dark.ron; add its front_end block by hand)",
             s(

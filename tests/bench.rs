@@ -318,6 +318,7 @@ fn every_demo_has_a_starter_that_parses_and_reports() {
         ("photon-counter-dark.ron", "dark-counter"),
         ("spectroscopy-preamp.ron", "spectroscopy"),
         ("timing-bench.ron", "timing-bench"),
+        ("transistor-held.ron", "transistor-held"),
     ];
     for demo in crate::common::demo_designs() {
         let file = demo.file_name().unwrap().to_string_lossy().to_string();

@@ -53,6 +53,12 @@ pub const NULLABLE: &[&str] = &[
     "supply_quality.setting_accuracy",
     "supply_quality.setting_gain",
     "supply_quality.meets",
+    // report: active_stages (no divider.followers block; a figure the scan does not reach)
+    "active_stages",
+    "active_stages.passive_supply_amps",
+    "active_stages.linear_1pct_amps",
+    "active_stages.passive_linear_1pct_amps",
+    "active_stages.limit",
     // report: supply_model (no supply.multiplier block; no filter)
     "supply_model",
     "supply_model.filter_ohms",

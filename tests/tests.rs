@@ -19,6 +19,8 @@ mod edge_cases;
 mod file_safety;
 /// Shared check for non-finite figures in reports (also used by the fuzz target).
 mod finite;
+/// Transistor-held stages against ngspice and Kirchhoff's laws.
+mod followers;
 /// Front ends, photon counting and timing benches: shaping theory, counting statistics and
 /// the Poisson cascade by Monte Carlo.
 mod frontends;

@@ -144,6 +144,7 @@ pub fn to_value(a: &Analysis) -> Value {
         "assumptions": a.assumptions,
     });
     super::signal::add_json(&mut v, a);
+    v["active_stages"] = crate::report::active::value(a);
     v
 }
 

@@ -3,6 +3,7 @@
 //! Every format opens with the high-voltage cautions and closes with a short one. Renderers are
 //! pure functions of an [`Analysis`]; writing files is the caller's business.
 
+pub mod active;
 pub mod figures;
 pub mod html;
 pub mod json;
@@ -89,6 +90,9 @@ pub fn extra_sections(a: &Analysis) -> Vec<(String, String)> {
     let mut v = vec![(supply::TITLE.to_string(), supply::body(a))];
     if let Some(b) = supply::model_body(a) {
         v.push((supply::MODEL_TITLE.to_string(), b));
+    }
+    if let Some(b) = active::body(a) {
+        v.push((active::TITLE.to_string(), b));
     }
     if a.signal.is_some() {
         let mut s = String::new();

@@ -258,6 +258,7 @@ pub fn render(a: &Analysis) -> String {
     let _ = writeln!(out);
 
     crate::report::supply::text(&mut out, a);
+    crate::report::active::text(&mut out, a);
 
     linearity_text(&mut out, a);
 

@@ -1,0 +1,157 @@
+//! Transistor-held stages (docs/physics.md §14): the DC operating point with followers against
+//! ngspice on the same netlist (node voltages and transistor currents within 1e-4), and
+//! Kirchhoff's current law at every node with the followers' currents.
+
+use std::process::Command;
+
+use dynode::analysis;
+use dynode::design;
+use dynode::netlist::{self, NetlistOptions};
+use dynode::network::{OperatingPoint, Workspace};
+
+use crate::common::{crate_path, ngspice_available, rel, temp_dir};
+
+const DEMO: &str = "designs/transistor-held.ron";
+
+/// The demo at three levels of light: well inside the held range, the design's operating
+/// point, and past the first follower's current limit.
+fn cases() -> (analysis::Analysis, Vec<OperatingPoint>) {
+    let d = design::load(&crate_path(DEMO)).unwrap();
+    let a = analysis::analyse(&d).unwrap();
+    let limit = a
+        .active_stages
+        .as_ref()
+        .and_then(|s| s.limit.clone())
+        .expect("the demo's followers reach their limit within the scan");
+    let mut ws = Workspace::default();
+    let ops = [
+        0.1 * a.op.anode_amps(),
+        a.op.anode_amps(),
+        1.3 * limit.anode_amps,
+    ]
+    .into_iter()
+    .map(|ia| a.network.solve_anode_raw(ia, &mut ws).unwrap())
+    .collect();
+    (a, ops)
+}
+
+/// Run ngspice in batch mode and read every `name = value` line it prints, in order.
+fn run(text: &str, dir: &std::path::Path, name: &str) -> Vec<(String, f64)> {
+    let path = dir.join(format!("{name}.cir"));
+    std::fs::write(&path, text).unwrap();
+    let out = Command::new("ngspice")
+        .arg("-b")
+        .arg(&path)
+        .output()
+        .expect("ngspice runs");
+    let stdout = String::from_utf8_lossy(&out.stdout);
+    let stderr = String::from_utf8_lossy(&out.stderr);
+    assert!(out.status.success(), "ngspice failed:\n{stdout}\n{stderr}");
+    assert!(
+        !stderr.to_lowercase().contains("error"),
+        "ngspice reported an error:\n{stderr}"
+    );
+    stdout
+        .lines()
+        .filter_map(|l| {
+            let (k, v) = l.split_once('=')?;
+            let k = k.trim();
+            (k.starts_with("v(") || k.starts_with("i("))
+                .then(|| (k.to_string(), v.trim().parse().unwrap()))
+        })
+        .collect()
+}
+
+/// ngspice (a general-purpose circuit simulator, solving the netlist on its own) against the
+/// tool's Newton solve: every electrode potential and every follower's current within 1e-4.
+#[test]
+fn followers_match_ngspice() {
+    if !ngspice_available("followers_match_ngspice") {
+        return;
+    }
+    let (a, ops) = cases();
+    let dir = temp_dir("ngspice-followers");
+    for (k, op) in ops.iter().enumerate() {
+        let text = netlist::write(
+            &a.design,
+            &a.network.tube,
+            &NetlistOptions {
+                cathode_amps: op.cathode_amps,
+                control_block: true,
+            },
+        );
+        let spice = run(&text, &dir, &format!("op{k}"));
+        let volts: Vec<f64> = spice
+            .iter()
+            .filter(|(n, _)| n.starts_with("v("))
+            .map(|p| p.1)
+            .collect();
+        assert_eq!(volts.len(), op.potentials.len(), "one value per electrode");
+        for (j, (s, ours)) in volts.iter().zip(&op.potentials).enumerate() {
+            assert!(
+                rel(*ours, *s) < 1e-4,
+                "case {k}: electrode {} ours {ours} V, ngspice {s} V",
+                j + 1
+            );
+        }
+        // Sunk minus sourced current of each follower, in the order of the hold list.
+        let amps: Vec<f64> = spice
+            .iter()
+            .filter(|(n, _)| n.starts_with("i(vfs"))
+            .zip(spice.iter().filter(|(n, _)| n.starts_with("i(vfo")))
+            .map(|(s, o)| s.1 - o.1)
+            .collect();
+        assert_eq!(amps.len(), op.follower_amps.len());
+        let limit = a.active_stages.as_ref().unwrap().current_limit;
+        for (f, (s, ours)) in amps.iter().zip(&op.follower_amps).enumerate() {
+            assert!(
+                (s - ours).abs() <= 1e-4 * ours.abs().max(1e-3 * limit),
+                "case {k}: follower {f} ours {ours} A, ngspice {s} A"
+            );
+        }
+    }
+}
+
+/// Kirchhoff's current law at every dynode with the followers' currents, and the supply current
+/// the same at both ends of the base (textbook circuit laws).
+#[test]
+fn followers_keep_kirchhoff() {
+    let (a, ops) = cases();
+    let net = &a.network;
+    let n = net.stages();
+    for op in &ops {
+        let inj = op.dynode_injections();
+        let scale = op.anode_amps();
+        let mut held = vec![0.0; n];
+        for (f, i) in net.followers.iter().zip(&op.follower_amps) {
+            held[f.dynode - 1] = *i;
+        }
+        for j in 0..n {
+            let kcl = op.element_amps[j + 1] - op.element_amps[j] + inj[j] - held[j];
+            assert!(kcl.abs() <= 1e-8 * scale, "node D{}: {kcl:e}", j + 1);
+        }
+        // Into the base at the return rail: the divider's top, the anode, the string and what
+        // the followers source; out at the cathode end: the supply current.
+        let sourced: f64 = op.follower_amps.iter().map(|i| (-i).max(0.0)).sum();
+        let top = op.element_amps[n] + op.anode_amps() + op.string_amps + sourced;
+        assert!(
+            (top - op.supply_amps()).abs() <= 1e-8 * scale,
+            "supply current {} at the rail against {} at the cathode",
+            top,
+            op.supply_amps()
+        );
+    }
+}
+
+/// With followers on the last stages the ±1 % limit lies far above the passive divider's
+/// (the followers carry the last stages' current: common practice, docs/physics.md §14).
+#[test]
+fn followers_extend_the_linear_range() {
+    let (a, _) = cases();
+    let s = a.active_stages.as_ref().unwrap();
+    let (with, without) = (
+        s.linear_1pct_amps.unwrap(),
+        s.passive_linear_1pct_amps.unwrap(),
+    );
+    assert!(with > 10.0 * without, "{with} against {without}");
+}
