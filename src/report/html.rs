@@ -105,6 +105,25 @@ fn open_page(out: &mut String, a: &Analysis, title: &str) {
     let _ = writeln!(out, "<h1>{}</h1>", esc(&a.design.name));
 }
 
+/// A list of plain texts, escaped, with a class.
+fn list(out: &mut String, class: &str, items: &[String]) {
+    let _ = writeln!(out, "<ul class=\"{class}\">");
+    for w in items {
+        let _ = writeln!(out, "<li>{}</li>", esc(w));
+    }
+    let _ = writeln!(out, "</ul>");
+}
+
+/// The closing caution that ends every page, and the page's end.
+fn close_page(out: &mut String) {
+    let _ = writeln!(
+        out,
+        "<section class=\"caution\" id=\"caution-last\"><p><strong>{}</strong></p></section>",
+        esc(CLOSING_CAUTION)
+    );
+    let _ = writeln!(out, "</body>\n</html>");
+}
+
 /// Render the report.
 pub fn render(a: &Analysis) -> String {
     let mut out = String::new();
@@ -168,11 +187,7 @@ pub fn render(a: &Analysis) -> String {
     if a.warnings.is_empty() {
         let _ = writeln!(out, "<p>None.</p>");
     } else {
-        let _ = writeln!(out, "<ul class=\"warn\">");
-        for w in &a.warnings {
-            let _ = writeln!(out, "<li>{}</li>", esc(w));
-        }
-        let _ = writeln!(out, "</ul>");
+        list(&mut out, "warn", &a.warnings);
     }
     if !a.assumptions.is_empty() {
         let _ = writeln!(out, "<h2>Assumed (not given in the design)</h2><ul>");
@@ -181,12 +196,7 @@ pub fn render(a: &Analysis) -> String {
         }
         let _ = writeln!(out, "</ul>");
     }
-    let _ = writeln!(
-        out,
-        "<section class=\"caution\" id=\"caution-last\"><p><strong>{}</strong></p></section>",
-        esc(CLOSING_CAUTION)
-    );
-    let _ = writeln!(out, "</body>\n</html>");
+    close_page(&mut out);
     out
 }
 
@@ -207,17 +217,8 @@ pub fn section_page(a: &Analysis, command: &str, title: &str, text: &str) -> Str
     if a.warnings.is_empty() {
         let _ = writeln!(out, "<p>None.</p>");
     } else {
-        let _ = writeln!(out, "<ul class=\"warn\">");
-        for w in &a.warnings {
-            let _ = writeln!(out, "<li>{}</li>", esc(w));
-        }
-        let _ = writeln!(out, "</ul>");
+        list(&mut out, "warn", &a.warnings);
     }
-    let _ = writeln!(
-        out,
-        "<section class=\"caution\" id=\"caution-last\"><p><strong>{}</strong></p></section>",
-        esc(CLOSING_CAUTION)
-    );
-    let _ = writeln!(out, "</body>\n</html>");
+    close_page(&mut out);
     out
 }
