@@ -1922,12 +1922,6 @@ fn check(raw: RawDesign, file: &str) -> Result<Design, DesignError> {
         None => None,
         Some(f) => Some(check_followers(&c, f, elements.len() - 1)?),
     };
-    if followers.is_some() && train.is_some() {
-        return Err(c.fail(
-            "divider.followers",
-            "the time-domain solve (the train block) does not model followers yet, so a train on this base would be answered as if the followers were absent: remove the train block to analyse the followers at DC, or the followers block to analyse the train on the passive divider",
-        ));
-    }
     Ok(Design {
         source: file.to_string(),
         name: raw.name,

@@ -39,7 +39,6 @@ const CORPUS: &[(&str, Place, &[&str])] = &[
     ("capacitor_missing_gap.ron", Field("divider.decoupling[1].gap"), &["expected a gap number from 1 (K–D1) to 11", "found 12"]),
     ("counting_negative_dark_rate.ron", Field("counting.dark_rate"), &["expected a positive frequency", "-400 Hz"]),
     ("followers_dynode_out_of_range.ron", Field("divider.followers.hold[1]"), &["expected a dynode number from 1 to 10", "found 11"]),
-    ("followers_with_train.ron", Field("divider.followers"), &["does not model followers", "remove the train block"]),
     ("frontend_noise_density_slip.ron", Field("front_end.noise_density"), &["outside the plausible range", "per √Hz"]),
     ("frontend_order_zero.ron", Field("front_end.order"), &["expected a whole number from 1 to 10", "found 0"]),
     ("gaps_empty.ron", Field("divider.gaps"), &["expected 11 elements", "found 0"]),

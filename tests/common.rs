@@ -56,3 +56,36 @@ pub fn assert_all_numbers_finite(v: &serde_json::Value, path: &str) {
         panic!("{path}: {bad}");
     }
 }
+
+/// Run ngspice in batch mode on the netlist `text` (written as `dir/name.cir`) and return what
+/// it printed; fails the test when ngspice fails or reports an error.
+pub fn ngspice_batch(text: &str, dir: &std::path::Path, name: &str) -> String {
+    let path = dir.join(format!("{name}.cir"));
+    std::fs::write(&path, text).unwrap();
+    let out = std::process::Command::new("ngspice")
+        .arg("-b")
+        .arg(&path)
+        .output()
+        .expect("ngspice runs");
+    let stdout = String::from_utf8_lossy(&out.stdout).into_owned();
+    let stderr = String::from_utf8_lossy(&out.stderr);
+    assert!(out.status.success(), "ngspice failed:\n{stdout}\n{stderr}");
+    assert!(
+        !stderr.to_lowercase().contains("error"),
+        "ngspice reported an error:\n{stderr}"
+    );
+    stdout
+}
+
+/// The value of a `meas` result `name = value` in ngspice's output.
+pub fn meas(stdout: &str, name: &str) -> f64 {
+    stdout
+        .lines()
+        .find_map(|l| {
+            let mut it = l.split_whitespace();
+            (it.next() == Some(name) && it.next() == Some("="))
+                .then(|| it.next().and_then(|v| v.parse::<f64>().ok()))
+                .flatten()
+        })
+        .unwrap_or_else(|| panic!("ngspice printed no {name}:\n{stdout}"))
+}

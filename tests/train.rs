@@ -1,7 +1,7 @@
 //! Pulse trains: the time-domain solve against ngspice on the same netlist, the definition of
 //! capacitance with Kirchhoff's current law, first-order RC recovery, and the linear limit.
 
-use crate::common::{ngspice_available, rel, temp_dir};
+use crate::common::{meas, ngspice_available, ngspice_batch, rel, temp_dir};
 use dynode::design::{Design, parse_str};
 use dynode::netlist;
 use dynode::pulsetrain::cathode_charge;
@@ -66,19 +66,6 @@ fn run(d: &Design, base: &Base, qk: f64, opts: &RunOptions) -> Run {
         .expect("the train solves")
 }
 
-/// Parse `name = value` lines of ngspice `meas` output.
-fn meas(stdout: &str, name: &str) -> f64 {
-    stdout
-        .lines()
-        .find_map(|l| {
-            let mut it = l.split_whitespace();
-            (it.next() == Some(name) && it.next() == Some("="))
-                .then(|| it.next().and_then(|v| v.parse::<f64>().ok()))
-                .flatten()
-        })
-        .unwrap_or_else(|| panic!("ngspice printed no {name}:\n{stdout}"))
-}
-
 #[test]
 fn ngspice_agrees_on_twenty_pulses_at_one_microsecond() {
     if !ngspice_available("ngspice_agrees_on_twenty_pulses_at_one_microsecond") {
@@ -111,20 +98,7 @@ fn ngspice_agrees_on_twenty_pulses_at_one_microsecond() {
         qk,
         true,
     );
-    let dir = temp_dir("train-ngspice");
-    let path = dir.join("train.cir");
-    std::fs::write(&path, cir).unwrap();
-    let out = std::process::Command::new("ngspice")
-        .arg("-b")
-        .arg(&path)
-        .output()
-        .expect("ngspice runs");
-    let stdout = String::from_utf8_lossy(&out.stdout);
-    assert!(
-        out.status.success(),
-        "ngspice failed:\n{stdout}\n{}",
-        String::from_utf8_lossy(&out.stderr)
-    );
+    let stdout = ngspice_batch(&cir, &temp_dir("train-ngspice"), "train");
     assert_eq!(r.pulses.len(), 20);
     for (i, p) in r.pulses.iter().enumerate() {
         let spice = meas(&stdout, &format!("pk{}", i + 1));

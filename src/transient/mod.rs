@@ -33,7 +33,7 @@
 //! and restart small after each; inside a pulse a step is at most a sixteenth of its support.
 
 use crate::design::{CapStyle, Design, Polarity};
-use crate::network::{Network, Part};
+use crate::network::{Follower, Network, Part};
 use crate::train::Shape;
 use crate::tube::TubeModel;
 use uom::si::capacitance::farad;
@@ -95,6 +95,9 @@ pub struct Base {
     signal: (usize, usize),
     /// Load resistance seen by the anode current at the signal node, ohms; its capacitance, F.
     load_rc: (f64, f64),
+    /// Followers holding dynodes (their tap string is one of `elements`, return rail to
+    /// cathode).
+    followers: Vec<Follower>,
 }
 
 /// One decoupling capacitor's record over a run.
@@ -294,6 +297,9 @@ impl Base {
                 (false, (p, ground), (r, path.total_capacitance()))
             }
         };
+        if !net.followers.is_empty() {
+            elements.push((rtn, k, Part::Resistor(1.0 / net.string_resistance)));
+        }
         let supply_resistor = match design.supply_resistance {
             Some(rs) => {
                 elements.push((s, rtn, Part::Resistor(1.0 / rs.get::<ohm>())));
@@ -315,6 +321,7 @@ impl Base {
             decoupling,
             signal,
             load_rc,
+            followers: net.followers.clone(),
         }
     }
 
@@ -423,6 +430,22 @@ impl Base {
         for (c, &(a, b, farads)) in self.caps.iter().enumerate() {
             let i = farads * (alpha0 * (nv[a] - nv[b]) + hist[c]);
             sys.branch(self.var(a), self.var(b), i, farads * alpha0);
+        }
+        // Followers (docs/physics.md §14): a positive current is sunk from the dynode to the
+        // cathode end, a negative one sourced from the return rail into the dynode.
+        let rail = self.var(n + 3);
+        for f in &self.followers {
+            let j = f.dynode;
+            let (i, g) = f.current(nv[j], nv[n + 3]);
+            let vj = self.var(j);
+            sys.residual(vj, i);
+            sys.jac(vj, vj, g);
+            sys.jac(vj, rail, -f.fraction * g);
+            if i < 0.0 {
+                sys.residual(rail, -i);
+                sys.jac(rail, vj, -g);
+                sys.jac(rail, rail, f.fraction * g);
+            }
         }
         let tube = &self.tube;
         for j in 1..=n + 1 {
@@ -798,7 +821,10 @@ impl Base {
             .fold(f64::INFINITY, |m, g| m.min(g.abs()))
             .max(1.0);
         let mut pmap: Option<PulseMap> = None;
-        let mut map_off = !(opts.exact_quiet && opts.pulse_map) || qk <= 0.0 || arrivals.len() < 2;
+        let mut map_off = !(opts.exact_quiet && opts.pulse_map)
+            || qk <= 0.0
+            || arrivals.len() < 2
+            || !self.followers.is_empty();
         let mut pending: Option<Pending> = None;
         let (mut mapped, mut map_solves) = (0usize, 0usize);
         // The step budget grows with the train: a few hundred steps resolve one pulse.

@@ -57,7 +57,7 @@ impl Base {
         if modal.as_ref().is_none_or(|m| !m.same_regions(self, nv)) {
             *modal = Modal::new(self, nv);
         }
-        let md = modal.as_ref()?;
+        let md = modal.as_ref().filter(|m| m.exact)?;
         let mut z0 = Vec::new();
         md.to_modal(nv, &mut z0);
         let state = |dt: f64| {
@@ -180,6 +180,10 @@ pub(super) struct Modal {
     pub w: Vec<f64>,
     /// Asymptotic potentials of the unknowns.
     pub x_inf: Vec<f64>,
+    /// Whether the form is exact: false when followers are linearised at the potentials it
+    /// was built at (their law is a smooth limit, not piecewise linear); such a form serves
+    /// the steady state's first guess and the Poisson statistics, never a quiet interval.
+    pub exact: bool,
 }
 
 /// Which region each element is in at the potentials `nv`.
@@ -297,6 +301,16 @@ impl Modal {
             let (i, y) = part.current(w);
             stamp(&mut g, &mut f, a, b, y, i - y * w);
         }
+        // A follower couples its dynode to the return rail; with the rail fixed it is a
+        // conductance to the cathode (symmetric), else the pencil is not symmetric: no form.
+        if !base.followers.is_empty() && base.supply_resistor {
+            return None;
+        }
+        for fl in &base.followers {
+            let w = nv[fl.dynode];
+            let (i, y) = fl.current(w, base.supply);
+            stamp(&mut g, &mut f, fl.dynode, 0, y, i - y * w);
+        }
         // Cholesky C = L Lᵀ.
         let mut l = vec![0.0; m * m];
         let cmax = (0..m).map(|i| c[i * m + i]).fold(0.0, f64::max);
@@ -385,6 +399,7 @@ impl Modal {
             v,
             w,
             x_inf,
+            exact: base.followers.is_empty(),
         })
     }
 
