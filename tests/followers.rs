@@ -155,3 +155,96 @@ fn followers_extend_the_linear_range() {
     );
     assert!(with > 10.0 * without, "{with} against {without}");
 }
+
+/// Tolerance statistics on a transistor-held base, against error propagation worked by hand.
+///
+/// With ideal followers a held dynode sits one drop above its tap on the string, whatever the
+/// divider's resistors do, so a gap between two held dynodes is `V s_a / S` (`s_a` the string
+/// resistor between their taps, `S` the whole string) and the last gap, from the last held
+/// dynode to the return rail, is `V s_z / S − drop`. Each string resistor drawn as
+/// `s_i (1 + σ z_i)` with independent standard normal `z_i`: to first order
+/// `d ln(s_a/S) = σ (z_a − Σ_i w_i z_i)`, `w_i = s_i / S`, so
+/// `σ(gap) = V w_a σ √((1 − w_a)² + Σ_{i≠a} w_i²)` (standard propagation of independent errors;
+/// the divider's own resistors do not enter). The string's taps are worked out here from the
+/// demo's divider by Ohm's law (each held dynode where the divider alone puts it with no
+/// light, its tap one drop below). The Monte Carlo's standard deviation is read from its 1 %
+/// and 99 % points, 2 × 2.3263 σ apart for a normal distribution; with 20 000 samples their
+/// standard error is about 0.8 % of the width, hence 3 %.
+#[test]
+fn held_gaps_spread_as_the_string_divides() {
+    use dynode::design::Element;
+    use dynode::spread::{self, SpreadConfig};
+    use uom::si::electric_potential::volt;
+    use uom::si::electrical_resistance::ohm;
+
+    let d = design::load(&crate_path(DEMO)).unwrap();
+    let f = d.followers.clone().unwrap();
+    let v = d.supply_magnitude();
+    let drop = f.drop.get::<volt>();
+    let r: Vec<f64> = d
+        .elements
+        .iter()
+        .map(|e| match e {
+            Element::Resistor(r) => r.get::<ohm>(),
+            Element::Zener(..) => panic!("the demo's divider is resistors"),
+        })
+        .collect();
+    let total: f64 = r.iter().sum();
+    // Taps as fractions of the rail, then the string's resistors as shares of the whole.
+    let taps: Vec<f64> = f
+        .hold
+        .iter()
+        .map(|&j| r[..j].iter().sum::<f64>() / total - drop / v)
+        .collect();
+    let mut w = Vec::new();
+    let mut below = 0.0;
+    for t in &taps {
+        w.push(t - below);
+        below = *t;
+    }
+    w.push(1.0 - below);
+    let cfg = SpreadConfig::resistors_only(20_000, 11);
+    let sigma = d.resistor_tolerance / cfg.sigmas;
+    let predicted = |a: usize| {
+        let sum: f64 = w
+            .iter()
+            .enumerate()
+            .map(|(i, wi)| if i == a { (1.0 - wi).powi(2) } else { wi * wi })
+            .sum();
+        v * w[a] * sigma * sum.sqrt()
+    };
+    let s = spread::run(&d, &cfg, &|_| {}).unwrap();
+    assert_eq!(s.failed, 0);
+    let n = d.tube.stages;
+    // Gap g (1-based) from held dynode h_{k-1} to h_k uses string resistor k; the last gap
+    // (D_n to the return) the last string resistor.
+    let mut checked = 0;
+    for (k, pair) in f.hold.windows(2).enumerate() {
+        if pair[1] == pair[0] + 1 {
+            let gap = &s.gaps[pair[1] - 1];
+            let mc = (gap.volts.p99 - gap.volts.p1) / (2.0 * 2.326_348);
+            let want = predicted(k + 1);
+            assert!(
+                rel(mc, want) < 0.03,
+                "{}: Monte Carlo σ {mc} V, propagation {want} V",
+                gap.label
+            );
+            checked += 1;
+        }
+    }
+    if *f.hold.last().unwrap() == n {
+        let gap = &s.gaps[n];
+        let mc = (gap.volts.p99 - gap.volts.p1) / (2.0 * 2.326_348);
+        let want = predicted(w.len() - 1);
+        assert!(
+            rel(mc, want) < 0.03,
+            "{}: Monte Carlo σ {mc} V, propagation {want} V",
+            gap.label
+        );
+        checked += 1;
+    }
+    assert_eq!(
+        checked, 3,
+        "the demo holds D8, D9, D10: three gaps between holds"
+    );
+}
