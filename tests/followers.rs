@@ -248,3 +248,81 @@ fn held_gaps_spread_as_the_string_divides() {
         "the demo holds D8, D9, D10: three gaps between holds"
     );
 }
+
+/// The parts list of the transistor-held demo: one transistor per held dynode and a tap string
+/// of one resistor more, checked by hand. The string's resistors add up to the design's string
+/// (resistors in series); the transistor holding D8, with no capacitor on it, stands at most
+/// D8's no-load potential, `V ΣR_{K..D8} / ΣR` of the divider (Ohm's law: with no light the
+/// follower holds the divider's own potential, and sinking to the cathode end it stands that
+/// potential, more than the rail less it); D9 and D10 carry decoupling capacitors, so their
+/// transistors are rated for the full supply (at switch-on the capacitor holds its dynode near
+/// the return while the cathode end is already at the supply). Every rating at least 1.5× the
+/// voltage and 2× the power at the current limit (common practice, from memory). The schematic
+/// shows every one of these parts by its designator.
+#[test]
+fn followers_in_parts_list_and_schematic() {
+    use dynode::design::Element;
+    use dynode::parts::Kind;
+    use uom::si::electric_current::ampere;
+    use uom::si::electrical_resistance::ohm;
+
+    let d = design::load(&crate_path(DEMO)).unwrap();
+    let a = analysis::analyse(&d).unwrap();
+    let f = d.followers.clone().unwrap();
+    let v = d.supply_magnitude();
+    let lines = dynode::parts::list(&a);
+    let by_name = |name: &str| {
+        lines
+            .iter()
+            .find(|l| l.designators.iter().any(|n| n == name))
+            .unwrap_or_else(|| panic!("{name} missing from the parts list"))
+    };
+    let r: Vec<f64> = d
+        .elements
+        .iter()
+        .map(|e| match e {
+            Element::Resistor(r) => r.get::<ohm>(),
+            Element::Zener(..) => unreachable!("the demo's divider is resistors"),
+        })
+        .collect();
+    let total: f64 = r.iter().sum();
+    let d8 = v * r[..8].iter().sum::<f64>() / total;
+    let names = dynode::parts::designators(&d);
+    assert_eq!(names.followers, ["Q1", "Q2", "Q3"]);
+    assert_eq!(names.string.len(), 4);
+    let string: f64 = names.string.iter().map(|n| by_name(n).value).sum();
+    assert!(rel(string, f.string.get::<ohm>()) < 1e-9, "{string}");
+    let limit = f.current_limit.get::<ampere>();
+    for (q, want) in [("Q1", d8), ("Q2", v), ("Q3", v)] {
+        let l = by_name(q);
+        assert_eq!(l.kind, Kind::Transistor);
+        assert!(
+            rel(l.volts, want) < 1e-6,
+            "{q}: {} V, want {want} V",
+            l.volts
+        );
+        assert!(l.voltage_rating.unwrap() >= 1.5 * l.volts, "{q}: {l:?}");
+        // Power at the current limit over the larger span of its dynode at the operating point.
+        assert!(l.watts.unwrap() <= limit * v, "{q}: {l:?}");
+        assert!(
+            l.power_rating.unwrap() >= 2.0 * l.watts.unwrap(),
+            "{q}: {l:?}"
+        );
+    }
+    let svg = dynode::plot::svg(&dynode::schematic::figure(&a)).unwrap();
+    // Every `<text>` of the SVG, trimmed.
+    let texts: Vec<&str> = svg
+        .split("<text")
+        .skip(1)
+        .filter_map(|t| {
+            let body = &t[t.find('>')? + 1..];
+            Some(body[..body.find("</text>")?].trim())
+        })
+        .collect();
+    for name in names.followers.iter().chain(&names.string) {
+        assert!(
+            texts.contains(&name.as_str()),
+            "{name} is not on the schematic"
+        );
+    }
+}
