@@ -407,6 +407,19 @@ pub fn bleed_time(design: &Design, op: &OperatingPoint, connected: bool) -> Opti
     bleed_worse(design, op, connected).0.map(|t| t.0)
 }
 
+/// As [`bleed_time`] on a transistor-held base with its followers conducting (`true`, the DC
+/// law) or cut off (`false`) throughout; `None` without followers, or when some capacitor does
+/// not get below [`SAFE_VOLTS`] within the horizon.
+pub fn bleed_time_followers(
+    design: &Design,
+    op: &OperatingPoint,
+    connected: bool,
+    conducting: bool,
+) -> Option<f64> {
+    let holds = Holds::of(design)?;
+    bleed(design, op, connected, Some((&holds, conducting))).0
+}
+
 /// The bleed-down of one supply case: without followers, the one integration; with them, the
 /// worse of the followers conducting and cut off, and the words for that case.
 #[allow(clippy::type_complexity)]

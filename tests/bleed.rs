@@ -19,12 +19,15 @@ use crate::common::{crate_path, ngspice_available, rel, temp_dir};
 /// The switched-off base, still connected to the supply, as a SPICE netlist with initial
 /// conditions from the operating point (cathode-negative designs only: the return is node 0).
 /// Nodes: `n0` the cathode, `n1`… the dynodes, `na` the anode, `nm` the multiplier's
-/// capacitors behind the filter resistor. Returns the text and, per capacitor worth watching,
-/// the two nodes across it and its starting voltage.
+/// capacitors behind the filter resistor, `s<j>` the tap of a held dynode. `string` adds the
+/// followers' tap string as one resistor, `followers` the string with its taps and the
+/// followers conducting. Returns the text and, per capacitor that starts above 60 V, the two
+/// nodes across it.
 fn switched_off(
     d: &Design,
     a: &analysis::Analysis,
     string: bool,
+    followers: bool,
 ) -> (String, Vec<(String, String)>) {
     assert_eq!(d.polarity, Polarity::CathodeNegative);
     let n = d.tube.stages;
@@ -84,6 +87,39 @@ fn switched_off(
     if string {
         let f = d.followers.as_ref().unwrap();
         let _ = writeln!(s, "RSTR n0 0 {}", f.string.get::<ohm>());
+    }
+    if let Some(f) = d.followers.as_ref().filter(|_| followers) {
+        // The string with its taps, each one drop below the potential the divider alone gives
+        // its dynode with no light (Ohm's law on the divider); each follower as two behavioural
+        // current sources with the DC law, sinking to the cathode end or sourcing from the
+        // return rail.
+        let r: Vec<f64> = d
+            .elements
+            .iter()
+            .map(|e| match e {
+                Element::Resistor(r) => r.get::<ohm>(),
+                Element::Zener(..) => panic!("resistor dividers only"),
+            })
+            .collect();
+        let total: f64 = r.iter().sum();
+        let drop = f.drop.get::<volt>();
+        let string = f.string.get::<ohm>();
+        let limit = f.current_limit.get::<uom::si::electric_current::ampere>();
+        let lr = limit * f.output_resistance.get::<ohm>();
+        let (mut below, mut at) = ("n0".to_string(), 0.0);
+        for &j in &f.hold {
+            let tap = r[..j].iter().sum::<f64>() / total - drop / vs;
+            let _ = writeln!(s, "RT{j} {below} s{j} {}", string * (tap - at));
+            ic.push((format!("s{j}"), -vs + tap * vs));
+            below = format!("s{j}");
+            at = tap;
+        }
+        let _ = writeln!(s, "RTTOP {below} 0 {}", string * (1.0 - at));
+        for &j in &f.hold {
+            let law = format!("{limit}*tanh((v(n{j})-v(s{j})-{drop})/{lr})");
+            let _ = writeln!(s, "BFS{j} n{j} n0 I = max({law}, 0)");
+            let _ = writeln!(s, "BFO{j} 0 n{j} I = max(-({law}), 0)");
+        }
     }
     let at = |name: &str| ic.iter().find(|x| x.0 == name).map_or(0.0, |x| x.1);
     let watch: Vec<(String, String)> = watch
@@ -145,7 +181,7 @@ fn multiplier_bleed_down_matches_ngspice() {
     let d = design::load(&crate_path("designs/multiplier-fed.ron")).unwrap();
     let a = analysis::analyse(&d).unwrap();
     let ours = dynode::safety::bleed_time(&d, &a.op, true).expect("bleeds");
-    let (text, watch) = switched_off(&d, &a, false);
+    let (text, watch) = switched_off(&d, &a, false, false);
     let spice = ngspice_time(&text, watch.len(), 3.0 * ours, ours / 3000.0, "bleed-mult");
     assert!(rel(ours, spice) < 0.01, "ours {ours} s, ngspice {spice} s");
     // The whole figure is the worse of the two supply cases.
@@ -168,7 +204,7 @@ fn tap_string_bleed_down_matches_ngspice() {
         "{}",
         a.safety.bleed_case
     );
-    let (text, watch) = switched_off(&d, &a, true);
+    let (text, watch) = switched_off(&d, &a, true, false);
     let spice = ngspice_time(
         &text,
         watch.len(),
@@ -176,6 +212,27 @@ fn tap_string_bleed_down_matches_ngspice() {
         ours / 3000.0,
         "bleed-string",
     );
+    assert!(rel(ours, spice) < 0.01, "ours {ours} s, ngspice {spice} s");
+}
+
+/// The transistor-held demo switched off with its supply connected and the followers
+/// conducting: the followers keep D8–D10 one drop from their taps, which follow the falling
+/// voltage across the base, so the charge of the capacitors on D9 and D10 leaves through the
+/// transistors (at their current limit here). ngspice on the same circuit, each follower as
+/// behavioural sources with the DC law (as the netlist writes them), within 1 %; and this case
+/// is faster than the followers cut off (they only add paths for the charge).
+#[test]
+fn conducting_followers_bleed_down_matches_ngspice() {
+    if !ngspice_available("conducting_followers_bleed_down_matches_ngspice") {
+        return;
+    }
+    let d = design::load(&crate_path("designs/transistor-held.ron")).unwrap();
+    let a = analysis::analyse(&d).unwrap();
+    let ours = dynode::safety::bleed_time_followers(&d, &a.op, true, true).expect("bleeds");
+    let off = dynode::safety::bleed_time_followers(&d, &a.op, true, false).expect("bleeds");
+    assert!(ours < off, "conducting {ours} s, cut off {off} s");
+    let (text, watch) = switched_off(&d, &a, true, true);
+    let spice = ngspice_time(&text, watch.len(), 3.0 * ours, ours / 3000.0, "bleed-held");
     assert!(rel(ours, spice) < 0.01, "ours {ours} s, ngspice {spice} s");
 }
 
