@@ -259,6 +259,7 @@ pub fn figure(a: &Analysis) -> Figure {
     }
 
     // Decoupling capacitors.
+    let held: Vec<usize> = d.followers.as_ref().map_or(Vec::new(), |f| f.hold.clone());
     for (k, c) in d.decoupling.iter().enumerate() {
         let value = value_text(c.value.get::<farad>(), "F");
         let name = &names.decoupling[k];
@@ -271,6 +272,21 @@ pub fn figure(a: &Analysis) -> Figure {
                 let cx = (xa + xb) / 2;
                 pen.bold(cx, ACROSS_Y + 22, name, 12, Anchor::Centre);
                 pen.text(cx, ACROSS_Y + 37, &value, 12, Anchor::Centre);
+            }
+            CapStyle::ToReturn(dy) if held.contains(&dy) => {
+                // The dynode's column carries its follower down: the capacitor branches off
+                // half a pitch to the right, its words under its return.
+                let (xd, xc, top) = (x(dy), x(dy) + pitch / 2, RAIL + 30);
+                pen.ink.push(Ink::Dot(xd, top));
+                pen.path(&[(xd, top), (xc, top), (xc, top + 30)]);
+                pen.capacitor((xc, top + 30), (xc, top + 70));
+                if cn {
+                    pen.ground(xc, top + 70);
+                } else {
+                    pen.tag(xc, top + 70, "+HV");
+                }
+                pen.bold(xc, top + 112, name, 12, Anchor::Centre);
+                pen.text(xc, top + 127, &value, 12, Anchor::Centre);
             }
             CapStyle::ToReturn(dy) => {
                 let xd = x(dy);
@@ -494,29 +510,23 @@ fn followers(a: &Analysis, pen: &mut Pen, x: &dyn Fn(usize) -> i32) -> bool {
     let mut taps = Vec::with_capacity(act.followers.len());
     for (k, r) in act.followers.iter().enumerate() {
         let j = r.dynode;
-        let stacked = d
-            .decoupling
-            .iter()
-            .any(|c| c.style == CapStyle::ToReturn(j));
-        // A capacitor to the return on the same dynode runs down its column: the follower
-        // then branches off to the left just under the rail.
-        let (col, top) = if stacked {
-            let y = RAIL + 34;
-            pen.ink.push(Ink::Dot(x(j), y));
-            pen.path(&[(x(j), y), (x(j) - 26, y)]);
-            (x(j) - 26, y)
-        } else {
-            pen.path(&[(x(j), RAIL), (x(j), FOLLOWER_Y - 40)]);
-            (x(j), FOLLOWER_Y - 40)
-        };
+        // Straight down the dynode's column (a capacitor to the return on it branches aside,
+        // drawn with the capacitors).
+        pen.path(&[(x(j), RAIL), (x(j), FOLLOWER_Y - 40)]);
         let across = d
             .decoupling
             .iter()
             .any(|c| c.style == CapStyle::Across(j) || c.style == CapStyle::Across(j + 1));
-        if !stacked && across {
+        if across {
             pen.ink.push(Ink::Dot(x(j), ACROSS_Y));
         }
-        taps.push(pen.follower(col, top, FOLLOWER_Y, STRING_Y, &names.followers[k]));
+        taps.push(pen.follower(
+            x(j),
+            FOLLOWER_Y - 40,
+            FOLLOWER_Y,
+            STRING_Y,
+            &names.followers[k],
+        ));
     }
     // The string from the cathode end to the return, a resistor between taps.
     let x0 = x(0);
