@@ -334,6 +334,8 @@ pub struct TrainAnalysis {
     pub series: Series,
     /// Accepted and rejected steps of the main run.
     pub steps: (usize, usize),
+    /// Pulses of the main run taken through the pulse map.
+    pub mapped_pulses: usize,
     /// Plausibility warnings.
     pub warnings: Vec<String>,
 }
@@ -862,6 +864,7 @@ pub fn analyse(
         steady,
         series,
         steps: run.steps,
+        mapped_pulses: run.mapped_pulses.0,
         warnings,
     }))
 }
