@@ -277,6 +277,14 @@ pub fn of_field(generic: &str, zener: bool) -> Option<Range> {
         "resistors.power" => RESISTOR_POWER,
         "resistors.working_voltage" => RESISTOR_WORKING_VOLTAGE,
         "operating.anode_current" => ANODE_CURRENT,
+        "front_end.gain" => FRONT_GAIN,
+        "front_end.bandwidth" => FRONT_BANDWIDTH,
+        "front_end.input_resistance" => FRONT_INPUT_RESISTANCE,
+        "front_end.input_capacitance" => FRONT_INPUT_CAPACITANCE,
+        "front_end.feedback_capacitance" => FEEDBACK_CAPACITANCE,
+        "front_end.feedback_resistance" => FEEDBACK_RESISTANCE,
+        "front_end.shaping_time" => SHAPING_TIME,
+        "front_end.shaper_gain" => SHAPER_GAIN,
         _ => return None,
     })
 }

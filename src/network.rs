@@ -309,10 +309,43 @@ impl Network {
         self.quiescent().0 + self.followers.iter().map(|f| f.limit).sum::<f64>()
     }
 
-    /// Small-signal gain (the limit of vanishing tube current).
+    /// Small-signal gain (the limit of vanishing tube current): from [`Network::unlit_volts`],
+    /// or from the divider alone should that solve fail (it does not for a base whose
+    /// followers hold the divider's own no-load potentials, the only kind a design builds).
     pub fn small_signal_gain(&self) -> f64 {
-        let (_, v) = self.quiescent();
+        let v = self.unlit_volts().unwrap_or_else(|_| self.quiescent().1);
         self.tube.gain_for_gaps(&v)
+    }
+
+    /// Whether every follower holds its dynode where the divider alone puts it with no light
+    /// (within 1e-9 of the supply), so that the followers carry nothing then.
+    fn holds_match_divider(&self, w: &[f64]) -> bool {
+        let mut cumulative = Vec::with_capacity(w.len());
+        let mut v = 0.0;
+        for x in w {
+            v += x;
+            cumulative.push(v);
+        }
+        self.followers.iter().all(|f| {
+            (cumulative[f.dynode - 1] - f.fraction * self.supply).abs() <= 1e-9 * self.supply.abs()
+        })
+    }
+
+    /// Voltage across each divider element with no light, volts (`n + 1`). Without followers,
+    /// or with followers holding the divider's own no-load potentials, this is
+    /// [`Network::quiescent`]. When the holds differ from the divider (a string drawn apart
+    /// from the divider, as in the tolerance statistics) the followers carry the difference:
+    /// the base is solved with a vanishing cathode current (its anode current a 1e-15 part of
+    /// the divider current, so the tube moves no potential by more than that part).
+    pub fn unlit_volts(&self) -> Result<Vec<f64>, SolveError> {
+        let (i0, w) = self.quiescent();
+        if self.followers.is_empty() || self.holds_match_divider(&w) {
+            return Ok(w);
+        }
+        let g = self.tube.gain_for_gaps(&w).max(1.0);
+        let ik = 1e-15 * i0.abs().max(1e-300) / g;
+        let op = self.solve_raw(ik, None, &mut Workspace::default())?;
+        Ok(op.element_volts)
     }
 
     /// d ln G / d ln Vs of the small-signal gain, by central difference (±0.1 %).

@@ -5,7 +5,19 @@
 //! `R1`…`R{n+1}` the divider resistors, one per gap (a gap of `m` equal parts in series is
 //! `R3a`, `R3b`, …), `Z{gap}` a Zener on that gap, `C1`… the decoupling capacitors in the
 //! design's order, then the coupling capacitor, the anode resistor, the shield resistor and the
-//! load resistor at the base.
+//! load resistor at the base; on a transistor-held base, the followers' tap string (the next
+//! `R` numbers, cathode end first) and the follower transistors `Q1`… in the order of the
+//! dynodes they hold.
+//!
+//! A follower transistor is rated for the most it can stand between its dynode and the far end
+//! of either rail ([`follower_volts`]): with no light and at the operating point, the larger of
+//! its dynode's potential from the cathode (sinking, drain at the cathode end) and the rail
+//! less it (sourcing); at switch-on, the full supply when a capacitor sits on its dynode (the
+//! capacitor holds the dynode where it was, near the return or the tube's other end, while the
+//! cathode end rises, and the follower can move it only at its current limit); in bleed-down,
+//! never more than the supply it started from (a switched-off base holds no source, so no node
+//! leaves the span between its ends). Its power rating covers its dissipation at its current
+//! limit at the operating point's voltage, since the light can always rise that far.
 //!
 //! Ratings to order: a voltage rating at least [`VOLTAGE_MARGIN`] times the highest voltage
 //! the part sees (with the tube's current or without it, whichever is higher), and a power
@@ -40,6 +52,12 @@ pub const RESISTOR_VOLTS: [f64; 15] = [
 pub const POWERS: [f64; 12] = [
     0.063, 0.1, 0.125, 0.25, 0.4, 0.5, 0.6, 1.0, 2.0, 3.0, 5.0, 10.0,
 ];
+/// Drain–source voltage ratings of high-voltage transistors as commonly sold, volts (from
+/// memory).
+pub const TRANSISTOR_VOLTS: [f64; 14] = [
+    100.0, 200.0, 400.0, 500.0, 600.0, 800.0, 900.0, 1000.0, 1200.0, 1500.0, 1700.0, 2500.0,
+    3000.0, 4500.0,
+];
 /// Tolerance taken for a capacitor when the design gives none (a common ceramic part).
 pub const CAPACITOR_TOLERANCE: f64 = 0.10;
 /// Tolerance taken for a Zener's breakdown voltage when the design gives none (common parts).
@@ -54,6 +72,8 @@ pub enum Kind {
     Zener,
     /// A capacitor; value in farads.
     Capacitor,
+    /// A follower transistor holding a dynode; value is its current limit in amperes.
+    Transistor,
 }
 
 impl Kind {
@@ -63,6 +83,7 @@ impl Kind {
             Kind::Resistor => "resistor",
             Kind::Zener => "Zener diode",
             Kind::Capacitor => "capacitor",
+            Kind::Transistor => "follower transistor",
         }
     }
     /// Unit of the value.
@@ -71,6 +92,7 @@ impl Kind {
             Kind::Resistor => "Ω",
             Kind::Zener => "V",
             Kind::Capacitor => "F",
+            Kind::Transistor => "A",
         }
     }
 }
@@ -118,9 +140,12 @@ impl Line {
             .filter(|(_, w)| *w > 0.0)
             .map(|(r, w)| r / w)
     }
-    /// Value with its unit, e.g. "470 kΩ".
+    /// Value with its unit, e.g. "470 kΩ"; a transistor's current limit as "limit 200 µA".
     pub fn value_text(&self) -> String {
-        format_eng(self.value, self.kind.unit())
+        match self.kind {
+            Kind::Transistor => format!("limit {}", format_eng(self.value, "A")),
+            _ => format_eng(self.value, self.kind.unit()),
+        }
     }
 }
 
@@ -197,6 +222,10 @@ pub struct Designators {
     pub shield_resistor: Option<String>,
     /// The load resistor at the base.
     pub base_resistor: Option<String>,
+    /// The followers' tap string, cathode end first (one more than the followers).
+    pub string: Vec<String>,
+    /// The follower transistors, in the order of the dynodes they hold.
+    pub followers: Vec<String>,
 }
 
 /// Every designator of a design (the schematic and the parts list use the same).
@@ -208,13 +237,41 @@ pub fn designators(d: &Design) -> Designators {
         format!("R{r}")
     };
     let m = d.decoupling.len();
+    let held = d.followers.as_ref().map_or(0, |f| f.hold.len());
+    // In this order: anode, shield, base resistors, then the tap string.
+    let anode_resistor = d.anode_resistor.map(|_| next_r());
+    let shield_resistor = d.shield_resistor.map(|_| next_r());
+    let base_resistor = d.base_resistance.map(|_| next_r());
     Designators {
         divider: divider_designators(d),
         decoupling: (1..=m).map(|k| format!("C{k}")).collect(),
         coupling: d.coupling.map(|_| format!("C{}", m + 1)),
-        anode_resistor: d.anode_resistor.map(|_| next_r()),
-        shield_resistor: d.shield_resistor.map(|_| next_r()),
-        base_resistor: d.base_resistance.map(|_| next_r()),
+        anode_resistor,
+        shield_resistor,
+        base_resistor,
+        string: (0..held + usize::from(held > 0))
+            .map(|_| next_r())
+            .collect(),
+        followers: (1..=held).map(|i| format!("Q{i}")).collect(),
+    }
+}
+
+/// The highest voltage a follower transistor can stand, volts, and what sets it (see the
+/// module doc): `rail` the supply across the base, `hold` where it holds its dynode with no
+/// light, `at_op` its dynode at the operating point (volts from the cathode), `capacitor`
+/// whether a decoupling capacitor sits on its dynode.
+pub fn follower_volts(rail: f64, hold: f64, at_op: f64, capacitor: bool) -> (f64, &'static str) {
+    let steady = hold.max(rail - hold).max(at_op).max(rail - at_op).min(rail);
+    if capacitor {
+        (
+            rail,
+            "the full supply at switch-on, a capacitor holding its dynode",
+        )
+    } else {
+        (
+            steady,
+            "its dynode from the far rail end, with or without light",
+        )
     }
 }
 
@@ -451,7 +508,85 @@ pub fn list(a: &Analysis) -> Vec<Line> {
             "load resistor at the base: the pulse's peak across it",
         );
     }
+    follower_parts(a, &names, &mut parts);
     merge(parts)
+}
+
+/// The followers' tap string and transistors of a transistor-held base (docs/physics.md §14).
+fn follower_parts(a: &Analysis, names: &Designators, parts: &mut Vec<Part>) {
+    let d = &a.design;
+    let (Some(f), Some(act)) = (&d.followers, &a.active_stages) else {
+        return;
+    };
+    let rail = d.supply_magnitude();
+    let total = f.string.get::<ohm>();
+    // Tap potentials from the cathode: one drop below each hold (docs/physics.md §14).
+    let drop = f.drop.get::<volt>();
+    let mut below = 0.0;
+    let mut steps = Vec::with_capacity(act.followers.len() + 1);
+    for r in &act.followers {
+        let tap = (r.hold_volts - drop).clamp(below, rail);
+        steps.push(tap - below);
+        below = tap;
+    }
+    steps.push(rail - below);
+    for (k, (name, volts)) in names.string.iter().zip(&steps).enumerate() {
+        // A tap string of zero length between two taps is a wire, not a part.
+        if *volts <= 0.0 {
+            continue;
+        }
+        let ohms = total * volts / rail;
+        let between = match k {
+            0 => format!("cathode to the tap of D{}", act.followers[0].dynode),
+            _ if k == act.followers.len() => {
+                format!("tap of D{} to the return", act.followers[k - 1].dynode)
+            }
+            _ => format!(
+                "taps of D{} and D{}",
+                act.followers[k - 1].dynode,
+                act.followers[k].dynode
+            ),
+        };
+        parts.push(Part {
+            name: name.clone(),
+            kind: Kind::Resistor,
+            value: ohms,
+            tolerance: d.resistor_tolerance,
+            tolerance_assumed: d.resistors_assumed,
+            watts: Some(volts * volts / ohms),
+            volts: *volts,
+            given_volts: Some(d.resistor_working_voltage.get::<volt>()),
+            given_watts: Some(d.resistor_power.get::<watt>()),
+            notes: vec![format!("followers' tap string, {between}")],
+        });
+    }
+    let limit = f.current_limit.get::<uom::si::electric_current::ampere>();
+    for (name, r) in names.followers.iter().zip(&act.followers) {
+        let dy = r.dynode;
+        let capacitor = d.decoupling.iter().any(|c| match c.style {
+            CapStyle::Across(g) => g == dy || g == dy + 1,
+            CapStyle::ToReturn(x) => x == dy,
+        });
+        let (volts, why) = follower_volts(rail, r.hold_volts, r.dynode_volts, capacitor);
+        let op_volts = r.dynode_volts.max(rail - r.dynode_volts);
+        parts.push(Part {
+            name: name.clone(),
+            kind: Kind::Transistor,
+            value: limit,
+            tolerance: 0.0,
+            tolerance_assumed: false,
+            // At its limit at the operating point's voltage: the light can always rise so far.
+            watts: Some(limit * op_volts),
+            volts,
+            given_volts: Some(f.volts_rating.get::<volt>()),
+            given_watts: Some(f.power_rating.get::<watt>()),
+            notes: vec![format!(
+                "holds D{dy}: {} at the operating point ({} sunk), stands {why}; power at its current limit",
+                format_eng(r.watts, "W"),
+                format_eng(r.amps, "A"),
+            )],
+        });
+    }
 }
 
 /// Choose the ratings of each part and merge identical ones into lines.
@@ -486,6 +621,36 @@ fn merge(parts: Vec<Part>) -> Vec<Line> {
                         )],
                     )
                 }
+            }
+            Kind::Transistor => {
+                let v_need = p.volts * VOLTAGE_MARGIN;
+                let p_need = p.watts.unwrap_or(0.0) * POWER_MARGIN;
+                let mut notes = Vec::new();
+                let given_v = p.given_volts.unwrap_or(0.0);
+                let v = if given_v >= v_need {
+                    given_v
+                } else {
+                    let v = step_up(&TRANSISTOR_VOLTS, v_need);
+                    notes.push(format!(
+                        "the design's {} rating is below the margin: {} or more",
+                        format_eng(given_v, "V"),
+                        format_eng(v, "V")
+                    ));
+                    v
+                };
+                let given_p = p.given_watts.unwrap_or(0.0);
+                let w = if given_p >= p_need {
+                    given_p
+                } else {
+                    let w = power_step(p_need);
+                    notes.push(format!(
+                        "the design's {} power rating is below the margin: {} or more",
+                        format_eng(given_p, "W"),
+                        format_eng(w, "W")
+                    ));
+                    w
+                };
+                (Some(w), Some(v), notes)
             }
             Kind::Capacitor => {
                 // The one capacitor rule (eseries::capacitor_rating), shared with size and train.
@@ -536,7 +701,11 @@ fn merge(parts: Vec<Part>) -> Vec<Line> {
                 designators: vec![p.name],
                 kind: p.kind,
                 value: p.value,
-                series: series_of(p.value),
+                series: if p.kind == Kind::Transistor {
+                    None
+                } else {
+                    series_of(p.value)
+                },
                 tolerance: p.tolerance,
                 tolerance_assumed: p.tolerance_assumed,
                 watts: p.watts,
@@ -580,6 +749,9 @@ pub fn designator_text(names: &[String]) -> String {
 }
 
 fn tolerance_text(l: &Line) -> String {
+    if l.kind == Kind::Transistor {
+        return "no tolerance".to_string();
+    }
     format!(
         "{} %{}",
         crate::units::show_number(l.tolerance * 100.0),
@@ -676,7 +848,11 @@ pub fn csv(a: &Analysis) -> String {
             num(Some(l.value)),
             csv_field(l.kind.unit()),
             l.series.unwrap_or("").to_string(),
-            format!("{}", l.tolerance),
+            if l.kind == Kind::Transistor {
+                String::new()
+            } else {
+                format!("{}", l.tolerance)
+            },
             num(l.watts),
             num(l.power_rating),
             num(Some(l.volts)),
@@ -710,7 +886,11 @@ pub fn text(a: &Analysis) -> String {
             l.count,
             l.kind.word(),
             l.value_text(),
-            l.series.unwrap_or("no E-series value"),
+            l.series.unwrap_or(if l.kind == Kind::Transistor {
+                "a high-voltage follower"
+            } else {
+                "no E-series value"
+            }),
             tolerance_text(l),
         ));
         if l.power_rating.is_some() {

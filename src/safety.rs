@@ -6,6 +6,23 @@
 //!   connected with its output capacitance, and unplugged (cathode lead open) — and the time until
 //!   every capacitor and every electrode is below [`SAFE_VOLTS`] is the worse of the two. For one
 //!   capacitor on one resistor this is `t = R C ln(V0 / V_safe)`.
+//! - A transistor-held base (docs/physics.md §14) adds its tap string, a resistor from the
+//!   cathode to the return rail, which discharges with everything across the base; its taps
+//!   hold no charge, so each gate follows its fixed fraction of the voltage across the base as
+//!   it falls. A follower then keeps its dynode one drop from its tap for as long as it
+//!   conducts: it carries the charge of the capacitors on its dynode to the cathode end (or
+//!   draws it from the return rail) up to its current limit, with the same law as the DC solve,
+//!   so those capacitors fall with the base's own voltage rather than through the divider's
+//!   resistors. A real follower conducts one way only and stops once its gate no longer leads
+//!   its source by the drop, so the bleed-down is integrated with the followers conducting and
+//!   with them cut off (only the divider and the string then), and the worse time is kept.
+//! - A supply built as a voltage multiplier (docs/physics.md §15): once the drive stops, its
+//!   capacitors discharge into the base through its diodes and its filter resistor. The
+//!   smoothing column discharges in series (C/n) and the oscillating column follows it through
+//!   the diodes; here, conservatively, all 2n of them count as one capacitor of their total
+//!   capacitance, charged to the larger of the supply and the no-load output `2 n V_p`, behind
+//!   the filter resistor, with the filter capacitor across the base (still connected case; an
+//!   unplugged base leaves them in the supply, where a caution says they stay charged).
 //! - Touch current through the cathode-shield resistor `I = V / R`.
 //!
 //! The thresholds are quoted from standards *from memory*; they are not legal advice, and local
@@ -141,6 +158,60 @@ fn judge(place: &str, volts: f64, coulombs: f64, joules: f64) -> Verdict {
     }
 }
 
+/// The followers of a transistor-held base as the bleed-down sees them.
+#[derive(Debug, Clone, PartialEq)]
+struct Holds {
+    /// (held dynode, its tap as a fraction of the voltage across the base).
+    taps: Vec<(usize, f64)>,
+    /// Drop between tap and dynode, volts.
+    drop: f64,
+    /// Current limit, amperes.
+    limit: f64,
+    /// Output resistance, ohms.
+    output_resistance: f64,
+    /// Tap string, ohms.
+    string: f64,
+}
+
+impl Holds {
+    /// The design's followers: each tap one drop below the potential the divider alone gives
+    /// its dynode with no light (the DC solve's hold, `network::Network::from_design`).
+    fn of(design: &Design) -> Option<Holds> {
+        let f = design.followers.as_ref()?;
+        let vs = design.supply_magnitude();
+        let rs = design.supply_resistance.map_or(0.0, |r| r.get::<ohm>());
+        let (vz, r) = design
+            .elements
+            .iter()
+            .fold((0.0, 0.0), |(vz, r), e| match e {
+                Element::Resistor(x) => (vz, r + x.get::<ohm>()),
+                Element::Zener(v, rz) => (vz + v.get::<volt>(), r + rz.get::<ohm>()),
+            });
+        let i = (vs - vz) / (r + rs);
+        let mut cumulative = Vec::with_capacity(design.elements.len());
+        let mut acc = 0.0;
+        for e in &design.elements {
+            acc += match e {
+                Element::Resistor(x) => i * x.get::<ohm>(),
+                Element::Zener(v, rz) => v.get::<volt>() + i * rz.get::<ohm>(),
+            };
+            cumulative.push(acc);
+        }
+        let drop = f.drop.get::<volt>();
+        Some(Holds {
+            taps: f
+                .hold
+                .iter()
+                .map(|&d| (d, (cumulative[d - 1] - drop) / vs))
+                .collect(),
+            drop,
+            limit: f.current_limit.get::<uom::si::electric_current::ampere>(),
+            output_resistance: f.output_resistance.get::<ohm>(),
+            string: f.string.get::<ohm>(),
+        })
+    }
+}
+
 /// Compute the safety figures.
 pub fn assess(design: &Design, op: &OperatingPoint) -> Safety {
     let vs = design.supply_magnitude();
@@ -199,20 +270,21 @@ pub fn assess(design: &Design, op: &OperatingPoint) -> Safety {
     let total_coulombs = caps.iter().map(|c| c.coulombs).sum();
     let total_joules = caps.iter().map(|c| c.joules).sum();
 
-    let (connected, stuck_connected) = bleed(design, op, true);
-    let (unplugged, stuck_unplugged) = bleed(design, op, false);
+    let (connected, stuck_connected) = bleed_worse(design, op, true);
+    let (unplugged, stuck_unplugged) = bleed_worse(design, op, false);
     let mut never_bleeds = stuck_connected;
     for x in stuck_unplugged {
         if !never_bleeds.contains(&x) {
             never_bleeds.push(x);
         }
     }
-    let (bleed_seconds, bleed_case) = match (connected, unplugged) {
-        (Some(a), Some(b)) if a >= b => (Some(a), "supply off, still connected"),
-        (Some(_), Some(b)) => (Some(b), "base unplugged from the supply"),
-        (None, _) => (None, "supply off, still connected"),
-        (_, None) => (None, "base unplugged from the supply"),
+    let ((bleed_seconds, bleed_case), with) = match (connected, unplugged) {
+        (Some(a), Some(b)) if a.0 >= b.0 => ((Some(a.0), "supply off, still connected"), a.1),
+        (Some(_), Some(b)) => ((Some(b.0), "base unplugged from the supply"), b.1),
+        (None, _) => ((None, "supply off, still connected"), ""),
+        (_, None) => ((None, "base unplugged from the supply"), ""),
     };
+    let bleed_case = format!("{bleed_case}{with}");
     let shield_touch_amps = design.shield_resistor.map(|r| vs / r.get::<ohm>());
 
     let mut specific = Vec::new();
@@ -262,7 +334,10 @@ pub fn assess(design: &Design, op: &OperatingPoint) -> Safety {
             ));
     }
     if design.multiplier.is_some() {
-        specific.push("The supply's multiplier capacitors hold up to their no-load charge and discharge into the divider only through the multiplier's diodes, one column at a time; the bleed-down time above does not include them. Discharge each capacitor of the multiplier to ground through a resistor and measure it before touching.".to_string());
+        specific.push("The supply's multiplier capacitors hold up to their no-load charge and discharge into the divider only through the multiplier's diodes once the drive stops. The bleed-down time above counts them with the base still connected, taken together as one capacitor charged to the no-load output (longer than they really take); a base unplugged from the supply leaves them charged in the supply. Discharge each capacitor of the multiplier to ground through a resistor and measure it before touching.".to_string());
+    }
+    if design.followers.is_some() {
+        specific.push("The followers discharge the capacitors on their dynodes only while they conduct; the bleed-down time above is the worse of their conducting and their cut off. Their tap string discharges with the base.".to_string());
     }
     for label in &never_bleeds {
         specific.push(format!(
@@ -305,7 +380,7 @@ pub fn assess(design: &Design, op: &OperatingPoint) -> Safety {
         total_coulombs,
         total_joules,
         bleed_seconds,
-        bleed_case: bleed_case.to_string(),
+        bleed_case,
         shield_touch_amps,
         specific,
         verdicts,
@@ -326,9 +401,50 @@ fn stored(label: String, farads: f64, volts: f64, rating_volts: Option<f64>) -> 
 }
 
 /// Time for the switched-off base to bring every named capacitor below [`SAFE_VOLTS`]
-/// (`None` when some capacitor never gets there within the horizon).
+/// (`None` when some capacitor never gets there within the horizon); with followers, the worse
+/// of their conducting and their cut off.
 pub fn bleed_time(design: &Design, op: &OperatingPoint, connected: bool) -> Option<f64> {
-    bleed(design, op, connected).0
+    bleed_worse(design, op, connected).0.map(|t| t.0)
+}
+
+/// As [`bleed_time`] on a transistor-held base with its followers conducting (`true`, the DC
+/// law) or cut off (`false`) throughout; `None` without followers, or when some capacitor does
+/// not get below [`SAFE_VOLTS`] within the horizon.
+pub fn bleed_time_followers(
+    design: &Design,
+    op: &OperatingPoint,
+    connected: bool,
+    conducting: bool,
+) -> Option<f64> {
+    let holds = Holds::of(design)?;
+    bleed(design, op, connected, Some((&holds, conducting))).0
+}
+
+/// The bleed-down of one supply case: without followers, the one integration; with them, the
+/// worse of the followers conducting and cut off, and the words for that case.
+#[allow(clippy::type_complexity)]
+fn bleed_worse(
+    design: &Design,
+    op: &OperatingPoint,
+    connected: bool,
+) -> (Option<(f64, &'static str)>, Vec<String>) {
+    let Some(holds) = Holds::of(design) else {
+        let (t, stuck) = bleed(design, op, connected, None);
+        return (t.map(|t| (t, "")), stuck);
+    };
+    let (on, mut stuck) = bleed(design, op, connected, Some((&holds, true)));
+    let (off, stuck_off) = bleed(design, op, connected, Some((&holds, false)));
+    for x in stuck_off {
+        if !stuck.contains(&x) {
+            stuck.push(x);
+        }
+    }
+    let worse = match (on, off) {
+        (Some(a), Some(b)) if a >= b => Some((a, "; followers conducting")),
+        (Some(_), Some(b)) => Some((b, "; followers cut off")),
+        _ => None,
+    };
+    (worse, stuck)
 }
 
 /// As [`bleed_time`], with the labels of the capacitors that stay above [`SAFE_VOLTS`].
@@ -343,16 +459,28 @@ pub fn bleed_time(design: &Design, op: &OperatingPoint, connected: bool) -> Opti
 /// through its DC resistance; `connected` adds the supply's output capacitance between K and the
 /// return rail. One node is held at zero as the reference: the return rail for a cathode-negative
 /// supply (it is ground), the cathode for an anode-positive one.
-fn bleed(design: &Design, op: &OperatingPoint, connected: bool) -> (Option<f64>, Vec<String>) {
+///
+/// `followers`: a transistor-held base's followers and whether they conduct (their tap string
+/// is there either way). With a multiplier in the supply and `connected`, node n+3 is the
+/// multiplier's capacitors taken together, behind the filter resistor (see the module doc).
+fn bleed(
+    design: &Design,
+    op: &OperatingPoint,
+    connected: bool,
+    followers: Option<(&Holds, bool)>,
+) -> (Option<f64>, Vec<String>) {
     let n = design.tube.stages;
     let vs = design.supply_magnitude();
-    let nodes = n + 3;
     let rail = n + 1;
     let anode = n + 2;
     let ground = match design.polarity {
         Polarity::CathodeNegative => rail,
         Polarity::AnodePositive => 0,
     };
+    let hv = if ground == rail { 0 } else { rail };
+    let multiplier = design.multiplier.as_ref().filter(|_| connected);
+    let mult_node = multiplier.and_then(|m| m.filter.map(|_| n + 3));
+    let nodes = n + 3 + usize::from(mult_node.is_some());
     // Initial potentials relative to K.
     let mut v = vec![0.0; nodes];
     v[1..=n].copy_from_slice(&op.potentials[..n]);
@@ -401,6 +529,31 @@ fn bleed(design: &Design, op: &OperatingPoint, connected: bool) -> (Option<f64>,
     if connected && let Some(c) = design.supply_capacitance {
         caps.push((0, rail, c.get::<farad>()));
         named.push((0, rail, "supply output".to_string()));
+    }
+    // The multiplier's capacitors together (2n of C), and its filter capacitor.
+    let mut filter_resistor = None;
+    if let Some(m) = multiplier {
+        let n_m = m.stages as f64;
+        let lump = 2.0 * n_m * m.capacitance.get::<farad>();
+        let no_load = 2.0 * n_m * m.amplitude.get::<volt>();
+        let label = "supply's multiplier capacitors (taken together)".to_string();
+        match (m.filter, mult_node) {
+            (Some((rf, cf)), Some(node)) => {
+                // Charged to the larger of the supply and the no-load output, on the far side
+                // of the filter resistor from the base's high-voltage end.
+                let side = (v[hv] - v[ground]).signum();
+                v[node] = v[ground] + side * no_load.max(vs);
+                caps.push((node, ground, lump));
+                named.push((node, ground, label));
+                caps.push((0, rail, cf.get::<farad>()));
+                named.push((0, rail, "supply filter capacitor".to_string()));
+                filter_resistor = Some((node, hv, rf.get::<ohm>()));
+            }
+            _ => {
+                caps.push((0, rail, lump));
+                named.push((0, rail, label));
+            }
+        }
     }
     // Resistive elements (a, b, element) for the divider, plus the anode resistance.
     let ra = design.anode_dc_resistance().get::<ohm>();
@@ -504,6 +657,35 @@ fn bleed(design: &Design, op: &OperatingPoint, connected: bool) -> (Option<f64>,
             }
         }
         stamp(anode, rail, 1.0 / ra, &mut a);
+        if let Some((p, q, r)) = filter_resistor {
+            stamp(p, q, 1.0 / r, &mut a);
+        }
+        if let Some((h, conducting)) = followers {
+            stamp(0, rail, 1.0 / h.string, &mut a);
+            if conducting {
+                // i = L tanh(x / (L r)), x = v_d − v_K − t (v_R − v_K) − drop, linearised at
+                // the previous potentials; i > 0 flows from the dynode to the cathode end,
+                // i < 0 from the return rail into the dynode (as in network::Follower).
+                for &(d, t) in &h.taps {
+                    let x = v[d] - v[0] - t * (v[rail] - v[0]) - h.drop;
+                    let th = (x / (h.limit * h.output_resistance)).tanh();
+                    let (i0, g) = (h.limit * th, (1.0 - th * th) / h.output_resistance);
+                    let coef = [(d, 1.0), (0, t - 1.0), (rail, -t)];
+                    let lin: f64 = coef.iter().map(|&(k, c)| c * v[k]).sum();
+                    let other = if i0 >= 0.0 { 0 } else { rail };
+                    for (node, sign) in [(d, 1.0), (other, -1.0)] {
+                        if let Some(r) = idx[node] {
+                            for &(k, c) in &coef {
+                                if let Some(col) = idx[k] {
+                                    a[r * m + col] += sign * g * c;
+                                }
+                            }
+                            b[r] -= sign * (i0 - g * lin);
+                        }
+                    }
+                }
+            }
+        }
         if !dense_solve(&mut a, &mut b, m) {
             return (None, Vec::new());
         }

@@ -9,7 +9,12 @@
 //! below; a capacitor across a gap hangs under it, a capacitor to the return drops from its
 //! dynode to a ground or +HV tag; the supply sits at the high-voltage end; the signal path
 //! leaves the anode to the right. Designators are those of the parts list
-//! ([`crate::parts::designators`]). No IO.
+//! ([`crate::parts::designators`]). On a transistor-held base a band below adds each follower
+//! under the dynode it holds — a symbol of this project's own: a ring round a channel bar with
+//! the gate plate beside it, the source lead up to the dynode with an arrow on it, the drain
+//! lead down to a `K` tag (the cathode end, where it sinks the current), the gate lead down to
+//! its tap — and the tap string along the bottom from the cathode (`K` tag) to the return, each
+//! string resistor with its designator and value. No IO.
 
 use crate::analysis::Analysis;
 use crate::design::{CapStyle, Element, Polarity};
@@ -19,8 +24,13 @@ use uom::si::capacitance::farad;
 use uom::si::electric_potential::volt;
 use uom::si::electrical_resistance::ohm;
 
-/// Height of the schematic, pixels.
+/// Height of the schematic, pixels (without followers).
 pub const HEIGHT: u32 = 560;
+/// Height added by the band of followers and their tap string, pixels.
+pub const FOLLOWER_BAND: u32 = 190;
+/// Centre of a follower's symbol, and the tap string's line, pixels from the top.
+const FOLLOWER_Y: i32 = 490;
+const STRING_Y: i32 = 600;
 const TUBE_TOP: i32 = 58;
 const ELECTRODE_Y: i32 = 96;
 const TUBE_BOTTOM: i32 = 132;
@@ -137,6 +147,30 @@ impl Pen {
         self.ink.push(Ink::Frame(x - 18, y + 10, x + 18, y + 26));
         self.text(x, y + 18, name, 12, Anchor::Centre);
     }
+    /// A follower transistor (this project's own symbol): `x` the column of its source lead
+    /// (the dynode it holds, reached from `top`), `cy` the symbol's centre; the gate lead leaves
+    /// to the left and down to `gate_y`, the drain lead down to a `K` tag. Returns the gate
+    /// lead's column.
+    fn follower(&mut self, x: i32, top: i32, cy: i32, gate_y: i32, name: &str) -> i32 {
+        let bar = x - 14;
+        self.ink.push(Ink::Ring(bar + 4, cy, 22));
+        // Channel bar and gate plate.
+        self.path(&[(bar, cy - 13), (bar, cy + 13)]);
+        self.path(&[(bar - 7, cy - 13), (bar - 7, cy + 13)]);
+        // Source: from the channel's top to the dynode, an arrow on it pointing out of the
+        // channel (the current leaves the dynode through it).
+        self.path(&[(bar, cy - 9), (x, cy - 9), (x, top)]);
+        self.path(&[(bar + 4, cy - 13), (bar + 9, cy - 9), (bar + 4, cy - 5)]);
+        // Drain: from the channel's foot down to the cathode end.
+        self.path(&[(bar, cy + 9), (x, cy + 9), (x, cy + 34)]);
+        self.tag(x, cy + 34, "K");
+        // Gate: left, then down to the tap.
+        let g = x - 38;
+        self.path(&[(bar - 7, cy), (g, cy), (g, gate_y)]);
+        self.ink.push(Ink::Dot(g, gate_y));
+        self.bold(bar - 22, cy - 26, name, 12, Anchor::Centre);
+        g
+    }
     fn supply(&mut self, x: i32, top: i32, label: &[String]) {
         // A source between `top` (its HV terminal) and ground below.
         self.path(&[(x, top), (x, top + 20)]);
@@ -225,6 +259,7 @@ pub fn figure(a: &Analysis) -> Figure {
     }
 
     // Decoupling capacitors.
+    let held: Vec<usize> = d.followers.as_ref().map_or(Vec::new(), |f| f.hold.clone());
     for (k, c) in d.decoupling.iter().enumerate() {
         let value = value_text(c.value.get::<farad>(), "F");
         let name = &names.decoupling[k];
@@ -237,6 +272,21 @@ pub fn figure(a: &Analysis) -> Figure {
                 let cx = (xa + xb) / 2;
                 pen.bold(cx, ACROSS_Y + 22, name, 12, Anchor::Centre);
                 pen.text(cx, ACROSS_Y + 37, &value, 12, Anchor::Centre);
+            }
+            CapStyle::ToReturn(dy) if held.contains(&dy) => {
+                // The dynode's column carries its follower down: the capacitor branches off
+                // half a pitch to the right, its words under its return.
+                let (xd, xc, top) = (x(dy), x(dy) + pitch / 2, RAIL + 30);
+                pen.ink.push(Ink::Dot(xd, top));
+                pen.path(&[(xd, top), (xc, top), (xc, top + 30)]);
+                pen.capacitor((xc, top + 30), (xc, top + 70));
+                if cn {
+                    pen.ground(xc, top + 70);
+                } else {
+                    pen.tag(xc, top + 70, "+HV");
+                }
+                pen.bold(xc, top + 112, name, 12, Anchor::Centre);
+                pen.text(xc, top + 127, &value, 12, Anchor::Centre);
             }
             CapStyle::ToReturn(dy) => {
                 let xd = x(dy);
@@ -252,6 +302,9 @@ pub fn figure(a: &Analysis) -> Figure {
             }
         }
     }
+
+    // Followers under the dynodes they hold, and their tap string.
+    let followers = followers(a, &mut pen, &x);
 
     // Supply and return.
     let supply_label = vec![
@@ -404,9 +457,10 @@ pub fn figure(a: &Analysis) -> Figure {
     );
 
     // Caution and legend.
+    let height = HEIGHT + if followers { FOLLOWER_BAND } else { 0 };
     pen.bold(
         8,
-        HEIGHT as i32 - 30,
+        height as i32 - 30,
         &format!(
             "HIGH VOLTAGE: {} across this circuit. Values as solved at {} average anode current.",
             value_text(vs.abs(), "V"),
@@ -417,7 +471,7 @@ pub fn figure(a: &Analysis) -> Figure {
     );
     pen.text(
         8,
-        HEIGHT as i32 - 12,
+        height as i32 - 12,
         "Designators as in the parts list; gap voltages at the operating point.",
         12,
         Anchor::Left,
@@ -431,8 +485,88 @@ pub fn figure(a: &Analysis) -> Figure {
     );
     f.sketch = Some(Sketch {
         width: width as u32,
-        height: HEIGHT,
+        height,
         ink: pen.ink,
     });
     f
+}
+
+/// The followers of a transistor-held base and their tap string, in the band below the
+/// capacitors; `false` when the base has none.
+fn followers(a: &Analysis, pen: &mut Pen, x: &dyn Fn(usize) -> i32) -> bool {
+    let d = &a.design;
+    let (Some(f), Some(act)) = (&d.followers, &a.active_stages) else {
+        return false;
+    };
+    let names = crate::parts::designators(d);
+    let lines = crate::parts::list(a);
+    let value_of = |name: &str| {
+        lines
+            .iter()
+            .find(|l| l.designators.iter().any(|n| n == name))
+            .map(|l| value_text(l.value, "Ω"))
+    };
+    let x_ret = x(d.elements.len());
+    let mut taps = Vec::with_capacity(act.followers.len());
+    for (k, r) in act.followers.iter().enumerate() {
+        let j = r.dynode;
+        // Straight down the dynode's column (a capacitor to the return on it branches aside,
+        // drawn with the capacitors).
+        pen.path(&[(x(j), RAIL), (x(j), FOLLOWER_Y - 40)]);
+        let across = d
+            .decoupling
+            .iter()
+            .any(|c| c.style == CapStyle::Across(j) || c.style == CapStyle::Across(j + 1));
+        if across {
+            pen.ink.push(Ink::Dot(x(j), ACROSS_Y));
+        }
+        taps.push(pen.follower(
+            x(j),
+            FOLLOWER_Y - 40,
+            FOLLOWER_Y,
+            STRING_Y,
+            &names.followers[k],
+        ));
+    }
+    // The string from the cathode end to the return, a resistor between taps.
+    let x0 = x(0);
+    pen.tag(x0, STRING_Y, "K");
+    let mut ends = vec![x0];
+    ends.extend(&taps);
+    ends.push(x_ret);
+    for (k, w) in ends.windows(2).enumerate() {
+        let Some(name) = names.string.get(k) else {
+            continue;
+        };
+        match value_of(name) {
+            Some(v) if w[1] > w[0] => {
+                pen.resistor((w[0], STRING_Y), (w[1], STRING_Y));
+                let cx = (w[0] + w[1]) / 2;
+                pen.bold(cx, STRING_Y + 22, name, 11, Anchor::Centre);
+                pen.text(cx, STRING_Y + 36, &v, 11, Anchor::Centre);
+            }
+            _ => pen.path(&[(w[0], STRING_Y), (w[1], STRING_Y)]),
+        }
+    }
+    if d.polarity == Polarity::CathodeNegative {
+        pen.ground(x_ret, STRING_Y);
+    } else {
+        pen.tag(x_ret, STRING_Y, "+HV");
+    }
+    pen.text(
+        x0 + 30,
+        STRING_Y - 14,
+        &format!(
+            "followers' tap string {} (drop {}, limit {} each)",
+            value_text(f.string.get::<ohm>(), "Ω"),
+            value_text(f.drop.get::<volt>(), "V"),
+            value_text(
+                f.current_limit.get::<uom::si::electric_current::ampere>(),
+                "A"
+            ),
+        ),
+        12,
+        Anchor::Left,
+    );
+    true
 }

@@ -11,7 +11,13 @@
 //!   default 0.35, about a factor 2 at 2 σ between tubes of one type, from memory);
 //! - the secondary-emission exponent `k + σ_k z`, with `a` re-calibrated so that the gain at the
 //!   calibration point is unchanged (the exponent moves the slope, the gain spread the level);
-//! - each decoupling capacitor `C (1 + σ_C z)`.
+//! - each decoupling capacitor `C (1 + σ_C z)`;
+//! - on a transistor-held base, each resistor of the followers' tap string `R_s,i (1 + σ_R z)`
+//!   (drawn last, so a base without followers draws exactly as before). The string has one
+//!   resistor from the cathode to the first tap, one between each pair of taps and one from the
+//!   last tap to the return rail, each as long as the potential step between its ends; a tap
+//!   sits at `V Σ_{i≤j} R_s,i / Σ R_s` and its dynode one follower drop above it. The followers
+//!   hold the drawn potentials, and the divider's own (drawn) resistors no longer set them.
 //!
 //! Each sample is solved by the core ([`Network::solve_raw`], warm-started from the nominal
 //! operating point) at the design's average anode current: small-signal gain, gain and DC deviation
@@ -325,15 +331,49 @@ struct Draw {
     dk: f64,
     /// Capacitor factors, in design order.
     caps: Vec<f64>,
+    /// Factors of the followers' tap-string resistors, cathode end first (empty without
+    /// followers).
+    string: Vec<f64>,
     /// The standard-normal (or uniform) draws, for the correlations: parts…, setting, drift,
-    /// tube gain, exponent.
+    /// tube gain, exponent, then the string's resistors.
     z: Vec<f64>,
+}
+
+/// The followers' tap string as built from the nominal design.
+#[derive(Debug, Clone, PartialEq)]
+struct TapString {
+    /// Each resistor of the string as a fraction of the whole, cathode end first (one more
+    /// than the followers).
+    shares: Vec<f64>,
+    /// The followers' drop between tap and dynode, volts.
+    drop: f64,
+}
+
+impl TapString {
+    /// The nominal string of a base with followers, `None` without. A tap lies one drop below
+    /// the potential its follower holds (docs/physics.md §14); a tap that would fall below the
+    /// cathode, or below the tap before it, is taken at it (a resistor of zero length).
+    fn of(design: &Design, net: &Network) -> Option<TapString> {
+        let f = design.followers.as_ref()?;
+        let drop = f.drop.get::<volt>();
+        let mut shares = Vec::with_capacity(net.followers.len() + 1);
+        let mut below = 0.0;
+        for fl in &net.followers {
+            let tap = (fl.fraction - drop / net.supply).clamp(below, 1.0);
+            shares.push(tap - below);
+            below = tap;
+        }
+        shares.push(1.0 - below);
+        Some(TapString { shares, drop })
+    }
 }
 
 struct Model<'a> {
     net: &'a Network,
     /// Σ ln(v_ref_i) over the multiplying gaps at the calibration point.
     ref_ln_sum: f64,
+    /// The followers' tap string, if the base has followers.
+    string: Option<TapString>,
 }
 
 impl Model<'_> {
@@ -346,6 +386,22 @@ impl Model<'_> {
             };
         }
         net.supply *= d.supply;
+        if let Some(st) = &self.string {
+            // Drawn string: each tap at V Σ_{i≤j} R_i / Σ R, each dynode one drop above it.
+            let drawn: Vec<f64> = st
+                .shares
+                .iter()
+                .zip(d.string.iter().chain(std::iter::repeat(&1.0)))
+                .map(|(s, f)| s * f)
+                .collect();
+            let total: f64 = drawn.iter().sum();
+            let mut tap = 0.0;
+            for (fl, r) in net.followers.iter_mut().zip(&drawn) {
+                tap += r / total;
+                fl.fraction = tap + st.drop / net.supply;
+            }
+            net.string_resistance *= total;
+        }
         let n = net.tube.stages as f64;
         let t = &mut net.tube;
         if d.dk != 0.0 {
@@ -454,32 +510,41 @@ fn draw(
         .iter()
         .map(|_| (1.0 + cfg.capacitor_tolerance / s * normal(&mut rng)).max(0.05))
         .collect();
+    // The tap string: one resistor more than the followers, with the resistors' tolerance.
+    let string = design.followers.as_ref().map_or(0, |f| f.hold.len() + 1);
+    let string = (0..string)
+        .map(|_| {
+            let zi = normal(&mut rng);
+            z.push(zi);
+            (1.0 + rtol / s * zi).max(0.05)
+        })
+        .collect();
     Draw {
         parts,
         supply: (1.0 + setting / s * zs) * (1.0 + drift * u),
         ln_gain: cfg.tube_gain_sigma * zg,
         dk: cfg.exponent_sigma * zk,
         caps,
+        string,
         z,
     }
 }
 
 /// Solve a perturbed network at anode current `ia`, warm-started from the nominal point.
 ///
-/// The start is this sample's no-current divider plus the nominal point's shift from its own
-/// no-current divider (the tube currents move the potentials by about the same amounts), which
-/// saves a Newton step over starting from the nominal point itself.
+/// The start is this sample's no-current base (`w`, [`Network::unlit_volts`]) plus the nominal
+/// point's shift from its own no-current base (the tube currents move the potentials by about
+/// the same amounts), which saves a Newton step over starting from the nominal point itself.
 fn solve_at(
     net: &Network,
     ia: f64,
+    (g0, w): (f64, &[f64]),
     nominal: &OperatingPoint,
     nominal_quiescent: &[f64],
     nominal_dev: f64,
     ws: &mut Workspace,
 ) -> Option<OperatingPoint> {
-    let g0 = net.small_signal_gain();
     let mut ik = ia / (g0 * (1.0 + nominal_dev));
-    let (_, w) = net.quiescent();
     let mut start = nominal.clone();
     let mut v = 0.0;
     for (j, p) in start.potentials.iter_mut().enumerate() {
@@ -588,6 +653,7 @@ pub fn run(
     let model = Model {
         net: &nominal.network,
         ref_ln_sum: reference_ln_sum(design),
+        string: TapString::of(design, &nominal.network),
     };
     let n = design.tube.stages;
     let ia = nominal.op.anode_amps();
@@ -650,21 +716,54 @@ pub fn run(
     let sample = |i: usize, ws: &mut Workspace| -> Outcome {
         let d = draw(i, cfg.seed, design, cfg, eff);
         let net = model.network(&d);
-        let g0 = net.small_signal_gain();
-        let (_, qv) = net.quiescent();
-        let sens = sensitivity(&net, &qv);
+        // With followers the no-light potentials are the base's with the drawn holds, a solve
+        // of its own; should it fail the sample counts as failed (and its gain is the divider's).
+        let unlit = net.unlit_volts();
+        let qv = unlit.clone().unwrap_or_else(|_| net.quiescent().1);
+        let g0 = net.tube.gain_for_gaps(&qv);
+        // d ln G / d ln V: analytic for the divider alone; with followers (their holds scale
+        // with the supply, not with the divider's resistors) by central difference.
+        let sens = if net.followers.is_empty() {
+            sensitivity(&net, &qv)
+        } else {
+            net.gain_sensitivity()
+        };
         let v_target = net.supply * (target / g0).powf(1.0 / sens);
-        let op = solve_at(&net, ia, &nominal.op, &nominal_potentials, nominal_dev, ws).map(|op| {
+        let op = unlit.ok().and_then(|w| {
+            solve_at(
+                &net,
+                ia,
+                (g0, &w),
+                &nominal.op,
+                &nominal_potentials,
+                nominal_dev,
+                ws,
+            )
+        });
+        let op = op.map(|op| {
             let gap_watts: Vec<f64> = op
                 .element_volts
                 .iter()
                 .zip(&op.element_amps)
                 .map(|(v, a)| v * a)
                 .collect();
+            // Each follower dissipates |i|·V (its dynode's potential when sinking, the rail less
+            // it when sourcing, as in crate::active), the string V²/R.
+            let followers: f64 = net
+                .followers
+                .iter()
+                .zip(&op.follower_amps)
+                .map(|(f, &i)| {
+                    let v = op.potentials[f.dynode - 1];
+                    i.abs() * if i >= 0.0 { v } else { op.rail_volts - v }
+                })
+                .sum::<f64>()
+                + op.string_amps * op.rail_volts;
             SampleOp {
                 gain: op.gain(),
                 dev: op.gain() / g0 - 1.0,
                 dissipation: gap_watts.iter().sum::<f64>()
+                    + followers
                     + op.anode_amps().powi(2) * net.anode_resistance,
                 supply_amps: op.supply_amps(),
                 gap_volts: op.element_volts.clone(),
@@ -821,6 +920,7 @@ pub fn run(
         ln_gain: 0.0,
         dk: 0.0,
         caps: vec![1.0; design.decoupling.len()],
+        string: vec![1.0; model.string.as_ref().map_or(0, |s| s.shares.len())],
         z: Vec::new(),
     };
     let lng = |d: &Draw| model.network(d).small_signal_gain().ln();
@@ -866,6 +966,19 @@ pub fn run(
         (lng(&up) - lng(&dn)) / (2.0 * h),
         n + 4,
     ));
+    for j in 0..base_draw.string.len() {
+        let mut up = base_draw.clone();
+        up.string[j] = 1.0 + h;
+        let mut dn = base_draw.clone();
+        dn.string[j] = 1.0 - h;
+        let deriv = (lng(&up) - lng(&dn)) / ((1.0 + h).ln() - (1.0 - h).ln());
+        infl.push((
+            format!("tap-string resistor {}", j + 1),
+            rtol / cfg.sigmas,
+            deriv,
+            n + 5 + j,
+        ));
+    }
     let total_var: f64 = infl.iter().map(|(_, s, d, _)| (s * d).powi(2)).sum();
     let mut influences: Vec<Influence> = infl
         .into_iter()

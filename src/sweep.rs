@@ -49,6 +49,14 @@ pub const FIELDS: &[(&str, Kind)] = &[
     ("resistors.power", Kind::Power),
     ("resistors.working_voltage", Kind::Voltage),
     ("operating.anode_current", Kind::Current),
+    ("front_end.gain", Kind::Ratio),
+    ("front_end.bandwidth", Kind::Frequency),
+    ("front_end.input_resistance", Kind::Resistance),
+    ("front_end.input_capacitance", Kind::Capacitance),
+    ("front_end.feedback_capacitance", Kind::Capacitance),
+    ("front_end.feedback_resistance", Kind::Resistance),
+    ("front_end.shaping_time", Kind::Time),
+    ("front_end.shaper_gain", Kind::Ratio),
 ];
 
 /// A bad sweep specification (usage error).
@@ -270,7 +278,42 @@ pub fn set_field(d: &mut Design, path: &str, x: f64) -> Result<(), String> {
         "resistors.power" => d.resistor_power = Power::new::<watt>(x),
         "resistors.working_voltage" => d.resistor_working_voltage = v(x),
         "operating.anode_current" => d.anode_current = ElectricCurrent::new::<ampere>(x),
+        g if g.starts_with("front_end.") => set_front_end(d, path, x)?,
         _ => return Err(format!("{path}: not a sweepable field")),
+    }
+    Ok(())
+}
+
+/// Set one field of the design's front end: each kind has its own fields, and a field the
+/// fitted kind lacks is an error that names the kind.
+fn set_front_end(d: &mut Design, path: &str, x: f64) -> Result<(), String> {
+    use crate::frontend::FrontEnd;
+    let fe = d
+        .signal
+        .front_end
+        .as_mut()
+        .ok_or_else(|| format!("{path}: the design has no front_end block"))?;
+    let field = path.trim_start_matches("front_end.");
+    let missing = |kind: &str| {
+        format!("{path}: the design's front end is a {kind}, which has no {field} field")
+    };
+    match fe {
+        FrontEnd::Voltage(a) => match field {
+            "gain" => a.gain = x,
+            "bandwidth" => a.bandwidth = x,
+            "input_resistance" => a.input_resistance = x,
+            "input_capacitance" => a.input_capacitance = x,
+            _ => return Err(missing("voltage amplifier")),
+        },
+        FrontEnd::Charge(p) => match field {
+            "input_resistance" => p.input_resistance = x,
+            "input_capacitance" => p.input_capacitance = x,
+            "feedback_capacitance" => p.feedback_capacitance = x,
+            "feedback_resistance" => p.feedback_resistance = x,
+            "shaping_time" => p.shaping_time = x,
+            "shaper_gain" => p.shaper_gain = x,
+            _ => return Err(missing("charge preamplifier")),
+        },
     }
     Ok(())
 }

@@ -212,3 +212,174 @@ fn a_train_on_the_held_base_matches_ngspice() {
         r.pulses.last().unwrap().gain() / r.pulses[0].gain()
     );
 }
+
+/// Tolerance statistics on a transistor-held base, against error propagation worked by hand.
+///
+/// With ideal followers a held dynode sits one drop above its tap on the string, whatever the
+/// divider's resistors do, so a gap between two held dynodes is `V s_a / S` (`s_a` the string
+/// resistor between their taps, `S` the whole string) and the last gap, from the last held
+/// dynode to the return rail, is `V s_z / S − drop`. Each string resistor drawn as
+/// `s_i (1 + σ z_i)` with independent standard normal `z_i`: to first order
+/// `d ln(s_a/S) = σ (z_a − Σ_i w_i z_i)`, `w_i = s_i / S`, so
+/// `σ(gap) = V w_a σ √((1 − w_a)² + Σ_{i≠a} w_i²)` (standard propagation of independent errors;
+/// the divider's own resistors do not enter). The string's taps are worked out here from the
+/// demo's divider by Ohm's law (each held dynode where the divider alone puts it with no
+/// light, its tap one drop below). The Monte Carlo's standard deviation is read from its 1 %
+/// and 99 % points, 2 × 2.3263 σ apart for a normal distribution; with 20 000 samples their
+/// standard error is about 0.8 % of the width, hence 3 %.
+#[test]
+fn held_gaps_spread_as_the_string_divides() {
+    use dynode::design::Element;
+    use dynode::spread::{self, SpreadConfig};
+    use uom::si::electric_potential::volt;
+    use uom::si::electrical_resistance::ohm;
+
+    let d = design::load(&crate_path(DEMO)).unwrap();
+    let f = d.followers.clone().unwrap();
+    let v = d.supply_magnitude();
+    let drop = f.drop.get::<volt>();
+    let r: Vec<f64> = d
+        .elements
+        .iter()
+        .map(|e| match e {
+            Element::Resistor(r) => r.get::<ohm>(),
+            Element::Zener(..) => panic!("the demo's divider is resistors"),
+        })
+        .collect();
+    let total: f64 = r.iter().sum();
+    // Taps as fractions of the rail, then the string's resistors as shares of the whole.
+    let taps: Vec<f64> = f
+        .hold
+        .iter()
+        .map(|&j| r[..j].iter().sum::<f64>() / total - drop / v)
+        .collect();
+    let mut w = Vec::new();
+    let mut below = 0.0;
+    for t in &taps {
+        w.push(t - below);
+        below = *t;
+    }
+    w.push(1.0 - below);
+    let cfg = SpreadConfig::resistors_only(20_000, 11);
+    let sigma = d.resistor_tolerance / cfg.sigmas;
+    let predicted = |a: usize| {
+        let sum: f64 = w
+            .iter()
+            .enumerate()
+            .map(|(i, wi)| if i == a { (1.0 - wi).powi(2) } else { wi * wi })
+            .sum();
+        v * w[a] * sigma * sum.sqrt()
+    };
+    let s = spread::run(&d, &cfg, &|_| {}).unwrap();
+    assert_eq!(s.failed, 0);
+    let n = d.tube.stages;
+    // Gap g (1-based) from held dynode h_{k-1} to h_k uses string resistor k; the last gap
+    // (D_n to the return) the last string resistor.
+    let mut checked = 0;
+    for (k, pair) in f.hold.windows(2).enumerate() {
+        if pair[1] == pair[0] + 1 {
+            let gap = &s.gaps[pair[1] - 1];
+            let mc = (gap.volts.p99 - gap.volts.p1) / (2.0 * 2.326_348);
+            let want = predicted(k + 1);
+            assert!(
+                rel(mc, want) < 0.03,
+                "{}: Monte Carlo σ {mc} V, propagation {want} V",
+                gap.label
+            );
+            checked += 1;
+        }
+    }
+    if *f.hold.last().unwrap() == n {
+        let gap = &s.gaps[n];
+        let mc = (gap.volts.p99 - gap.volts.p1) / (2.0 * 2.326_348);
+        let want = predicted(w.len() - 1);
+        assert!(
+            rel(mc, want) < 0.03,
+            "{}: Monte Carlo σ {mc} V, propagation {want} V",
+            gap.label
+        );
+        checked += 1;
+    }
+    assert_eq!(
+        checked, 3,
+        "the demo holds D8, D9, D10: three gaps between holds"
+    );
+}
+
+/// The parts list of the transistor-held demo: one transistor per held dynode and a tap string
+/// of one resistor more, checked by hand. The string's resistors add up to the design's string
+/// (resistors in series); the transistor holding D8, with no capacitor on it, stands at most
+/// D8's no-load potential, `V ΣR_{K..D8} / ΣR` of the divider (Ohm's law: with no light the
+/// follower holds the divider's own potential, and sinking to the cathode end it stands that
+/// potential, more than the rail less it); D9 and D10 carry decoupling capacitors, so their
+/// transistors are rated for the full supply (at switch-on the capacitor holds its dynode near
+/// the return while the cathode end is already at the supply). Every rating at least 1.5× the
+/// voltage and 2× the power at the current limit (common practice, from memory). The schematic
+/// shows every one of these parts by its designator.
+#[test]
+fn followers_in_parts_list_and_schematic() {
+    use dynode::design::Element;
+    use dynode::parts::Kind;
+    use uom::si::electric_current::ampere;
+    use uom::si::electrical_resistance::ohm;
+
+    let d = design::load(&crate_path(DEMO)).unwrap();
+    let a = analysis::analyse(&d).unwrap();
+    let f = d.followers.clone().unwrap();
+    let v = d.supply_magnitude();
+    let lines = dynode::parts::list(&a);
+    let by_name = |name: &str| {
+        lines
+            .iter()
+            .find(|l| l.designators.iter().any(|n| n == name))
+            .unwrap_or_else(|| panic!("{name} missing from the parts list"))
+    };
+    let r: Vec<f64> = d
+        .elements
+        .iter()
+        .map(|e| match e {
+            Element::Resistor(r) => r.get::<ohm>(),
+            Element::Zener(..) => unreachable!("the demo's divider is resistors"),
+        })
+        .collect();
+    let total: f64 = r.iter().sum();
+    let d8 = v * r[..8].iter().sum::<f64>() / total;
+    let names = dynode::parts::designators(&d);
+    assert_eq!(names.followers, ["Q1", "Q2", "Q3"]);
+    assert_eq!(names.string.len(), 4);
+    let string: f64 = names.string.iter().map(|n| by_name(n).value).sum();
+    assert!(rel(string, f.string.get::<ohm>()) < 1e-9, "{string}");
+    let limit = f.current_limit.get::<ampere>();
+    for (q, want) in [("Q1", d8), ("Q2", v), ("Q3", v)] {
+        let l = by_name(q);
+        assert_eq!(l.kind, Kind::Transistor);
+        assert!(
+            rel(l.volts, want) < 1e-6,
+            "{q}: {} V, want {want} V",
+            l.volts
+        );
+        assert!(l.voltage_rating.unwrap() >= 1.5 * l.volts, "{q}: {l:?}");
+        // Power at the current limit over the larger span of its dynode at the operating point.
+        assert!(l.watts.unwrap() <= limit * v, "{q}: {l:?}");
+        assert!(
+            l.power_rating.unwrap() >= 2.0 * l.watts.unwrap(),
+            "{q}: {l:?}"
+        );
+    }
+    let svg = dynode::plot::svg(&dynode::schematic::figure(&a)).unwrap();
+    // Every `<text>` of the SVG, trimmed.
+    let texts: Vec<&str> = svg
+        .split("<text")
+        .skip(1)
+        .filter_map(|t| {
+            let body = &t[t.find('>')? + 1..];
+            Some(body[..body.find("</text>")?].trim())
+        })
+        .collect();
+    for name in names.followers.iter().chain(&names.string) {
+        assert!(
+            texts.contains(&name.as_str()),
+            "{name} is not on the schematic"
+        );
+    }
+}

@@ -418,3 +418,50 @@ fn every_demo_reports_the_front_end_counting_and_transit_keys() {
         }
     }
 }
+
+/// `sweep` varies the front end's fields. A linear stage's output is its gain times its input
+/// (definition of voltage gain), so the pulse peak at the instrument scales with the voltage
+/// amplifier's gain and with the shaper's gain within 0.1 % (the rest of the chain is the
+/// same at every point). A field the fitted kind lacks is refused naming the kind, and a value
+/// outside the design file's range is refused with that range.
+#[test]
+fn sweep_varies_the_front_end() {
+    use dynode::sweep;
+    for (file, field, lo, hi) in [
+        (
+            "designs/photon-counter-dark.ron",
+            "front_end.gain",
+            5.0,
+            20.0,
+        ),
+        (
+            "designs/spectroscopy-preamp.ron",
+            "front_end.shaper_gain",
+            1.0,
+            4.0,
+        ),
+    ] {
+        let d = dynode::design::load(&crate_path(file)).unwrap();
+        let axis = sweep::parse_axis(&format!("{field}={lo}..{hi}:2")).unwrap();
+        sweep::check_axes(&d, std::slice::from_ref(&axis)).unwrap();
+        let s = sweep::run(&d, &[axis]);
+        let peaks: Vec<f64> = s
+            .rows
+            .iter()
+            .map(|r| r.pulse_peak_volts.expect("a pulse peak at each point"))
+            .collect();
+        let ratio = peaks[1] / peaks[0];
+        assert!(
+            (ratio / (hi / lo) - 1.0).abs() < 1e-3,
+            "{file} {field}: peak ratio {ratio}, gain ratio {}",
+            hi / lo
+        );
+    }
+    let d = dynode::design::load(&crate_path("designs/spectroscopy-preamp.ron")).unwrap();
+    let wrong = sweep::parse_axis("front_end.gain=2..4:2").unwrap();
+    let e = sweep::check_axes(&d, &[wrong]).unwrap_err();
+    assert!(e.contains("charge preamplifier"), "{e}");
+    let far = sweep::parse_axis("front_end.shaping_time=1us..1s:2").unwrap();
+    let e = sweep::check_axes(&d, &[far]).unwrap_err();
+    assert!(e.contains("front_end.shaping_time"), "{e}");
+}

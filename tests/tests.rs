@@ -6,6 +6,8 @@
 mod bad_input;
 /// From the screen to the bench: starters, schematic, parts list, compare, live page.
 mod bench;
+/// Stored charge and bleed-down of the multiplier and the followers' string against ngspice.
+mod bleed;
 /// One circuit: the same base in every section; the signal path as wired.
 mod circuit;
 mod common;
