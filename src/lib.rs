@@ -46,4 +46,5 @@ pub mod train;
 pub mod transient;
 pub mod tube;
 pub mod units;
+pub mod warning;
 pub mod waveform;

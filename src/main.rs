@@ -555,7 +555,10 @@ fn run_spread(
         );
     }
     let text = match format {
-        DataFormat::Json => report::spread::json(&s),
+        DataFormat::Json => match report::spread::json(&s) {
+            Ok(t) => t,
+            Err(e) => return fail(e, Exit::SolveFailed),
+        },
         DataFormat::Text => report::spread::text(&s),
     };
     if let Err(code) = emit(&text, out, design) {
@@ -745,7 +748,10 @@ fn run() -> ExitCode {
             }
             let s = dynode::sweep::run(&d, &axes);
             let text = match format {
-                DataFormat::Json => report::sweep::json(&d, &s),
+                DataFormat::Json => match report::sweep::json(&d, &s) {
+                    Ok(t) => t,
+                    Err(e) => return fail(e, Exit::SolveFailed),
+                },
                 DataFormat::Text => report::sweep::text(&d, &s),
             };
             if let Err(code) = emit(&text, &out, &design) {
@@ -791,7 +797,10 @@ fn run() -> ExitCode {
             {
                 return fail(e, Exit::BadInput);
             }
-            let text = report::render(&a, format);
+            let text = match report::render(&a, format) {
+                Ok(t) => t,
+                Err(e) => return fail(e, Exit::SolveFailed),
+            };
             if let Err(code) = emit(&text, &out, &design) {
                 return code;
             }
@@ -978,7 +987,10 @@ fn run() -> ExitCode {
                 a.warnings.extend(t.warnings.iter().cloned());
             }
             a.train = train;
-            let text = report::train::render(&a, format);
+            let text = match report::train::render(&a, format) {
+                Ok(t) => t,
+                Err(e) => return fail(e, Exit::SolveFailed),
+            };
             if let Err(code) = emit(&text, &out, &design) {
                 return code;
             }

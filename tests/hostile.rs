@@ -31,7 +31,7 @@ fn pipeline(text: &str) {
         }
     };
     for format in report::Format::value_variants() {
-        let out = report::render(&a, *format);
+        let out = report::render(&a, *format).expect("no non-finite figure");
         if *format != report::Format::Json {
             let theirs = [
                 d.name.as_str(),
@@ -244,7 +244,7 @@ fn markup_in_the_design_text_is_printed_not_run() {
     let d = design::parse_str(&text, "markup.ron").expect("valid");
     let a = analysis::analyse(&d).expect("solves");
     for format in [report::Format::Html, report::Format::Markdown] {
-        let out = report::render(&a, format);
+        let out = report::render(&a, format).expect("no non-finite figure");
         assert!(
             !out.contains("<script>alert"),
             "{format:?} lets a script tag through"

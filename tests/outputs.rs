@@ -201,6 +201,7 @@ fn every_documented_json_key_is_present_for_every_demo() {
         "the schema table lists the keys ({})",
         keys.len()
     );
+    let mut demos_with_warnings = 0;
     for design in demo_designs() {
         let out = dynode()
             .args(["report", "--format", "json"])
@@ -212,15 +213,32 @@ fn every_documented_json_key_is_present_for_every_demo() {
         assert_eq!(v["schema_version"], dynode::report::json::SCHEMA_VERSION);
         let mut present = std::collections::BTreeSet::new();
         collect_keys(&v, &mut present);
-        for k in &keys {
+        // A warning's keys exist only where there is a warning; they are checked on each one.
+        let warning_keys = ["code", "message"];
+        for k in keys.iter().filter(|k| !warning_keys.contains(&k.as_str())) {
             assert!(
                 present.contains(k),
                 "{}: documented key `{k}` is missing",
                 design.display()
             );
         }
+        let warnings = v["warnings"].as_array().expect("warnings is an array");
+        for w in warnings {
+            for k in warning_keys {
+                assert!(
+                    w[k].is_string(),
+                    "{}: warning lacks `{k}`",
+                    design.display()
+                );
+            }
+        }
+        demos_with_warnings += usize::from(!warnings.is_empty());
         crate::common::assert_all_numbers_finite(&v, "$");
     }
+    assert!(
+        demos_with_warnings > 0,
+        "some demo shows the warnings' keys"
+    );
 }
 
 #[test]

@@ -105,11 +105,11 @@ fn open_page(out: &mut String, a: &Analysis, title: &str) {
     let _ = writeln!(out, "<h1>{}</h1>", esc(&a.design.name));
 }
 
-/// A list of plain texts, escaped, with a class.
-fn list(out: &mut String, class: &str, items: &[String]) {
+/// The warnings' messages as a list, escaped, with a class.
+fn list(out: &mut String, class: &str, items: &[crate::warning::Warning]) {
     let _ = writeln!(out, "<ul class=\"{class}\">");
     for w in items {
-        let _ = writeln!(out, "<li>{}</li>", esc(w));
+        let _ = writeln!(out, "<li>{}</li>", esc(&w.message));
     }
     let _ = writeln!(out, "</ul>");
 }

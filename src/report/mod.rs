@@ -5,6 +5,7 @@
 
 pub mod active;
 pub mod figures;
+pub mod finite;
 pub mod html;
 pub mod json;
 pub mod markdown;
@@ -73,15 +74,15 @@ pub enum Format {
     PartsCsv,
 }
 
-/// Render an analysis in the chosen format.
-pub fn render(a: &Analysis, format: Format) -> String {
-    match format {
+/// Render an analysis in the chosen format; JSON fails rather than hide a non-finite figure.
+pub fn render(a: &Analysis, format: Format) -> Result<String, finite::NonFinite> {
+    Ok(match format {
         Format::Text => text::render(a),
-        Format::Json => json::render(a),
+        Format::Json => json::render(a)?,
         Format::Html => html::render(a),
         Format::Markdown => markdown::render(a),
         Format::PartsCsv => crate::parts::csv(a),
-    }
+    })
 }
 
 /// Sections that capabilities beyond the core add, as (title, plain text), in report order.

@@ -251,11 +251,9 @@ pub fn to_value(s: &Spread) -> Value {
     })
 }
 
-/// The JSON text.
-pub fn json(s: &Spread) -> String {
-    let mut t = serde_json::to_string_pretty(&to_value(s)).unwrap_or_else(|_| "{}".to_string());
-    t.push('\n');
-    t
+/// The JSON text; refused when a non-finite number reached it (see [`super::finite`]).
+pub fn json(s: &Spread) -> Result<String, super::finite::NonFinite> {
+    super::finite::to_text(&to_value(s))
 }
 
 /// The figures: one histogram per output in [`Spread::histograms`], with the 1/50/99 %

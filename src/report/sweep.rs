@@ -158,12 +158,9 @@ pub fn to_value(design: &Design, s: &Sweep) -> Value {
     })
 }
 
-/// The JSON text.
-pub fn json(design: &Design, s: &Sweep) -> String {
-    let mut t =
-        serde_json::to_string_pretty(&to_value(design, s)).unwrap_or_else(|_| "{}".to_string());
-    t.push('\n');
-    t
+/// The JSON text; refused when a non-finite number reached it (see [`super::finite`]).
+pub fn json(design: &Design, s: &Sweep) -> Result<String, super::finite::NonFinite> {
+    super::finite::to_text(&to_value(design, s))
 }
 
 /// The figures: gain (small-signal and at the operating point) and the ±1 % linearity limit
