@@ -355,9 +355,10 @@ fn exact_quiet_intervals_match_the_step_by_step_solve() {
             );
         }
         eprintln!(
-            "{pattern}: {} steps ({} quiet) against {}; worst gain ratio {:.6}",
+            "{pattern}: {} steps ({} quiet, {:?} mapped) against {}; worst gain ratio {:.6}",
             fast.steps.0,
             fast.quiet_jumps,
+            fast.mapped_pulses,
             slow.steps.0,
             fast.pulses.last().unwrap().gain() / g1f
         );

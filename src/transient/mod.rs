@@ -40,11 +40,13 @@ use uom::si::capacitance::farad;
 use uom::si::electrical_resistance::ohm;
 
 mod band;
+mod map;
 mod quiet;
 mod steady;
 mod watch;
 
 use band::System;
+use map::{Layout, PulseMap, PulseOut, Use};
 use quiet::{Modal, QuietJump};
 pub use steady::SteadyState;
 use watch::Watch;
@@ -171,6 +173,10 @@ pub struct RunOptions {
     /// Cross each quiet interval (no pulse delivering charge) in one exact step of the linear
     /// RC network; `false` steps through it with BDF2 (the reference path of the tests).
     pub exact_quiet: bool,
+    /// Solve an isolated pulse (no other pulse in its support) through the pulse map (a
+    /// linearisation of what it does to the base, checked against full solves; see
+    /// `map.rs`) instead of in full; `false` solves every pulse in full.
+    pub pulse_map: bool,
 }
 
 impl Default for RunOptions {
@@ -184,6 +190,7 @@ impl Default for RunOptions {
             max_steps: 5_000_000,
             stop_at: None,
             exact_quiet: true,
+            pulse_map: true,
         }
     }
 }
@@ -220,6 +227,9 @@ pub struct Run {
     pub steps: (usize, usize),
     /// Quiet intervals crossed in one exact step.
     pub quiet_jumps: usize,
+    /// Pulses taken through the pulse map, and the single-pulse solves spent on its
+    /// Jacobians.
+    pub mapped_pulses: (usize, usize),
     /// Lowest voltage of each decoupling capacitor in each pulse's window, volts (pulse-major:
     /// pulse `i`, capacitor `k` at `i × caps + k`).
     pub window_cap_min: Vec<f64>,
@@ -695,6 +705,11 @@ impl Base {
         vtol[n + 3] = vtol[n + 3].max(1e-3 * rail_tol);
         vtol[n + 1] = vtol[n + 1].min(1e-3 * sig_tol).max(1e-13 * self.supply);
         vtol[n] = vtol[n].min(1e-3 * monitored[n].2).max(1e-13 * self.supply);
+        // The error tolerance of each node's potential (the pulse map's checks).
+        let mut node_tol: Vec<f64> = vtol.iter().map(|v| 1e3 * v).collect();
+        for node in [n + 1, n + 2] {
+            node_tol[node] = node_tol[node].max(sig_tol);
+        }
 
         // Breakpoints: every pulse's corners; the train ends at the last pulse's end.
         let corners = shape.corners();
@@ -776,6 +791,13 @@ impl Base {
         let mut after_bp = true;
         let mut modal: Option<Modal> = None;
         let mut quiet_jumps = 0usize;
+        // The pulse map (isolated pulses), the pulse being solved in full for it, its use.
+        let lay = Layout::of(self);
+        let map_scale = g0_gaps.iter().fold(f64::INFINITY, |m, g| m.min(g.abs())).max(1.0);
+        let mut pmap: Option<PulseMap> = None;
+        let mut map_off = !(opts.exact_quiet && opts.pulse_map) || qk <= 0.0 || arrivals.len() < 2;
+        let mut pending: Option<Pending> = None;
+        let (mut mapped, mut map_solves) = (0usize, 0usize);
         // The step budget grows with the train: a few hundred steps resolve one pulse.
         let budget = opts.max_steps.max(400 * arrivals.len() + 100_000);
         while time < t_stop * (1.0 - 1e-15) {
@@ -834,6 +856,52 @@ impl Base {
                     h = h_start;
                     after_bp = true;
                     continue;
+                }
+            }
+            // An isolated pulse arriving on a quiet base: through the map, or in full for it.
+            if !map_off && pending.is_none() && after_bp {
+                if let Some(idx) = isolated(arrivals, time, support, t_stop) {
+                    let end = arrivals[idx] + support;
+                    let pred = match pmap.as_mut().map(|m| m.consult(&nv)) {
+                        Some(Use::Map(out)) => {
+                            let in_train = time < train_end * (1.0 - 1e-14);
+                            self.apply_mapped(&lay, &out, idx, time, end, &mut watch, &mut nv);
+                            for (j, q) in gap_charges.iter_mut().enumerate() {
+                                *q += out.y[lay.gap_charge(j)];
+                            }
+                            t.iter_mut().for_each(|x| *x = 0.0);
+                            time = end;
+                            if (time - train_end).abs() <= 1e-12 * train_end.max(1e-30) {
+                                elements_at_train_end = elements_of(&nv);
+                                tube_gaps_end = tube_gaps(&nv);
+                                for (k, rec) in watch.caps.iter_mut().enumerate() {
+                                    rec.at_train_end = self.cap_volts(&nv, k);
+                                }
+                            }
+                            let stop = watch.observe(self, time, &nv, 0.0, idx + 1, in_train);
+                            // A constant past: the quiet interval after the pulse restarts it.
+                            hist_v = [nv.clone(), nv.clone(), nv.clone()];
+                            hist_t = [time, time - h_start, time - 2.0 * h_start];
+                            ik_prev = cathode(time);
+                            h = h_start;
+                            mapped += 1;
+                            if stop && opts.stop_at.is_none() {
+                                break;
+                            }
+                            continue;
+                        }
+                        Some(Use::Full(pred)) => pred,
+                        None => None,
+                    };
+                    pending = Some(Pending {
+                        idx,
+                        end,
+                        x: nv.clone(),
+                        gap0: gap_charges.clone(),
+                        mins: (0..lay.caps).map(|_| f64::INFINITY).collect(),
+                        min_times: vec![0.0; lay.caps],
+                        pred,
+                    });
                 }
             }
             while bp_idx < breaks.len() && breaks[bp_idx] <= time * (1.0 + 1e-14) + 1e-300 {
@@ -947,6 +1015,31 @@ impl Base {
                 }
             }
             let stop = watch.observe(self, time, &nv, t[n], window, in_train);
+            if let Some(pd) = pending.as_mut() {
+                for k in 0..lay.caps {
+                    let v = self.cap_volts(&nv, k);
+                    if v < pd.mins[k] {
+                        pd.mins[k] = v;
+                        pd.min_times[k] = time - arrivals[pd.idx];
+                    }
+                }
+                if time >= pd.end * (1.0 - 1e-14) {
+                    let pd = pending.take().expect("pending pulse");
+                    let full = pd.out(&lay, &nv, &watch.pulses[pd.idx], &gap_charges);
+                    let kept = match pmap.as_mut() {
+                        None => {
+                            let tols = (map_scale, &node_tol[..], &reference[..]);
+                            pmap = PulseMap::build(self, &pd.x, full, tols, shape, qk, opts);
+                            pmap.is_some()
+                        }
+                        Some(m) => m.solved(self, &pd.x, full, pd.pred, shape, qk, opts),
+                    };
+                    if !kept {
+                        map_solves += pmap.take().map_or(0, |m| m.solves);
+                        map_off = true;
+                    }
+                }
+            }
             if stop && opts.stop_at.is_none() {
                 break;
             }
@@ -964,6 +1057,15 @@ impl Base {
                 elements_at_train_end = elements_of(&nv);
                 tube_gaps_end = tube_gaps(&nv);
             }
+        }
+        if std::env::var_os("MAPDBG").is_some() {
+            eprintln!(
+                "run: {} pulses, {} mapped, {} map solves, {} steps, off {map_off}",
+                arrivals.len(),
+                mapped,
+                map_solves + pmap.as_ref().map_or(0, |m| m.solves),
+                accepted
+            );
         }
         let recovery = watch.recovery();
         let window_cap_min = watch.window_minima();
@@ -983,8 +1085,91 @@ impl Base {
             samples: watch.samples,
             steps: (accepted, rejected),
             quiet_jumps,
+            mapped_pulses: (mapped, pmap.map_or(map_solves, |m| map_solves + m.solves)),
             final_state: (time, nv),
         })
+    }
+}
+
+/// The index of the pulse arriving at `time` when it is isolated: the pulse before it has
+/// ended, the next arrives after its end, and its end is within the run.
+fn isolated(arrivals: &[f64], time: f64, support: f64, t_stop: f64) -> Option<usize> {
+    let idx = arrivals.partition_point(|a| *a < time * (1.0 - 1e-14));
+    let a = *arrivals.get(idx)?;
+    let end = a + support;
+    let here = (a - time).abs() <= 1e-14 * time.abs().max(1e-300);
+    let before = idx == 0 || arrivals[idx - 1] + support <= a;
+    let after = arrivals.get(idx + 1).is_none_or(|b| *b >= end);
+    (here && before && after && end <= t_stop).then_some(idx)
+}
+
+/// An isolated pulse being solved in full for the pulse map.
+struct Pending {
+    idx: usize,
+    end: f64,
+    /// Potentials at its arrival.
+    x: Vec<f64>,
+    /// Gap charges before it.
+    gap0: Vec<f64>,
+    /// Each decoupling capacitor's lowest voltage inside it so far, and when (after arrival).
+    mins: Vec<f64>,
+    min_times: Vec<f64>,
+    /// The map's prediction, when it had one.
+    pred: Option<Vec<f64>>,
+}
+
+impl Pending {
+    /// What the pulse produced, laid out as the map's outputs.
+    fn out(&self, lay: &Layout, nv: &[f64], p: &PulseRecord, gap_charges: &[f64]) -> PulseOut {
+        let mut y = nv.to_vec();
+        y.extend([
+            p.anode_charge,
+            p.peak_anode_amps,
+            p.peak_signal_volts,
+            p.cathode_charge,
+        ]);
+        y.extend(gap_charges.iter().zip(&self.gap0).map(|(a, b)| a - b));
+        y.extend(&self.mins);
+        debug_assert_eq!(y.len(), lay.cap_min(lay.caps));
+        PulseOut {
+            y,
+            min_times: self.min_times.clone(),
+        }
+    }
+}
+
+impl Base {
+    /// Book a mapped pulse `idx` (arrival `time`, end `end`) into the records and move the
+    /// potentials `nv` to its end.
+    #[allow(clippy::too_many_arguments)]
+    fn apply_mapped(
+        &self,
+        lay: &Layout,
+        out: &PulseOut,
+        idx: usize,
+        time: f64,
+        end: f64,
+        watch: &mut Watch,
+        nv: &mut Vec<f64>,
+    ) {
+        let y = &out.y;
+        let p = &mut watch.pulses[idx];
+        p.cathode_charge += y[lay.cathode_charge()];
+        p.anode_charge += y[lay.anode_charge()];
+        p.peak_anode_amps = p.peak_anode_amps.max(y[lay.peak_amps()]);
+        let s = y[lay.peak_signal()];
+        if s.abs() > p.peak_signal_volts.abs() {
+            p.peak_signal_volts = s;
+        }
+        for k in 0..lay.caps {
+            let at = (time + out.min_times.get(k).copied().unwrap_or(0.0)).min(end);
+            watch.note_min(k, idx, at, y[lay.cap_min(k)]);
+        }
+        nv.clear();
+        nv.extend_from_slice(&y[..lay.nodes]);
+        // The peak as one sample (the figure's buckets keep extremes).
+        let mins: Vec<f64> = (0..lay.caps).map(|k| y[lay.cap_min(k)]).collect();
+        watch.note_peak(self, time + 0.5 * (end - time), s, y[lay.peak_amps()], &mins, nv);
     }
 }
 

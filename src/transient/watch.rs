@@ -3,6 +3,11 @@
 
 use super::{Base, CapRecord, PulseRecord, Sample};
 
+/// Most samples kept while recording: beyond it, every four are thinned to the two with the
+/// lowest and highest signal (in time order), so a long train's figure keeps its peaks in
+/// bounded memory.
+pub const RECORD_LIMIT: usize = 1 << 16;
+
 /// Records of a run in progress.
 pub(super) struct Watch {
     pub pulses: Vec<PulseRecord>,
@@ -116,6 +121,7 @@ impl Watch {
             }
         }
         if self.record {
+            self.thin();
             self.samples.push(Sample {
                 t: time,
                 signal_volts: base.signal_volts(nv),
@@ -145,6 +151,71 @@ impl Watch {
             self.recovered_at = Some(cross.max(self.train_end));
         }
         dev < 0.1 * band && time > self.train_end
+    }
+
+    /// A capacitor's lowest voltage `v` at `time` inside pulse `idx` (0-based), from the
+    /// pulse map.
+    pub fn note_min(&mut self, k: usize, idx: usize, time: f64, v: f64) {
+        let ncaps = self.caps.len();
+        let rec = &mut self.caps[k];
+        let d = rec.initial - v;
+        if d > rec.droop {
+            rec.droop = d;
+            rec.droop_time = time;
+            rec.droop_pulse = Some(idx);
+        }
+        if let Some(m) = self.window_min.get_mut(idx * ncaps + k) {
+            *m = m.min(v);
+        }
+    }
+
+    /// A mapped pulse's peak as one recorded sample (when recording): its signal against the
+    /// value before the train, its peak anode current, the capacitors' lowest voltages, and
+    /// the gain at the potentials `nv` after it.
+    pub fn note_peak(
+        &mut self,
+        base: &Base,
+        time: f64,
+        signal: f64,
+        anode_amps: f64,
+        caps: &[f64],
+        nv: &[f64],
+    ) {
+        if self.record {
+            self.thin();
+            self.samples.push(Sample {
+                t: time,
+                signal_volts: self.signal_initial + signal,
+                anode_amps,
+                cap_volts: caps.to_vec(),
+                gain_ratio: self.gain_ratio(base, nv),
+            });
+        }
+    }
+
+    /// Thin the samples when they reach [`RECORD_LIMIT`].
+    fn thin(&mut self) {
+        if self.samples.len() < RECORD_LIMIT {
+            return;
+        }
+        let old = std::mem::take(&mut self.samples);
+        let mut kept = Vec::with_capacity(RECORD_LIMIT);
+        let mut it = old.into_iter().peekable();
+        while it.peek().is_some() {
+            let group: Vec<Sample> = it.by_ref().take(4).collect();
+            let by = |f: fn(f64, f64) -> bool| {
+                (0..group.len())
+                    .reduce(|a, b| if f(group[b].signal_volts, group[a].signal_volts) { b } else { a })
+                    .unwrap_or(0)
+            };
+            let (lo, hi) = (by(|x, y| x < y), by(|x, y| x > y));
+            let (a, b) = (lo.min(hi), lo.max(hi));
+            let mut group = group;
+            let second = (b != a).then(|| group.swap_remove(b));
+            kept.push(group.swap_remove(a));
+            kept.extend(second);
+        }
+        self.samples = kept;
     }
 
     /// The window minima, a window with no state in it (none so far) at the value before the
