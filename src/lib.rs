@@ -14,6 +14,7 @@
 pub mod active;
 pub mod analysis;
 pub mod cathode;
+pub mod cli;
 pub mod commands;
 pub mod compare;
 pub mod constants;

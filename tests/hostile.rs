@@ -4,7 +4,6 @@
 //! panic; a design that is refused is refused with a message naming the file; a design that is
 //! accepted reports finite figures only.
 
-use clap::ValueEnum;
 use dynode::{analysis, design, report};
 use proptest::prelude::*;
 
@@ -30,7 +29,7 @@ fn pipeline(text: &str) {
             return;
         }
     };
-    for format in report::Format::value_variants() {
+    for format in report::Format::ALL.iter() {
         let out = report::render(&a, *format).expect("no non-finite figure");
         if *format != report::Format::Json {
             let theirs = [

@@ -486,3 +486,83 @@ fn light_match_compares_six_or_more_lines_against_every_cathode() {
         .unwrap();
     assert_eq!(out.status.code(), Some(2));
 }
+
+#[test]
+fn spread_and_sweep_write_html_and_markdown_tables_with_the_cautions() {
+    // The document model's renderers (report::doc): real tables with units in the headers,
+    // no preformatted text, the cautions first and last, the figure files linked with --plots.
+    let dir = temp_dir("doc-formats");
+    let design = crate_path("designs/rooftop-paddle.ron");
+    let runs: [(&str, &[&str], &str); 2] = [
+        (
+            "sweep",
+            &["--vary", "supply.volts=900V..1300V:3"],
+            "| volts (V) | supply (V) |",
+        ),
+        (
+            "spread",
+            &["--samples", "300", "--linearity-samples", "0"],
+            "| # | gap | 1 % (V) |",
+        ),
+    ];
+    for (command, extra, md_head) in runs {
+        for format in ["html", "md"] {
+            let out_file = dir.join(format!("{command}.{format}"));
+            let figs = dir.join(format!("{command}-{format}-figs"));
+            let o = dynode()
+                .arg(command)
+                .arg(&design)
+                .args(extra)
+                .args(["--format", format, "-q", "-o"])
+                .arg(&out_file)
+                .arg("--plots")
+                .arg(&figs)
+                .output()
+                .unwrap();
+            assert!(o.status.success(), "{command} {format}: {:?}", o);
+            let text = std::fs::read_to_string(&out_file).unwrap();
+            let first = text
+                .find(if format == "md" {
+                    "HIGH-VOLTAGE CAUTION"
+                } else {
+                    "caution-first"
+                })
+                .expect("a caution block");
+            let table = text
+                .find(if format == "md" { "|---|" } else { "<table>" })
+                .expect("a table");
+            assert!(
+                first < table,
+                "{command} {format}: caution before the results"
+            );
+            let last = text.rfind("HIGH VOLTAGE").unwrap();
+            assert!(
+                last > text.rfind("|").unwrap_or(0),
+                "{command} {format}: caution last"
+            );
+            assert!(
+                !text.contains("<pre>"),
+                "{command} {format}: no preformatted dump"
+            );
+            if format == "md" {
+                assert!(
+                    text.contains(md_head),
+                    "{command}: header with units\n{text}"
+                );
+            } else {
+                assert!(text.contains("(V)</th>"), "{command}: header with units");
+            }
+            // Every figure linked is a file that was written, found from the report's folder.
+            let mut linked = 0;
+            for name in std::fs::read_dir(&figs).unwrap() {
+                let name = name.unwrap().file_name().to_string_lossy().to_string();
+                if name.ends_with(".svg") {
+                    let rel = format!("{command}-{format}-figs/{name}");
+                    assert!(text.contains(&rel), "{command} {format} links {rel}");
+                    linked += 1;
+                }
+            }
+            assert!(linked > 0, "{command} {format}: some figure linked");
+        }
+    }
+}

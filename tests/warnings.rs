@@ -7,7 +7,6 @@
 //! rating at least the voltage it holds), IEC 60115-1 (resistor rated voltage, from memory) and
 //! IEC 60204-1 §6.2.4 (5 s to 60 V after switch-off, from memory).
 
-use clap::ValueEnum;
 use dynode::warning::{Code, Warning};
 use dynode::{analysis, design, report};
 
@@ -77,7 +76,7 @@ fn warns(text: &str, code: Code, words: &[&str]) -> Vec<Warning> {
         .iter()
         .any(|w| w.code == code && words.iter().all(|x| w.message.contains(x)));
     assert!(hit, "no {code} warning with {words:?} in {:#?}", a.warnings);
-    for format in report::Format::value_variants() {
+    for format in report::Format::ALL.iter() {
         let out = collapse(&report::render(&a, *format).expect("no non-finite figure"));
         for w in words {
             assert!(out.contains(w), "{format:?} report lacks `{w}`");
@@ -280,7 +279,7 @@ fn steady_light_that_would_saturate_the_tube() {
         .expect("the saturation warning is raised");
     assert_eq!(w.code, Code::BackgroundLightAboveRating);
     assert!(w.message.contains("× its limit"));
-    for format in report::Format::value_variants() {
+    for format in report::Format::ALL.iter() {
         let out = report::render(&a, *format).expect("no non-finite figure");
         assert!(
             collapse(&out).contains("Steady light on this energised tube"),

@@ -4,6 +4,7 @@
 //! pure functions of an [`Analysis`]; writing files is the caller's business.
 
 pub mod active;
+pub mod doc;
 pub mod figures;
 pub mod finite;
 pub mod html;
@@ -58,8 +59,8 @@ pub fn printable(s: &str) -> std::borrow::Cow<'_, str> {
     }
 }
 
-/// Output formats of `report`.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
+/// Output formats of a report.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum Format {
     /// Plain text for a terminal or a lab notebook.
     Text,
@@ -70,8 +71,18 @@ pub enum Format {
     /// Markdown for notebooks and issue trackers.
     Markdown,
     /// The parts list as CSV (one line per part, for a spreadsheet or an order).
-    #[value(name = "parts-csv")]
     PartsCsv,
+}
+
+impl Format {
+    /// Every format, in the order the command line lists them.
+    pub const ALL: [Format; 5] = [
+        Format::Text,
+        Format::Json,
+        Format::Html,
+        Format::Markdown,
+        Format::PartsCsv,
+    ];
 }
 
 /// Render an analysis in the chosen format; JSON fails rather than hide a non-finite figure.

@@ -194,7 +194,14 @@ impl PulseMap {
     }
 
     /// Take the Jacobian at `x` by forward differences; false when a solve failed.
-    fn jacobian(&mut self, base: &Base, x: &[f64], shape: &Shape, qk: f64, opts: &RunOptions) -> bool {
+    fn jacobian(
+        &mut self,
+        base: &Base,
+        x: &[f64],
+        shape: &Shape,
+        qk: f64,
+        opts: &RunOptions,
+    ) -> bool {
         let nodes = base.nodes();
         let Ok(f0) = base.pulse_out(x, shape, qk, opts) else {
             return false;
@@ -256,14 +263,7 @@ impl PulseMap {
 
     /// How far `pred` is from the full solve `full` of a pulse that arrived on `x`, as the
     /// worst ratio of a difference to its tolerance (at most 1: they agree).
-    fn miss(
-        &self,
-        lay: &Layout,
-        x: &[f64],
-        pred: &[f64],
-        full: &[f64],
-        opts: &RunOptions,
-    ) -> f64 {
+    fn miss(&self, lay: &Layout, x: &[f64], pred: &[f64], full: &[f64], opts: &RunOptions) -> f64 {
         // No closer than the full solve's own error control allows.
         let kick_rtol = MAP_RTOL.max(3.0 * opts.rtol_dev);
         let peak_rtol = PEAK_RTOL.max(3.0 * opts.rtol_signal);

@@ -793,7 +793,10 @@ impl Base {
         let mut quiet_jumps = 0usize;
         // The pulse map (isolated pulses), the pulse being solved in full for it, its use.
         let lay = Layout::of(self);
-        let map_scale = g0_gaps.iter().fold(f64::INFINITY, |m, g| m.min(g.abs())).max(1.0);
+        let map_scale = g0_gaps
+            .iter()
+            .fold(f64::INFINITY, |m, g| m.min(g.abs()))
+            .max(1.0);
         let mut pmap: Option<PulseMap> = None;
         let mut map_off = !(opts.exact_quiet && opts.pulse_map) || qk <= 0.0 || arrivals.len() < 2;
         let mut pending: Option<Pending> = None;
@@ -1169,7 +1172,14 @@ impl Base {
         nv.extend_from_slice(&y[..lay.nodes]);
         // The peak as one sample (the figure's buckets keep extremes).
         let mins: Vec<f64> = (0..lay.caps).map(|k| y[lay.cap_min(k)]).collect();
-        watch.note_peak(self, time + 0.5 * (end - time), s, y[lay.peak_amps()], &mins, nv);
+        watch.note_peak(
+            self,
+            time + 0.5 * (end - time),
+            s,
+            y[lay.peak_amps()],
+            &mins,
+            nv,
+        );
     }
 }
 

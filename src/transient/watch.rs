@@ -205,7 +205,13 @@ impl Watch {
             let group: Vec<Sample> = it.by_ref().take(4).collect();
             let by = |f: fn(f64, f64) -> bool| {
                 (0..group.len())
-                    .reduce(|a, b| if f(group[b].signal_volts, group[a].signal_volts) { b } else { a })
+                    .reduce(|a, b| {
+                        if f(group[b].signal_volts, group[a].signal_volts) {
+                            b
+                        } else {
+                            a
+                        }
+                    })
                     .unwrap_or(0)
             };
             let (lo, hi) = (by(|x, y| x < y), by(|x, y| x > y));
