@@ -335,6 +335,8 @@ pub struct TrainAnalysis {
     pub series: Series,
     /// Accepted and rejected steps of the main run.
     pub steps: (usize, usize),
+    /// Pulses of the main run taken through the pulse map.
+    pub mapped_pulses: usize,
     /// Plausibility warnings.
     pub warnings: Vec<Warning>,
 }
@@ -866,6 +868,7 @@ pub fn analyse(
         steady,
         series,
         steps: run.steps,
+        mapped_pulses: run.mapped_pulses.0,
         warnings,
     }))
 }

@@ -385,6 +385,7 @@ fn periodic_steady_state_matches_a_train_run_to_ten_time_constants() {
                 qk,
                 &RunOptions {
                     recovery_band: None,
+                    pulse_map: false,
                     ..RunOptions::default()
                 },
             )
@@ -417,6 +418,7 @@ fn periodic_steady_state_matches_a_train_run_to_ten_time_constants() {
                 &RunOptions {
                     recovery_band: None,
                     stop_at: Some(arrivals[count - 1]),
+                    pulse_map: false,
                     ..RunOptions::default()
                 },
             )
@@ -442,6 +444,62 @@ fn periodic_steady_state_matches_a_train_run_to_ten_time_constants() {
 }
 
 #[test]
+fn a_long_train_through_the_pulse_map_stays_on_the_periodic_steady_state() {
+    // Reference: the periodic steady state solved by shooting (Newton on the one-period map,
+    // each period a full single-pulse solve), an independent route to the same state. A train
+    // of 100 000 pulses at 200 kHz (the gain settles near 58 % of the first pulse's), taken
+    // almost entirely through the pulse map, must sit on it pulse after pulse once ten
+    // slowest time constants have passed: every pulse's gain
+    // within 1e-4, the capacitors at the end within 1e-4. A map that drifted or oscillated
+    // between its checks (every 16th to 1024th pulse) would break this long before the end.
+    let rate = 2e5;
+    let (d, base, qk) = bench_chain(r#"Periodic(count: 100000, rate: "200 kHz")"#);
+    let spec = d.train.as_ref().unwrap();
+    let train = run(
+        &d,
+        &base,
+        qk,
+        &RunOptions {
+            recovery_band: None,
+            ..RunOptions::default()
+        },
+    );
+    assert!(
+        train.mapped_pulses.0 > 90_000,
+        "the map took {} pulses",
+        train.mapped_pulses.0
+    );
+    let ss = base
+        .periodic_steady_state(&[0.0], 1.0 / rate, &spec.shape, qk)
+        .expect("steady state");
+    let g1 = train.pulses[0].gain();
+    let steady = ss.run.pulses[0].gain() / g1;
+    let tau = base.slowest_time_constant().expect("modal form");
+    let settled = (10.0 * tau * rate).ceil() as usize;
+    assert!(settled < 50_000, "ten time constants take {settled} pulses");
+    for (i, p) in train.pulses.iter().enumerate().skip(settled) {
+        assert!(
+            rel(p.gain() / g1, steady) < 1e-4,
+            "pulse {}: gain ratio {} against the steady state's {steady}",
+            i + 1,
+            p.gain() / g1
+        );
+    }
+    for (k, (a, b)) in ss.run.caps.iter().zip(&train.caps).enumerate() {
+        assert!(
+            rel(a.at_train_end, b.at_train_end) < 1e-4,
+            "capacitor {k}: {} V against {} V",
+            a.at_train_end,
+            b.at_train_end
+        );
+    }
+    eprintln!(
+        "100 000 pulses: {:?} mapped, steady gain ratio {steady}, settled after {settled}",
+        train.mapped_pulses
+    );
+}
+
+#[test]
 fn poisson_droop_quantile_matches_a_seeded_brute_force() {
     // Reference: brute force, 10 000 Poisson pulses (SplitMix64, seed 7) through the full
     // time-domain solve; each pulse's droop is the drop of each capacitor's lowest voltage in
@@ -459,6 +517,7 @@ fn poisson_droop_quantile_matches_a_seeded_brute_force() {
             qk,
             &RunOptions {
                 recovery_band: None,
+                pulse_map: false,
                 ..RunOptions::default()
             },
         )

@@ -345,8 +345,11 @@ fn section(out: &mut String, t: &TrainAnalysis, a: &Analysis) {
         out,
         "  note: ",
         &format!(
-            "time-domain solve of the whole base (BDF2, adaptive steps: {} accepted, {} rejected); the tube's currents follow the pulse and the instantaneous gap voltages (quasi-static gain and space-charge fold); transit time and the single-electron response are left out.",
-            t.steps.0, t.steps.1
+            "time-domain solve of the whole base (BDF2, adaptive steps: {} accepted, {} rejected; {} of {} pulses through the pulse map, checked against full solves); the tube's currents follow the pulse and the instantaneous gap voltages (quasi-static gain and space-charge fold); transit time and the single-electron response are left out.",
+            t.steps.0,
+            t.steps.1,
+            t.mapped_pulses,
+            t.gain_ratio.len()
         ),
     );
     let _ = writeln!(out);
@@ -489,6 +492,7 @@ fn to_json(t: &TrainAnalysis) -> Value {
             "periods_solved": ss.periods_solved,
         })),
         "steps": { "accepted": t.steps.0, "rejected": t.steps.1 },
+        "mapped_pulses": t.mapped_pulses,
     })
 }
 

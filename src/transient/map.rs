@@ -27,7 +27,7 @@ use crate::train::Shape;
 /// pulse is mapped: at first, and at most (it grows while checks agree well, and halves when
 /// one fails).
 const REACH_FIRST: f64 = 2.5e-3;
-const REACH_MOST: f64 = 5e-2;
+const REACH_MOST: f64 = 1e-2;
 /// Finite-difference step, as a fraction of the smallest tube gap.
 const FD_STEP: f64 = 1e-3;
 /// Relative tolerance of a prediction against a full solve: charges, the state's change.
@@ -319,19 +319,19 @@ impl PulseMap {
         // step like a hit, but shortens the reach; a clear miss takes `J` again.
         let ok = miss <= 1.0;
         let near_miss = !ok && miss <= 4.0;
-        if std::env::var_os("MAPDBG").is_some() {
-            eprintln!("map check: miss {miss:.3} reach {:.2e}", self.reach);
-        }
         if ok || near_miss {
             if miss < 0.25 {
                 self.reach = (1.5 * self.reach).min(REACH_MOST);
             }
-            // Broyden: J += (F(x) − pred) sᵀ / (sᵀ s), s = x − x_c.
+            // Broyden: J += (F(x) − pred) sᵀ / (sᵀ s), s = x − x_c, only along a step longer
+            // than the finite differences' own: over a shorter one the difference is the full
+            // solve's error, and dividing it by a small step would corrupt `J` (a train at its
+            // steady state barely moves between checks).
             let pred = pred.unwrap_or_default();
             let nodes = lay.nodes;
             let s: Vec<(usize, f64)> = self.free.iter().map(|&i| (i, x[i] - self.xc[i])).collect();
             let ss: f64 = s.iter().map(|(_, v)| v * v).sum();
-            if ss > 0.0 {
+            if self.distance(x, &self.xc) >= FD_STEP {
                 for r in 0..pred.len() {
                     let e = (full.y[r] - pred[r]) / ss;
                     for &(i, si) in &s {

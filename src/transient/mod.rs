@@ -862,50 +862,51 @@ impl Base {
                 }
             }
             // An isolated pulse arriving on a quiet base: through the map, or in full for it.
-            if !map_off && pending.is_none() && after_bp {
-                if let Some(idx) = isolated(arrivals, time, support, t_stop) {
-                    let end = arrivals[idx] + support;
-                    let pred = match pmap.as_mut().map(|m| m.consult(&nv)) {
-                        Some(Use::Map(out)) => {
-                            let in_train = time < train_end * (1.0 - 1e-14);
-                            self.apply_mapped(&lay, &out, idx, time, end, &mut watch, &mut nv);
-                            for (j, q) in gap_charges.iter_mut().enumerate() {
-                                *q += out.y[lay.gap_charge(j)];
-                            }
-                            t.iter_mut().for_each(|x| *x = 0.0);
-                            time = end;
-                            if (time - train_end).abs() <= 1e-12 * train_end.max(1e-30) {
-                                elements_at_train_end = elements_of(&nv);
-                                tube_gaps_end = tube_gaps(&nv);
-                                for (k, rec) in watch.caps.iter_mut().enumerate() {
-                                    rec.at_train_end = self.cap_volts(&nv, k);
-                                }
-                            }
-                            let stop = watch.observe(self, time, &nv, 0.0, idx + 1, in_train);
-                            // A constant past: the quiet interval after the pulse restarts it.
-                            hist_v = [nv.clone(), nv.clone(), nv.clone()];
-                            hist_t = [time, time - h_start, time - 2.0 * h_start];
-                            ik_prev = cathode(time);
-                            h = h_start;
-                            mapped += 1;
-                            if stop && opts.stop_at.is_none() {
-                                break;
-                            }
-                            continue;
+            let iso = (!map_off && pending.is_none() && after_bp)
+                .then(|| isolated(arrivals, time, support, t_stop))
+                .flatten();
+            if let Some(idx) = iso {
+                let end = arrivals[idx] + support;
+                let pred = match pmap.as_mut().map(|m| m.consult(&nv)) {
+                    Some(Use::Map(out)) => {
+                        let in_train = time < train_end * (1.0 - 1e-14);
+                        self.apply_mapped(&lay, &out, idx, time, end, &mut watch, &mut nv);
+                        for (j, q) in gap_charges.iter_mut().enumerate() {
+                            *q += out.y[lay.gap_charge(j)];
                         }
-                        Some(Use::Full(pred)) => pred,
-                        None => None,
-                    };
-                    pending = Some(Pending {
-                        idx,
-                        end,
-                        x: nv.clone(),
-                        gap0: gap_charges.clone(),
-                        mins: (0..lay.caps).map(|_| f64::INFINITY).collect(),
-                        min_times: vec![0.0; lay.caps],
-                        pred,
-                    });
-                }
+                        t.iter_mut().for_each(|x| *x = 0.0);
+                        time = end;
+                        if (time - train_end).abs() <= 1e-12 * train_end.max(1e-30) {
+                            elements_at_train_end = elements_of(&nv);
+                            tube_gaps_end = tube_gaps(&nv);
+                            for (k, rec) in watch.caps.iter_mut().enumerate() {
+                                rec.at_train_end = self.cap_volts(&nv, k);
+                            }
+                        }
+                        let stop = watch.observe(self, time, &nv, 0.0, idx + 1, in_train);
+                        // A constant past: the quiet interval after the pulse restarts it.
+                        hist_v = [nv.clone(), nv.clone(), nv.clone()];
+                        hist_t = [time, time - h_start, time - 2.0 * h_start];
+                        ik_prev = cathode(time);
+                        h = h_start;
+                        mapped += 1;
+                        if stop && opts.stop_at.is_none() {
+                            break;
+                        }
+                        continue;
+                    }
+                    Some(Use::Full(pred)) => pred,
+                    None => None,
+                };
+                pending = Some(Pending {
+                    idx,
+                    end,
+                    x: nv.clone(),
+                    gap0: gap_charges.clone(),
+                    mins: (0..lay.caps).map(|_| f64::INFINITY).collect(),
+                    min_times: vec![0.0; lay.caps],
+                    pred,
+                });
             }
             while bp_idx < breaks.len() && breaks[bp_idx] <= time * (1.0 + 1e-14) + 1e-300 {
                 bp_idx += 1;
@@ -1060,15 +1061,6 @@ impl Base {
                 elements_at_train_end = elements_of(&nv);
                 tube_gaps_end = tube_gaps(&nv);
             }
-        }
-        if std::env::var_os("MAPDBG").is_some() {
-            eprintln!(
-                "run: {} pulses, {} mapped, {} map solves, {} steps, off {map_off}",
-                arrivals.len(),
-                mapped,
-                map_solves + pmap.as_ref().map_or(0, |m| m.solves),
-                accepted
-            );
         }
         let recovery = watch.recovery();
         let window_cap_min = watch.window_minima();
