@@ -113,7 +113,15 @@ pub fn to_markdown(d: &Doc) -> String {
         let _ = writeln!(out, "> - {}", md(c));
     }
     let _ = writeln!(out, "\n# {}\n", md(&d.title));
-    for b in &d.blocks {
+    out.push_str(&blocks_markdown(&d.blocks));
+    let _ = writeln!(out, "> **{}**", md(&d.closing));
+    out
+}
+
+/// Blocks as Markdown, for a document or for one section of a larger report.
+pub fn blocks_markdown(blocks: &[Block]) -> String {
+    let mut out = String::new();
+    for b in blocks {
         match b {
             Block::Heading(level, t) => {
                 let _ = writeln!(out, "{} {}\n", "#".repeat(usize::from(*level)), md(t));
@@ -142,7 +150,6 @@ pub fn to_markdown(d: &Doc) -> String {
             }
         }
     }
-    let _ = writeln!(out, "> **{}**", md(&d.closing));
     out
 }
 
@@ -163,7 +170,19 @@ pub fn to_html(d: &Doc) -> String {
         let _ = writeln!(out, "<li>{}</li>", esc(c));
     }
     let _ = writeln!(out, "</ul></section>\n<h1>{}</h1>", esc(&d.title));
-    for b in &d.blocks {
+    out.push_str(&blocks_html(&d.blocks));
+    let _ = writeln!(
+        out,
+        "<section class=\"caution\" id=\"caution-last\"><p><strong>{}</strong></p></section>\n</body>\n</html>",
+        esc(&d.closing)
+    );
+    out
+}
+
+/// Blocks as HTML, for a document or for one section of a larger page.
+pub fn blocks_html(blocks: &[Block]) -> String {
+    let mut out = String::new();
+    for b in blocks {
         match b {
             Block::Heading(level, t) => {
                 let l = (*level).clamp(2, 4);
@@ -214,11 +233,6 @@ pub fn to_html(d: &Doc) -> String {
             }
         }
     }
-    let _ = writeln!(
-        out,
-        "<section class=\"caution\" id=\"caution-last\"><p><strong>{}</strong></p></section>\n</body>\n</html>",
-        esc(&d.closing)
-    );
     out
 }
 

@@ -96,9 +96,21 @@ pub fn render(a: &Analysis, format: Format) -> Result<String, finite::NonFinite>
     })
 }
 
-/// Sections that capabilities beyond the core add, as (title, plain text), in report order.
-/// The HTML and Markdown renderers show each one; a capability adds its section here.
-pub fn extra_sections(a: &Analysis) -> Vec<(String, String)> {
+/// A section beyond the core: its title, its plain text, and its document blocks once the
+/// section has moved onto the document model ([`doc`]); HTML and Markdown render the blocks
+/// where there are some, else the text.
+pub struct Section {
+    /// Heading.
+    pub title: String,
+    /// The section as plain text.
+    pub text: String,
+    /// The section as headings, paragraphs and tables, where it has them.
+    pub blocks: Option<Vec<doc::Block>>,
+}
+
+/// Sections that capabilities beyond the core add, in report order. The HTML and Markdown
+/// renderers show each one; a capability adds its section here.
+pub fn extra_sections(a: &Analysis) -> Vec<Section> {
     let mut v = vec![(supply::TITLE.to_string(), supply::body(a))];
     if let Some(b) = supply::model_body(a) {
         v.push((supply::MODEL_TITLE.to_string(), b));
@@ -119,6 +131,21 @@ pub fn extra_sections(a: &Analysis) -> Vec<(String, String)> {
     if let Some(t) = train::section_text(a) {
         v.push(("Pulse train".to_string(), t));
     }
-    v.push(("Parts list".to_string(), crate::parts::text(a)));
-    v
+    let mut sections: Vec<Section> = v
+        .into_iter()
+        .map(|(title, text)| {
+            let blocks = (title == supply::TITLE).then(|| supply::blocks(a));
+            Section {
+                title,
+                text,
+                blocks,
+            }
+        })
+        .collect();
+    sections.push(Section {
+        title: "Parts list".to_string(),
+        text: crate::parts::text(a),
+        blocks: Some(tables::parts_blocks(a)),
+    });
+    sections
 }
