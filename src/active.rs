@@ -6,6 +6,7 @@
 use crate::design::Design;
 use crate::linearity;
 use crate::network::{Network, OperatingPoint, Workspace};
+use crate::warning::{Code, Warning, warning};
 use uom::si::electric_current::ampere;
 use uom::si::electric_potential::volt;
 use uom::si::power::watt;
@@ -177,17 +178,18 @@ pub fn assess(design: &Design, net: &Network, op: &OperatingPoint) -> Option<Act
 }
 
 /// Warnings for followers over their ratings at the operating point, or near their limit.
-pub fn warnings(a: &ActiveStages) -> Vec<String> {
+pub fn warnings(a: &ActiveStages) -> Vec<Warning> {
     let mut w = Vec::new();
     for r in &a.followers {
         if r.over_power {
-            w.push(format!(
+            w.push(warning!(Code::FollowerOverPower,
                 "The follower holding D{} dissipates {:.3} W against its {:.3} W rating: use a part rated higher, or drain it to a nearer potential.",
                 r.dynode, r.watts, a.power_rating
             ));
         }
         if r.over_volts {
-            w.push(format!(
+            w.push(warning!(
+                Code::FollowerOverVoltage,
                 "The follower holding D{} stands up to {:.0} V against its {:.0} V rating.",
                 r.dynode,
                 r.dynode_volts.max(r.volts),
@@ -195,7 +197,7 @@ pub fn warnings(a: &ActiveStages) -> Vec<String> {
             ));
         }
         if r.amps.abs() >= AT_LIMIT * a.current_limit {
-            w.push(format!(
+            w.push(warning!(Code::FollowerAtCurrentLimit,
                 "The follower holding D{} is at its current limit at the operating point: the dynode is no longer held and the base behaves as the passive divider there.",
                 r.dynode
             ));

@@ -10,6 +10,7 @@ use crate::network::{Network, OperatingPoint, SolveError, Workspace};
 use crate::safety::{self, Safety};
 use crate::tube::{TubeError, TubeModel};
 use crate::units::format_eng;
+use crate::warning::{Code, Warning, warning};
 use uom::si::electric_current::ampere;
 use uom::si::electric_potential::volt;
 use uom::si::electrical_resistance::ohm;
@@ -112,7 +113,7 @@ pub struct Analysis {
     /// Safety figures.
     pub safety: Safety,
     /// Plausibility warnings (never block).
-    pub warnings: Vec<String>,
+    pub warnings: Vec<Warning>,
     /// Values assumed because the design did not give them.
     pub assumptions: Vec<String>,
     /// Small-signal gain against supply magnitude under the design's divider: (volts, gain),
@@ -210,7 +211,7 @@ fn pulse_stream(design: &Design, gain: f64) -> Result<Option<PulseStream>, Analy
 fn supply_model_warnings(
     design: &Design,
     sm: &crate::multiplier::SupplyModel,
-    warnings: &mut Vec<String>,
+    warnings: &mut Vec<Warning>,
 ) {
     let vs = design.supply_magnitude();
     let off = sm.output_minus_setting_volts;
@@ -219,7 +220,7 @@ fn supply_model_warnings(
         // that gives the setting, to first order.
         let n = sm.stages as f64;
         let needed = sm.amplitude_volts - off / (2.0 * n);
-        warnings.push(format!(
+        warnings.push(warning!(Code::MultiplierOutputOffSetting,
             "The multiplier gives {} at the base under this load, {} {} the supply setting of {}: a drive of about {} peak would give the setting (a regulated supply adjusts its drive so; the figures here are made at the setting).",
             format_eng(sm.steady.output_volts, "V"),
             format_eng(off.abs(), "V"),
@@ -229,7 +230,7 @@ fn supply_model_warnings(
         ));
     }
     if !sm.meets {
-        warnings.push(format!(
+        warnings.push(warning!(Code::MultiplierRippleAboveStability,
             "The supply's ripple ({} p-p at the base) modulates the gain by {:.3} % p-p, more than the {:.2} % gain stability{}: raise the multiplier's capacitance or frequency, or add or enlarge the RC filter.",
             format_eng(sm.steady.ripple_volts, "V"),
             sm.gain_ripple * 100.0,
@@ -238,7 +239,10 @@ fn supply_model_warnings(
         ));
     }
     if design.supply_quality.and_then(|q| q.ripple_volts).is_some() {
-        warnings.push("The design states a supply ripple (supply.quality.ripple) and describes the multiplier: the supply-quality section uses the stated ripple, the supply-model section the computed one.".to_string());
+        warnings.push(warning!(
+            Code::SupplyRippleStatedTwice,
+            "The design states a supply ripple (supply.quality.ripple) and describes the multiplier: the supply-quality section uses the stated ripple, the supply-model section the computed one."
+        ));
     }
 }
 
@@ -366,7 +370,7 @@ pub fn analyse_with(
     if let Some(st) = stream.filter(|_| !design.operating_assumed) {
         let stated = design.anode_current.get::<ampere>();
         if (stated / st.average_anode_amps - 1.0).abs() > 0.10 {
-            warnings.push(format!(
+            warnings.push(warning!(Code::OperatingCurrentDiffersFromPulses,
                 "operating.anode_current is {}, but the pulses of {} average {} at the anode: the DC figures are made at the stated current; leave operating out to make them at the pulses' average.",
                 format_eng(stated, "A"),
                 st.from,
@@ -376,7 +380,8 @@ pub fn analyse_with(
     }
     for g in &gaps {
         if g.over_gap_limit {
-            warnings.push(format!(
+            warnings.push(warning!(
+                Code::GapAboveTubeLimit,
                 "Gap {} ({}) holds {} at the operating point, above the tube's gap limit of {}.",
                 g.number,
                 g.label,
@@ -385,7 +390,7 @@ pub fn analyse_with(
             ));
         }
         if g.over_power {
-            warnings.push(format!(
+            warnings.push(warning!(Code::ResistorOverPower,
                 "Gap {} ({}) dissipates {}, above the resistor's {} rating: use a larger part or split it.",
                 g.number,
                 g.label,
@@ -393,7 +398,7 @@ pub fn analyse_with(
                 format_eng(p_rating, "W")
             ));
         } else if g.power_rating.is_some_and(|p| g.watts > 0.5 * p) {
-            warnings.push(format!(
+            warnings.push(warning!(Code::ResistorAboveHalfPower,
                 "Gap {} ({}) dissipates {}, above half the resistor's {} rating (50 % derating is common practice).",
                 g.number,
                 g.label,
@@ -402,7 +407,7 @@ pub fn analyse_with(
             ));
         }
         if g.over_voltage {
-            warnings.push(format!(
+            warnings.push(warning!(Code::ResistorOverVoltage,
                 "Gap {} ({}) puts {} across its resistor, above its rated voltage of {} (min of √(P·R) and the working voltage, IEC 60115-1, from memory): split it into parts in series.",
                 g.number,
                 g.label,
@@ -414,7 +419,8 @@ pub fn analyse_with(
     let ia = op.anode_amps();
     let max_ia = design.tube.max_anode_current.get::<ampere>();
     if ia > max_ia {
-        warnings.push(format!(
+        warnings.push(warning!(
+            Code::AnodeCurrentAboveRating,
             "The average anode current {} is above the tube's rating of {}.",
             format_eng(ia, "A"),
             format_eng(max_ia, "A")
@@ -422,7 +428,7 @@ pub fn analyse_with(
     }
     // Followers carry the last stages' current: their limits count with the divider's.
     if design.followers.is_none() && quiescent_amps < 10.0 * ia {
-        warnings.push(format!(
+        warnings.push(warning!(Code::DividerCurrentLow,
             "The divider current {} is less than ten times the anode current {} (common practice asks 10× to 100×); see the linearity figures.",
             format_eng(quiescent_amps, "A"),
             format_eng(ia, "A")
@@ -430,7 +436,7 @@ pub fn analyse_with(
     }
     let dev = op.gain() / small_signal_gain - 1.0;
     if dev.abs() > 0.01 {
-        warnings.push(format!(
+        warnings.push(warning!(Code::GainOffSmallSignal,
             "At the operating point the gain is {:+.1} % off its small-signal value: the divider is not linear here.",
             dev * 100.0
         ));
@@ -438,7 +444,7 @@ pub fn analyse_with(
     if let Some(limit) = design.current_limit {
         let limit = limit.get::<ampere>();
         if op.supply_amps() > limit {
-            warnings.push(format!(
+            warnings.push(warning!(Code::SupplyCurrentAboveLimit,
                 "The base draws {} from the supply, above its current limit of {}: the supply will fold back. Do not raise or defeat the limit; raise the divider resistance instead.",
                 format_eng(op.supply_amps(), "A"),
                 format_eng(limit, "A")
@@ -448,14 +454,15 @@ pub fn analyse_with(
     for c in &safety.capacitors {
         if let Some(r) = c.rating_volts {
             if r < c.volts {
-                warnings.push(format!(
+                warnings.push(warning!(
+                    Code::CapacitorOverVoltage,
                     "The {} is rated {} but holds {}.",
                     c.label,
                     format_eng(r, "V"),
                     format_eng(c.volts, "V")
                 ));
             } else if r < 1.5 * c.volts && c.label.contains("across") {
-                warnings.push(format!(
+                warnings.push(warning!(Code::CapacitorRatingMarginLow,
                     "The {} is rated {} for {}: common practice asks at least 1.5× the gap voltage.",
                     c.label,
                     format_eng(r, "V"),
@@ -470,20 +477,20 @@ pub fn analyse_with(
                 CapStyle::Across(g) => format!("across gap {g}"),
                 CapStyle::ToReturn(k) => format!("from D{k} to the return"),
             };
-            warnings.push(format!(
+            warnings.push(warning!(Code::CapacitorRatingMissing,
                 "The decoupling capacitor {place} has no voltage rating in the design; give one so it can be checked."
             ));
         }
     }
     match safety.bleed_seconds {
-        Some(t) if t > safety::SAFE_SECONDS => warnings.push(format!(
+        Some(t) if t > safety::SAFE_SECONDS => warnings.push(warning!(Code::BleedDownSlow,
             "Bleed-down to {:.0} V takes {} ({}), over the {:.0} s of IEC 60204-1 §6.2.4 (from memory).",
             safety::SAFE_VOLTS,
             format_eng(t, "s"),
             safety.bleed_case,
             safety::SAFE_SECONDS
         )),
-        None if safety.never_bleeds.is_empty() => warnings.push(format!(
+        None if safety.never_bleeds.is_empty() => warnings.push(warning!(Code::BleedDownOverAnHour,
             "Some capacitor stays above {:.0} V for over an hour after switch-off ({}).",
             safety::SAFE_VOLTS,
             safety.bleed_case
@@ -575,7 +582,8 @@ pub fn analyse_with(
         Some(opts) => match crate::pulsetrain::analyse(design, &network.tube, &opts) {
             Ok(t) => t,
             Err(e) => {
-                warnings.push(format!(
+                warnings.push(warning!(
+                    Code::TrainSolveFailed,
                     "The pulse-train solve failed, so the train section is missing: {e}"
                 ));
                 None
@@ -590,7 +598,7 @@ pub fn analyse_with(
         match crate::multiplier::assess(m, vs, op.supply_amps(), sensitivity, stability) {
             Ok(sm) => Some(sm),
             Err(e) => {
-                warnings.push(format!(
+                warnings.push(warning!(Code::MultiplierSolveFailed,
                     "The supply's multiplier could not be solved, so the supply-model section is missing: {e}."
                 ));
                 None

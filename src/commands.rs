@@ -92,7 +92,7 @@ pub fn compare(paths: &[std::path::PathBuf], json: bool) -> Result<String, Comma
         all.push(analysis::analyse_with(&d, None)?);
     }
     Ok(if json {
-        crate::compare::json(&all)
+        crate::compare::json(&all).map_err(|e| CommandError::Solve(e.to_string()))?
     } else {
         crate::compare::text(&all)
     })

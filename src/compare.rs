@@ -220,7 +220,7 @@ pub fn text(all: &[Analysis]) -> String {
 }
 
 /// The comparison as JSON (keys in docs/json.md, "JSON of `compare`").
-pub fn json(all: &[Analysis]) -> String {
+pub fn json(all: &[Analysis]) -> Result<String, crate::report::finite::NonFinite> {
     let rows = rows(all);
     let v: Value = json!({
         "schema_version": 1,
@@ -240,7 +240,5 @@ pub fn json(all: &[Analysis]) -> String {
         })).collect::<Vec<_>>(),
         "differences": rows.iter().filter(|r| r.differs).count(),
     });
-    let mut s = serde_json::to_string_pretty(&v).unwrap_or_else(|_| "{}".to_string());
-    s.push('\n');
-    s
+    crate::report::finite::to_text(&v)
 }

@@ -14,6 +14,7 @@
 pub mod active;
 pub mod analysis;
 pub mod cathode;
+pub mod cli;
 pub mod commands;
 pub mod compare;
 pub mod constants;
@@ -46,4 +47,5 @@ pub mod train;
 pub mod transient;
 pub mod tube;
 pub mod units;
+pub mod warning;
 pub mod waveform;

@@ -130,9 +130,15 @@ pub fn write_atomic(
         use std::os::unix::fs::PermissionsExt;
         builder.permissions(std::fs::Permissions::from_mode(0o666));
     }
-    let mut tmp = builder.tempfile_in(parent_dir(path)).map_err(io)?;
+    // Create and register under the lock, so that an interrupt between the two (the handler
+    // waits for the lock) cannot leave the temporary file behind.
+    let mut tmp = {
+        let mut list = pending();
+        let tmp = builder.tempfile_in(parent_dir(path)).map_err(io)?;
+        list.push(tmp.path().to_path_buf());
+        tmp
+    };
     let tmp_path = tmp.path().to_path_buf();
-    pending().push(tmp_path.clone());
     let written = tmp
         .write_all(bytes)
         .and_then(|_| tmp.as_file().sync_all())

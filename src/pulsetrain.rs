@@ -27,6 +27,7 @@ use crate::train::{ELEMENTARY_CHARGE, Pattern, PulseSize, Shape, TrainSpec};
 use crate::transient::{Base, Run, RunOptions, Sample, TransientError};
 use crate::tube::TubeModel;
 use crate::units::format_eng as eng;
+use crate::warning::{Code, Warning, warning};
 use uom::si::capacitance::farad;
 use uom::si::electric_current::ampere;
 
@@ -337,7 +338,7 @@ pub struct TrainAnalysis {
     /// Pulses of the main run taken through the pulse map.
     pub mapped_pulses: usize,
     /// Plausibility warnings.
-    pub warnings: Vec<String>,
+    pub warnings: Vec<Warning>,
 }
 
 /// What to compute.
@@ -796,21 +797,23 @@ pub fn analyse(
     let steady = match steady_state(design, &base, &spec, qk, first_gain) {
         Ok(s) => s,
         Err(e) => {
-            warnings.push(format!(
+            warnings.push(warning!(
+                Code::TrainSteadyStateNotFound,
                 "The steady state of the train's rate was not found: {e}"
             ));
             None
         }
     };
     if let Some(avg) = average_anode_amps.filter(|a| *a > rated_average_amps) {
-        warnings.push(format!(
+        warnings.push(warning!(
+            Code::TrainAverageAboveRating,
             "The train's average anode current {} is above the tube's rating of {}.",
             eng(avg, "A"),
             eng(rated_average_amps, "A")
         ));
     }
     if peak_anode_amps > rated_pulse.0 {
-        warnings.push(format!(
+        warnings.push(warning!(Code::TrainPeakAboveLinearityLimit,
             "The train's peak anode current {} is above the tube's pulse-linearity figure of {} ({:.0} % deviation).",
             eng(peak_anode_amps, "A"),
             eng(rated_pulse.0, "A"),
@@ -819,7 +822,7 @@ pub fn analyse(
     }
     for d in &droop {
         if d.droop_volts > spec.droop * d.gap_volts.abs() {
-            warnings.push(format!(
+            warnings.push(warning!(Code::TrainCapacitorDroop,
                 "The capacitor {} droops {} over the train, {:.2} % of its gap ({}): above the allowed {:.1} %; see the recommended values.",
                 d.label,
                 eng(d.droop_volts, "V"),
@@ -830,16 +833,17 @@ pub fn analyse(
         }
     }
     if run.recovery.is_none() {
-        warnings.push(format!(
+        warnings.push(warning!(
+            Code::TrainGainNotRecovered,
             "The gain had not recovered within 0.1 % {} after the train.",
             eng(run.recovery_horizon, "s")
         ));
     }
     if design.decoupling.is_empty() {
-        warnings.push(
+        warnings.push(warning!(
+            Code::TrainNoDecoupling,
             "The design has no decoupling capacitors: every pulse's charge comes through the divider resistors and strays."
-                .to_string(),
-        );
+        ));
     }
     Ok(Some(TrainAnalysis {
         count: spec.pattern.count(),

@@ -31,6 +31,7 @@ use crate::design::{Design, InstrumentResponse, ReadoutSpec};
 use crate::frontend::{FrontEnd, FrontNoise};
 use crate::light::{self, FWHM_PER_SIGMA, Shape, Spectrum};
 use crate::units::format_eng as eng;
+use crate::warning::{Code, Warning, warning};
 use crate::waveform::{self, CurrentPulse, LoadCircuit, PulseFigures, Waveform};
 use uom::si::capacitance::farad;
 use uom::si::electrical_resistance::ohm;
@@ -429,7 +430,7 @@ pub struct SignalBudget {
     /// Photon counting, with a counting block or below one photoelectron per pulse.
     pub counting: Option<crate::counting::PhotonCounting>,
     /// Warnings for the report's list.
-    pub warnings: Vec<String>,
+    pub warnings: Vec<Warning>,
     /// Assumptions.
     pub assumptions: Vec<String>,
 }
@@ -1154,7 +1155,7 @@ pub fn budget(design: &Design, chain: &Chain) -> Option<SignalBudget> {
         &s.cathode,
     );
     if conv.out_of_range > 0.0 {
-        warnings.push(format!(
+        warnings.push(warning!(Code::LightOutsideCathodeRange,
             "{:.0} % of the light lies outside the cathode curve's wavelength range ({:.0}–{:.0} nm): counted as zero response.",
             conv.out_of_range * 100.0,
             s.cathode.range().0,
@@ -1326,7 +1327,7 @@ pub fn budget(design: &Design, chain: &Chain) -> Option<SignalBudget> {
     if let Some((i_fig, dev, _)) = design.tube.pulse_linearity {
         let i_fig = i_fig.get::<uom::si::electric_current::ampere>();
         if current_fig.peak > 0.5 * i_fig {
-            warnings.push(format!(
+            warnings.push(warning!(Code::PulsePeakNearLinearityLimit,
                 "The peak anode current {} is {:.0} % of the tube's pulse-linearity figure ({} at {:.0} % deviation): expect the pulse gain to move; see the linearity section.",
                 eng(current_fig.peak, "A"),
                 current_fig.peak / i_fig * 100.0,
@@ -1339,7 +1340,8 @@ pub fn budget(design: &Design, chain: &Chain) -> Option<SignalBudget> {
     if let Some(avg) = average
         && avg > chain.max_anode_amps
     {
-        warnings.push(format!(
+        warnings.push(warning!(
+            Code::LightAverageAboveRating,
             "The pulses at {} average {} of anode current, above the tube's rating of {}.",
             eng(l.rate.unwrap_or(0.0), "Hz"),
             eng(avg, "A"),
@@ -1362,7 +1364,7 @@ pub fn budget(design: &Design, chain: &Chain) -> Option<SignalBudget> {
     if let Some(b) = background
         && b.over_rating > 1.0
     {
-        warnings.push(format!(
+        warnings.push(warning!(Code::BackgroundLightAboveRating,
                 "Steady light on this energised tube would ask for {} of anode current, {:.0}× its limit and {:.1}× the divider current: the gain collapses and the cathode can be damaged. Keep light off the tube while the high voltage is on.",
                 eng(b.anode_amps, "A"),
                 b.over_rating,

@@ -13,7 +13,7 @@ use crate::eseries::Series;
 use crate::units::format_eng;
 
 /// How the divider shares the supply.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum DividerStyle {
     /// Every gap the same.
     Equal,
@@ -25,7 +25,7 @@ pub enum DividerStyle {
 }
 
 /// What lights the cathode.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum LightKind {
     /// No light block (DC figures only).
     None,
@@ -38,7 +38,7 @@ pub enum LightKind {
 }
 
 /// What reads the pulse.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum ReadoutKind {
     /// No readout block.
     None,

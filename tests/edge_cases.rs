@@ -127,7 +127,7 @@ fn tiny_resistances() {
     ));
     assert!((a.quiescent_amps - 10.0).abs() < 1e-6);
     assert!(
-        a.warnings.iter().any(|w| w.contains("dissipates")),
+        a.warnings.iter().any(|w| w.message.contains("dissipates")),
         "{:#?}",
         a.warnings
     );
@@ -376,4 +376,40 @@ fn no_command_prints_a_non_finite_number_in_json() {
             assert_eq!(json_unexpected_null(&v), None, "{}", args.join(" "));
         }
     }
+}
+
+#[test]
+fn a_non_finite_figure_cannot_be_written_as_json() {
+    // JSON has no NaN or infinity (RFC 8259 §6), and serde_json would write one as null. A
+    // non-finite figure where the schema allows no null must stop the output with an error
+    // that names the place; where the schema allows null, null is written.
+    let d = design::parse_str(crate::warnings::BASE, "base.ron").expect("valid");
+    let clean = analysis::analyse(&d).expect("solves");
+    assert!(
+        report::json::render(&clean).is_ok(),
+        "a sound analysis writes"
+    );
+
+    let mut a = clean.clone();
+    a.small_signal_gain = f64::NAN;
+    let e = report::render(&a, report::Format::Json).expect_err("a NaN gain is refused");
+    assert_eq!(e.path, "small_signal_gain");
+    let m = e.to_string();
+    assert!(
+        m.contains("`small_signal_gain`") && m.contains("not a finite number"),
+        "{m}"
+    );
+    // The text formats are not JSON: they print what they always printed.
+    assert!(report::render(&a, report::Format::Text).is_ok());
+
+    let mut a = clean.clone();
+    a.gaps[2].volts = f64::INFINITY;
+    let e = report::json::render(&a).expect_err("an infinite gap voltage is refused");
+    assert_eq!(e.path, "gaps[2].volts");
+
+    let mut a = clean;
+    a.safety.bleed_seconds = Some(f64::INFINITY);
+    let text = report::json::render(&a).expect("a nullable figure is written as null");
+    let v: serde_json::Value = serde_json::from_str(&text).expect("parses");
+    assert!(v["safety"]["bleed_seconds"].is_null());
 }

@@ -58,8 +58,8 @@ fn every_demo_report_matches_its_golden_file() {
         let text = std::fs::read_to_string(&path).expect("demo readable");
         let d = design::parse_str(&text, &format!("designs/{stem}.ron")).expect("demo parses");
         let a = analysis::analyse(&d).expect("demo analyses");
-        let txt = report::render(&a, report::Format::Text);
-        let json = report::render(&a, report::Format::Json);
+        let txt = report::render(&a, report::Format::Text).expect("renders");
+        let json = report::render(&a, report::Format::Json).expect("no non-finite figure");
         let (txt_path, json_path) = (
             dir.join(format!("{stem}.txt")),
             dir.join(format!("{stem}.json")),

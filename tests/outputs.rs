@@ -201,6 +201,7 @@ fn every_documented_json_key_is_present_for_every_demo() {
         "the schema table lists the keys ({})",
         keys.len()
     );
+    let mut demos_with_warnings = 0;
     for design in demo_designs() {
         let out = dynode()
             .args(["report", "--format", "json"])
@@ -212,15 +213,32 @@ fn every_documented_json_key_is_present_for_every_demo() {
         assert_eq!(v["schema_version"], dynode::report::json::SCHEMA_VERSION);
         let mut present = std::collections::BTreeSet::new();
         collect_keys(&v, &mut present);
-        for k in &keys {
+        // A warning's keys exist only where there is a warning; they are checked on each one.
+        let warning_keys = ["code", "message"];
+        for k in keys.iter().filter(|k| !warning_keys.contains(&k.as_str())) {
             assert!(
                 present.contains(k),
                 "{}: documented key `{k}` is missing",
                 design.display()
             );
         }
+        let warnings = v["warnings"].as_array().expect("warnings is an array");
+        for w in warnings {
+            for k in warning_keys {
+                assert!(
+                    w[k].is_string(),
+                    "{}: warning lacks `{k}`",
+                    design.display()
+                );
+            }
+        }
+        demos_with_warnings += usize::from(!warnings.is_empty());
         crate::common::assert_all_numbers_finite(&v, "$");
     }
+    assert!(
+        demos_with_warnings > 0,
+        "some demo shows the warnings' keys"
+    );
 }
 
 #[test]
@@ -467,4 +485,84 @@ fn light_match_compares_six_or_more_lines_against_every_cathode() {
         .output()
         .unwrap();
     assert_eq!(out.status.code(), Some(2));
+}
+
+#[test]
+fn spread_and_sweep_write_html_and_markdown_tables_with_the_cautions() {
+    // The document model's renderers (report::doc): real tables with units in the headers,
+    // no preformatted text, the cautions first and last, the figure files linked with --plots.
+    let dir = temp_dir("doc-formats");
+    let design = crate_path("designs/rooftop-paddle.ron");
+    let runs: [(&str, &[&str], &str); 2] = [
+        (
+            "sweep",
+            &["--vary", "supply.volts=900V..1300V:3"],
+            "| volts (V) | supply (V) |",
+        ),
+        (
+            "spread",
+            &["--samples", "300", "--linearity-samples", "0"],
+            "| # | gap | 1 % (V) |",
+        ),
+    ];
+    for (command, extra, md_head) in runs {
+        for format in ["html", "md"] {
+            let out_file = dir.join(format!("{command}.{format}"));
+            let figs = dir.join(format!("{command}-{format}-figs"));
+            let o = dynode()
+                .arg(command)
+                .arg(&design)
+                .args(extra)
+                .args(["--format", format, "-q", "-o"])
+                .arg(&out_file)
+                .arg("--plots")
+                .arg(&figs)
+                .output()
+                .unwrap();
+            assert!(o.status.success(), "{command} {format}: {:?}", o);
+            let text = std::fs::read_to_string(&out_file).unwrap();
+            let first = text
+                .find(if format == "md" {
+                    "HIGH-VOLTAGE CAUTION"
+                } else {
+                    "caution-first"
+                })
+                .expect("a caution block");
+            let table = text
+                .find(if format == "md" { "|---|" } else { "<table>" })
+                .expect("a table");
+            assert!(
+                first < table,
+                "{command} {format}: caution before the results"
+            );
+            let last = text.rfind("HIGH VOLTAGE").unwrap();
+            assert!(
+                last > text.rfind("|").unwrap_or(0),
+                "{command} {format}: caution last"
+            );
+            assert!(
+                !text.contains("<pre>"),
+                "{command} {format}: no preformatted dump"
+            );
+            if format == "md" {
+                assert!(
+                    text.contains(md_head),
+                    "{command}: header with units\n{text}"
+                );
+            } else {
+                assert!(text.contains("(V)</th>"), "{command}: header with units");
+            }
+            // Every figure linked is a file that was written, found from the report's folder.
+            let mut linked = 0;
+            for name in std::fs::read_dir(&figs).unwrap() {
+                let name = name.unwrap().file_name().to_string_lossy().to_string();
+                if name.ends_with(".svg") {
+                    let rel = format!("{command}-{format}-figs/{name}");
+                    assert!(text.contains(&rel), "{command} {format} links {rel}");
+                    linked += 1;
+                }
+            }
+            assert!(linked > 0, "{command} {format}: some figure linked");
+        }
+    }
 }

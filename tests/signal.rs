@@ -67,7 +67,7 @@ fn a_table_in_milliamps_per_watt_becomes_qe_and_out_of_range_is_zero() {
     assert!(
         a.warnings
             .iter()
-            .any(|w| w.contains("outside the cathode curve")),
+            .any(|w| w.message.contains("outside the cathode curve")),
         "{:?}",
         a.warnings
     );

@@ -7,7 +7,7 @@
 //! rating at least the voltage it holds), IEC 60115-1 (resistor rated voltage, from memory) and
 //! IEC 60204-1 §6.2.4 (5 s to 60 V after switch-off, from memory).
 
-use clap::ValueEnum;
+use dynode::warning::{Code, Warning};
 use dynode::{analysis, design, report};
 
 /// A valid 10-stage cathode-negative design of our own (invented numbers) that raises no
@@ -65,18 +65,19 @@ fn collapse(s: &str) -> String {
     s.split_whitespace().collect::<Vec<_>>().join(" ")
 }
 
-/// Analyse `text` and return its warnings, after checking that `words` appear in one warning
-/// and, with wrapping undone, in the report of every format.
-fn warns(text: &str, words: &[&str]) -> Vec<String> {
+/// Analyse `text` and return its warnings, after checking that one warning has `code` and
+/// `words` in its message and that, with wrapping undone, the words appear in the report of
+/// every format, and in JSON as `{code, message}`.
+fn warns(text: &str, code: Code, words: &[&str]) -> Vec<Warning> {
     let d = design::parse_str(text, "case.ron").expect("the case design is valid");
     let a = analysis::analyse(&d).expect("the case design solves");
     let hit = a
         .warnings
         .iter()
-        .any(|w| words.iter().all(|x| w.contains(x)));
-    assert!(hit, "no warning with {words:?} in {:#?}", a.warnings);
-    for format in report::Format::value_variants() {
-        let out = collapse(&report::render(&a, *format));
+        .any(|w| w.code == code && words.iter().all(|x| w.message.contains(x)));
+    assert!(hit, "no {code} warning with {words:?} in {:#?}", a.warnings);
+    for format in report::Format::ALL.iter() {
+        let out = collapse(&report::render(&a, *format).expect("no non-finite figure"));
         for w in words {
             assert!(out.contains(w), "{format:?} report lacks `{w}`");
         }
@@ -84,10 +85,11 @@ fn warns(text: &str, words: &[&str]) -> Vec<String> {
     let json = report::json::to_value(&a);
     let listed = json["warnings"].as_array().expect("warnings array");
     assert!(
-        listed
-            .iter()
-            .any(|w| words.iter().all(|x| w.as_str().unwrap_or("").contains(x))),
-        "JSON warnings lack {words:?}"
+        listed.iter().any(|w| w["code"] == code.as_str()
+            && words
+                .iter()
+                .all(|x| w["message"].as_str().unwrap_or("").contains(x))),
+        "JSON warnings lack {code} with {words:?}"
     );
     a.warnings
 }
@@ -111,6 +113,7 @@ fn gap_over_the_tube_limit_under_load() {
     ]);
     warns(
         &text,
+        Code::GapAboveTubeLimit,
         &["Gap 1 (K–D1)", "above the tube's gap limit of 195 V"],
     );
     let d = design::parse_str(&text, "case.ron").expect("valid");
@@ -123,6 +126,7 @@ fn anode_current_over_the_rating() {
     // The tube's average anode-current rating (tube.limits.max_anode_current = 100 µA).
     warns(
         &variant(&[(r#"anode_current: "2 uA""#, r#"anode_current: "150 uA""#)]),
+        Code::AnodeCurrentAboveRating,
         &["average anode current 150 µA is above the tube's rating of 100 µA"],
     );
 }
@@ -133,6 +137,7 @@ fn divider_current_below_ten_times_the_anode_current() {
     // 1100 V / 5.7 MΩ = 193 µA (Ohm's law) against 30 µA is 6.4×.
     warns(
         &variant(&[(r#"anode_current: "2 uA""#, r#"anode_current: "30 uA""#)]),
+        Code::DividerCurrentLow,
         &["divider current 193 µA is less than ten times the anode current 30.0 µA"],
     );
 }
@@ -142,6 +147,7 @@ fn resistor_power_over_rating() {
     // P = V²/R: K–D1 holds 193 V on 1 MΩ, 37.3 mW, above a 30 mW part (Joule's law).
     warns(
         &variant(&[(r#"power: "0.25 W""#, r#"power: "0.03 W""#)]),
+        Code::ResistorOverPower,
         &["Gap 1 (K–D1) dissipates 37.3 mW, above the resistor's 30.0 mW rating"],
     );
 }
@@ -151,6 +157,7 @@ fn resistor_voltage_over_rating() {
     // Rated voltage min(√(P·R), working voltage) (IEC 60115-1, from memory): min(500 V, 150 V).
     warns(
         &variant(&[(r#"working_voltage: "250 V""#, r#"working_voltage: "150 V""#)]),
+        Code::ResistorOverVoltage,
         &[
             "Gap 1 (K–D1) puts 193 V across its resistor",
             "rated voltage of 150 V",
@@ -166,6 +173,7 @@ fn capacitor_rating_below_the_gap_voltage() {
             r#"value: "10 nF", rating: Some("500 V")"#,
             r#"value: "10 nF", rating: Some("50 V")"#,
         )]),
+        Code::CapacitorOverVoltage,
         &[
             "decoupling across gap 11",
             "is rated 50.0 V but holds 89.9 V",
@@ -182,6 +190,7 @@ fn bleed_time_over_five_seconds() {
             r#"current_limit: Some("1 mA"),"#,
             r#"current_limit: Some("1 mA"), output_capacitance: Some("1 uF"),"#,
         )]),
+        Code::BleedDownSlow,
         &[
             "Bleed-down to 60 V takes 16.6 s",
             "over the 5 s of IEC 60204-1",
@@ -266,14 +275,60 @@ fn steady_light_that_would_saturate_the_tube() {
     let w = a
         .warnings
         .iter()
-        .find(|w| w.contains("Steady light on this energised tube"))
+        .find(|w| w.message.contains("Steady light on this energised tube"))
         .expect("the saturation warning is raised");
-    assert!(w.contains("× its limit"));
-    for format in report::Format::value_variants() {
-        let out = report::render(&a, *format);
+    assert_eq!(w.code, Code::BackgroundLightAboveRating);
+    assert!(w.message.contains("× its limit"));
+    for format in report::Format::ALL.iter() {
+        let out = report::render(&a, *format).expect("no non-finite figure");
         assert!(
             collapse(&out).contains("Steady light on this energised tube"),
             "{format:?} shows it"
         );
     }
+}
+
+#[test]
+fn warning_codes_are_unique_and_match_the_documented_list() {
+    // The codes are a published contract (docs/json.md, "Warning codes"): the table there must
+    // list exactly the codes the program can raise, in the same order, each once.
+    let doc = std::fs::read_to_string(crate::common::crate_path("docs/json.md")).unwrap();
+    let start = doc
+        .find("## Warning codes")
+        .expect("docs/json.md has a Warning codes section");
+    let section = &doc[start..];
+    let end = section[3..].find("\n## ").map_or(section.len(), |i| i + 3);
+    let documented: Vec<&str> = section[..end]
+        .lines()
+        .filter_map(|l| l.strip_prefix("| `"))
+        .filter_map(|l| l.split('`').next())
+        .collect();
+    let program: Vec<&str> = Code::ALL.iter().map(|c| c.as_str()).collect();
+    assert_eq!(documented, program, "docs/json.md and Code::ALL differ");
+    let unique: std::collections::BTreeSet<&str> = program.iter().copied().collect();
+    assert_eq!(unique.len(), program.len(), "a code is used twice");
+}
+
+#[test]
+fn the_base_design_with_many_faults_gives_each_its_own_code() {
+    // Two conditions at once (150 µA against a 100 µA rating and a 193 µA divider, common
+    // practice asks 10×): each is its own warning with its own code, in both text and JSON.
+    let text = variant(&[(r#"anode_current: "2 uA""#, r#"anode_current: "150 uA""#)]);
+    let d = design::parse_str(&text, "case.ron").expect("valid");
+    let a = analysis::analyse(&d).expect("solves");
+    let codes: Vec<Code> = a.warnings.iter().map(|w| w.code).collect();
+    assert!(codes.contains(&Code::AnodeCurrentAboveRating), "{codes:?}");
+    assert!(codes.contains(&Code::DividerCurrentLow), "{codes:?}");
+    let json = report::json::to_value(&a);
+    let listed: Vec<&str> = json["warnings"]
+        .as_array()
+        .expect("array")
+        .iter()
+        .map(|w| w["code"].as_str().expect("code is a string"))
+        .collect();
+    assert_eq!(
+        listed,
+        codes.iter().map(|c| c.as_str()).collect::<Vec<_>>(),
+        "JSON lists the same warnings in the same order"
+    );
 }

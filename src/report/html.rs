@@ -105,11 +105,11 @@ fn open_page(out: &mut String, a: &Analysis, title: &str) {
     let _ = writeln!(out, "<h1>{}</h1>", esc(&a.design.name));
 }
 
-/// A list of plain texts, escaped, with a class.
-fn list(out: &mut String, class: &str, items: &[String]) {
+/// The warnings' messages as a list, escaped, with a class.
+fn list(out: &mut String, class: &str, items: &[crate::warning::Warning]) {
     let _ = writeln!(out, "<ul class=\"{class}\">");
     for w in items {
-        let _ = writeln!(out, "<li>{}</li>", esc(w));
+        let _ = writeln!(out, "<li>{}</li>", esc(&w.message));
     }
     let _ = writeln!(out, "</ul>");
 }
@@ -150,8 +150,21 @@ pub fn render(a: &Analysis) -> String {
     table_html(&mut out, &tables::gain(a), true);
     let _ = writeln!(out, "<h2>DC linearity</h2>");
     table_html(&mut out, &tables::linearity(a), true);
-    for (title, text) in crate::report::extra_sections(a) {
-        let _ = writeln!(out, "<h2>{}</h2>\n<pre>{}</pre>", esc(&title), esc(&text));
+    for s in crate::report::extra_sections(a) {
+        match &s.blocks {
+            Some(b) => {
+                let _ = writeln!(out, "<h2>{}</h2>", esc(&s.title));
+                out.push_str(&crate::report::doc::blocks_html(b));
+            }
+            None => {
+                let _ = writeln!(
+                    out,
+                    "<h2>{}</h2>\n<pre>{}</pre>",
+                    esc(&s.title),
+                    esc(&s.text)
+                );
+            }
+        }
     }
     let _ = writeln!(out, "<h2>Figures</h2>");
     for fig in figures::all(a) {

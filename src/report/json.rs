@@ -13,7 +13,7 @@ use crate::safety::{self, CAUTIONS, CLOSING_CAUTION};
 use uom::si::electric_potential::volt;
 
 /// Version of the JSON layout; bumped when a key changes meaning or disappears.
-pub const SCHEMA_VERSION: u32 = 1;
+pub const SCHEMA_VERSION: u32 = 2;
 
 /// Build the JSON value of a report.
 pub fn to_value(a: &Analysis) -> Value {
@@ -140,7 +140,7 @@ pub fn to_value(a: &Analysis) -> Value {
             "voltage": crate::parts::VOLTAGE_MARGIN,
             "power": crate::parts::POWER_MARGIN,
         },
-        "warnings": a.warnings,
+        "warnings": warnings(&a.warnings),
         "assumptions": a.assumptions,
     });
     super::signal::add_json(&mut v, a);
@@ -148,9 +148,15 @@ pub fn to_value(a: &Analysis) -> Value {
     v
 }
 
-/// Render the JSON report as pretty text with a trailing newline.
-pub fn render(a: &Analysis) -> String {
-    let mut s = serde_json::to_string_pretty(&to_value(a)).unwrap_or_else(|_| "{}".to_string());
-    s.push('\n');
-    s
+/// Render the JSON report as pretty text with a trailing newline; refused when a non-finite
+/// number reached it (see [`super::finite`]).
+pub fn render(a: &Analysis) -> Result<String, super::finite::NonFinite> {
+    super::finite::to_text(&to_value(a))
+}
+
+/// The warnings as `[{code, message}]` (docs/json.md, "Warning codes").
+pub fn warnings(ws: &[crate::warning::Warning]) -> Value {
+    ws.iter()
+        .map(|w| json!({ "code": w.code.as_str(), "message": w.message }))
+        .collect()
 }

@@ -95,8 +95,14 @@ pub fn render(a: &Analysis) -> String {
     table_md(&mut out, &tables::gain(a), true);
     let _ = writeln!(out, "## DC linearity\n");
     table_md(&mut out, &tables::linearity(a), true);
-    for (title, text) in crate::report::extra_sections(a) {
-        let f = fence(&text);
+    for s in crate::report::extra_sections(a) {
+        let (title, text) = (&s.title, &s.text);
+        if let Some(b) = &s.blocks {
+            let _ = writeln!(out, "## {title}\n");
+            out.push_str(&crate::report::doc::blocks_markdown(b));
+            continue;
+        }
+        let f = fence(text);
         let _ = writeln!(out, "## {title}\n\n{f}text\n{}\n{f}\n", text.trim_end());
     }
     let _ = writeln!(out, "## Safety\n");

@@ -4,7 +4,9 @@
 //! pure functions of an [`Analysis`]; writing files is the caller's business.
 
 pub mod active;
+pub mod doc;
 pub mod figures;
+pub mod finite;
 pub mod html;
 pub mod json;
 pub mod markdown;
@@ -57,8 +59,8 @@ pub fn printable(s: &str) -> std::borrow::Cow<'_, str> {
     }
 }
 
-/// Output formats of `report`.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
+/// Output formats of a report.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum Format {
     /// Plain text for a terminal or a lab notebook.
     Text,
@@ -69,24 +71,46 @@ pub enum Format {
     /// Markdown for notebooks and issue trackers.
     Markdown,
     /// The parts list as CSV (one line per part, for a spreadsheet or an order).
-    #[value(name = "parts-csv")]
     PartsCsv,
 }
 
-/// Render an analysis in the chosen format.
-pub fn render(a: &Analysis, format: Format) -> String {
-    match format {
+impl Format {
+    /// Every format, in the order the command line lists them.
+    pub const ALL: [Format; 5] = [
+        Format::Text,
+        Format::Json,
+        Format::Html,
+        Format::Markdown,
+        Format::PartsCsv,
+    ];
+}
+
+/// Render an analysis in the chosen format; JSON fails rather than hide a non-finite figure.
+pub fn render(a: &Analysis, format: Format) -> Result<String, finite::NonFinite> {
+    Ok(match format {
         Format::Text => text::render(a),
-        Format::Json => json::render(a),
+        Format::Json => json::render(a)?,
         Format::Html => html::render(a),
         Format::Markdown => markdown::render(a),
         Format::PartsCsv => crate::parts::csv(a),
-    }
+    })
 }
 
-/// Sections that capabilities beyond the core add, as (title, plain text), in report order.
-/// The HTML and Markdown renderers show each one; a capability adds its section here.
-pub fn extra_sections(a: &Analysis) -> Vec<(String, String)> {
+/// A section beyond the core: its title, its plain text, and its document blocks once the
+/// section has moved onto the document model ([`doc`]); HTML and Markdown render the blocks
+/// where there are some, else the text.
+pub struct Section {
+    /// Heading.
+    pub title: String,
+    /// The section as plain text.
+    pub text: String,
+    /// The section as headings, paragraphs and tables, where it has them.
+    pub blocks: Option<Vec<doc::Block>>,
+}
+
+/// Sections that capabilities beyond the core add, in report order. The HTML and Markdown
+/// renderers show each one; a capability adds its section here.
+pub fn extra_sections(a: &Analysis) -> Vec<Section> {
     let mut v = vec![(supply::TITLE.to_string(), supply::body(a))];
     if let Some(b) = supply::model_body(a) {
         v.push((supply::MODEL_TITLE.to_string(), b));
@@ -107,6 +131,21 @@ pub fn extra_sections(a: &Analysis) -> Vec<(String, String)> {
     if let Some(t) = train::section_text(a) {
         v.push(("Pulse train".to_string(), t));
     }
-    v.push(("Parts list".to_string(), crate::parts::text(a)));
-    v
+    let mut sections: Vec<Section> = v
+        .into_iter()
+        .map(|(title, text)| {
+            let blocks = (title == supply::TITLE).then(|| supply::blocks(a));
+            Section {
+                title,
+                text,
+                blocks,
+            }
+        })
+        .collect();
+    sections.push(Section {
+        title: "Parts list".to_string(),
+        text: crate::parts::text(a),
+        blocks: Some(tables::parts_blocks(a)),
+    });
+    sections
 }

@@ -7,6 +7,7 @@ use std::fmt::Write;
 
 use serde_json::{Value, json};
 
+use crate::report::doc::{Block, Column, Doc, Table, scale, sig4};
 use crate::report::text::{caution_block, wrap};
 use crate::safety::{CAUTIONS, CLOSING_CAUTION};
 use crate::spread::{Percentiles, Spread};
@@ -251,11 +252,9 @@ pub fn to_value(s: &Spread) -> Value {
     })
 }
 
-/// The JSON text.
-pub fn json(s: &Spread) -> String {
-    let mut t = serde_json::to_string_pretty(&to_value(s)).unwrap_or_else(|_| "{}".to_string());
-    t.push('\n');
-    t
+/// The JSON text; refused when a non-finite number reached it (see [`super::finite`]).
+pub fn json(s: &Spread) -> Result<String, super::finite::NonFinite> {
+    super::finite::to_text(&to_value(s))
 }
 
 /// The figures: one histogram per output in [`Spread::histograms`], with the 1/50/99 %
@@ -304,4 +303,196 @@ pub fn figures(s: &Spread) -> Vec<crate::plot::Figure> {
             f
         })
         .collect()
+}
+
+/// The statistics as a document (for HTML and Markdown): what varies, the percentiles, the
+/// gaps, what moves the gain and the yield as tables; `figures` (file, title) linked when the
+/// figures were written.
+pub fn document(s: &Spread, figures: &[(String, String)]) -> Doc {
+    let a = &s.nominal;
+    let c = &s.config;
+    let mut b = vec![
+        Block::Paragraph(format!(
+            "Design file {}. {} samples (seed {}), {} failed to solve. Tolerances are read as {} σ of a normal distribution.",
+            a.design.source, c.samples, c.seed, s.failed, c.sigmas
+        )),
+        Block::Heading(2, "What varies".into()),
+        Block::List(vec![
+            format!(
+                "resistors ±{:.2} %, Zeners ±{:.1} %, capacitors ±{:.1} %",
+                s.resistor_tolerance * 100.0,
+                c.zener_tolerance * 100.0,
+                c.capacitor_tolerance * 100.0
+            ),
+            format!(
+                "supply setting ±{:.2} %, drift ±{:.3} % (uniform)",
+                s.supply_setting * 100.0,
+                s.supply_drift * 100.0
+            ),
+            format!(
+                "tube gain log-normal, σ(ln G) = {:.3} (×{:.2} at 1 σ); exponent k σ = {:.3}",
+                c.tube_gain_sigma,
+                c.tube_gain_sigma.exp(),
+                c.exponent_sigma
+            ),
+        ]),
+        Block::Heading(2, "Percentiles".into()),
+    ];
+    let mut rows = Vec::new();
+    let mut row = |label: String, p: &Percentiles, unit: &str| {
+        let (f, u) = if unit.is_empty() || unit == "%" {
+            (if unit == "%" { 0.01 } else { 1.0 }, unit.to_string())
+        } else {
+            scale(p.p50, unit)
+        };
+        rows.push(vec![
+            label,
+            u,
+            sig4(p.p1 / f),
+            sig4(p.p50 / f),
+            sig4(p.p99 / f),
+        ]);
+    };
+    row("small-signal gain".into(), &s.small_signal_gain, "");
+    row(
+        format!("gain at {}", eng(a.op.anode_amps(), "A")),
+        &s.gain,
+        "",
+    );
+    row("DC deviation there".into(), &s.deviation, "%");
+    row("base dissipation".into(), &s.dissipation, "W");
+    row("supply current".into(), &s.supply_current, "A");
+    row(
+        "supply that restores the target gain".into(),
+        &s.supply_for_target,
+        "V",
+    );
+    for (gap, p) in &s.droop {
+        row(format!("droop per pulse, gap {gap}"), p, "%");
+    }
+    if let Some((p, fr)) = &s.minus_1pct {
+        row(
+            format!("−1 % linearity limit ({:.0} % reach it)", fr * 100.0),
+            p,
+            "A",
+        );
+    }
+    if let Some((p, fr)) = &s.plus_1pct {
+        row(
+            format!("+1 % linearity limit ({:.0} % reach it)", fr * 100.0),
+            p,
+            "A",
+        );
+    }
+    b.push(Block::Table(Table {
+        columns: vec![
+            Column::new("figure", ""),
+            Column::new("unit", ""),
+            Column::new("1 %", ""),
+            Column::new("50 %", ""),
+            Column::new("99 %", ""),
+        ],
+        rows,
+    }));
+    let mut notes = vec![format!(
+        "Relative spread of the small-signal gain: {:.3} % (first-order propagation {:.3} %).",
+        s.gain_rel_sd * 100.0,
+        s.gain_rel_sd_first_order * 100.0
+    )];
+    if s.linearity_samples > 0 {
+        notes.push(format!(
+            "Linearity limits found on the first {} samples.",
+            s.linearity_samples
+        ));
+    }
+    b.push(Block::Paragraph(notes.join(" ")));
+    b.push(Block::Heading(2, "Gaps at the operating point".into()));
+    b.push(Block::Table(Table {
+        columns: vec![
+            Column::new("#", ""),
+            Column::new("gap", ""),
+            Column::new("1 %", "V"),
+            Column::new("50 %", "V"),
+            Column::new("99 %", "V"),
+            Column::new("limit", "V"),
+            Column::new("over the limit", "%"),
+            Column::new("99 % dissipation", "mW"),
+            Column::new("rating", "mW"),
+        ],
+        rows: s
+            .gaps
+            .iter()
+            .map(|g| {
+                vec![
+                    g.number.to_string(),
+                    g.label.clone(),
+                    format!("{:.1}", g.volts.p1),
+                    format!("{:.1}", g.volts.p50),
+                    format!("{:.1}", g.volts.p99),
+                    g.limit_volts.map_or("—".into(), |v| format!("{v:.0}")),
+                    format!("{:.2}", g.over_fraction * 100.0),
+                    sig4(g.watts.p99 * 1e3),
+                    g.power_rating.map_or("—".into(), |w| sig4(w * 1e3)),
+                ]
+            })
+            .collect(),
+    }));
+    b.push(Block::Heading(
+        2,
+        "What moves the gain (first order, σ of ln G; Monte Carlo correlation)".into(),
+    ));
+    b.push(Block::Table(Table {
+        columns: vec![
+            Column::new("parameter", ""),
+            Column::new("σ of ln G", "%"),
+            Column::new("share of the variance", "%"),
+            Column::new("correlation r", ""),
+        ],
+        rows: s
+            .influences
+            .iter()
+            .filter(|i| i.sigma > 0.0)
+            .map(|i| {
+                vec![
+                    i.parameter.clone(),
+                    format!("{:.3}", i.first_order * 100.0),
+                    format!("{:.1}", i.variance_share * 100.0),
+                    format!("{:+.3}", i.correlation),
+                ]
+            })
+            .collect(),
+    }));
+    if let Some(top) = s.influences.first().filter(|i| i.sigma > 0.0) {
+        b.push(Block::Paragraph(format!(
+            "The {} moves the gain most.",
+            top.parameter
+        )));
+    }
+    b.push(Block::Heading(2, "Yield".into()));
+    b.push(Block::Table(Table {
+        columns: vec![
+            Column::new("requirement", ""),
+            Column::new("samples meeting it", "%"),
+        ],
+        rows: s
+            .yields
+            .iter()
+            .map(|y| vec![y.requirement.clone(), format!("{:.2}", y.fraction * 100.0)])
+            .collect(),
+    }));
+    if !figures.is_empty() {
+        b.push(Block::Heading(2, "Figures".into()));
+        for (file, title) in figures {
+            b.push(Block::Figure {
+                file: file.clone(),
+                title: title.clone(),
+            });
+        }
+    }
+    Doc {
+        title: format!("dynode spread: {}", a.design.name),
+        cautions: crate::report::tables::cautions(a),
+        blocks: b,
+        closing: CLOSING_CAUTION.to_string(),
+    }
 }

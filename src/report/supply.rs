@@ -219,3 +219,65 @@ pub fn model_value(a: &Analysis) -> Value {
 pub fn to_value(a: &Analysis) -> Value {
     serde_json::to_value(stability::assess(&a.design, a.sensitivity)).unwrap_or(Value::Null)
 }
+
+/// The supply-quality section as document blocks (HTML and Markdown): what the supply does,
+/// as a table of supply changes against the gain changes they make, and what it must do.
+pub fn blocks(a: &Analysis) -> Vec<crate::report::doc::Block> {
+    use crate::report::doc::{Block, Column, Table};
+    let s = stability::assess(&a.design, a.sensitivity);
+    let mut rows = Vec::new();
+    if let (Some(r), Some(g)) = (s.ripple_volts, s.ripple_gain) {
+        rows.push(vec![
+            format!("ripple {} p-p", eng(r, "V")),
+            format!("{:.4}", r / s.supply_volts * 100.0),
+            format!("{:.4}", g * 100.0),
+            "peak to peak".to_string(),
+        ]);
+    }
+    if let (Some(d), Some(g)) = (s.drift, s.drift_gain) {
+        rows.push(vec![
+            "drift".to_string(),
+            format!("{:.4}", d * 100.0),
+            format!("{:.3}", g * 100.0),
+            String::new(),
+        ]);
+    }
+    if let (Some(d), Some(g)) = (s.setting_accuracy, s.setting_gain) {
+        rows.push(vec![
+            "setting accuracy".to_string(),
+            format!("{:.3}", d * 100.0),
+            format!("{:.2}", g * 100.0),
+            "an offset: calibrate it away".to_string(),
+        ]);
+    }
+    let mut b = Vec::new();
+    if !rows.is_empty() {
+        b.push(Block::Table(Table {
+            columns: vec![
+                Column::new("the supply's", ""),
+                Column::new("supply change", "%"),
+                Column::new("gain change", "%"),
+                Column::new("note", ""),
+            ],
+            rows,
+        }));
+    }
+    let mut need = format!(
+        "{} gain stability of {:.2} % needs the supply steady to {:.4} % ({}), ripple plus drift.",
+        if s.gain_stability_given {
+            "The stated"
+        } else {
+            "For example, a"
+        },
+        s.gain_stability * 100.0,
+        s.needed_supply_stability * 100.0,
+        eng(s.needed_supply_volts, "V")
+    );
+    match s.meets {
+        Some(true) => need.push_str(" This supply's ripple and drift meet it."),
+        Some(false) => need.push_str(" This supply's ripple and drift do NOT meet it."),
+        None => {}
+    }
+    b.push(Block::Paragraph(need));
+    b
+}

@@ -7,6 +7,7 @@ use std::fmt::Write;
 use serde_json::{Value, json};
 
 use crate::design::Design;
+use crate::report::doc::{Block, Column, Doc, Table, scale, sig4};
 use crate::report::text::wrap;
 use crate::safety::{CAUTIONS, CLOSING_CAUTION};
 use crate::sweep::Sweep;
@@ -158,12 +159,9 @@ pub fn to_value(design: &Design, s: &Sweep) -> Value {
     })
 }
 
-/// The JSON text.
-pub fn json(design: &Design, s: &Sweep) -> String {
-    let mut t =
-        serde_json::to_string_pretty(&to_value(design, s)).unwrap_or_else(|_| "{}".to_string());
-    t.push('\n');
-    t
+/// The JSON text; refused when a non-finite number reached it (see [`super::finite`]).
+pub fn json(design: &Design, s: &Sweep) -> Result<String, super::finite::NonFinite> {
+    super::finite::to_text(&to_value(design, s))
 }
 
 /// The figures: gain (small-signal and at the operating point) and the ±1 % linearity limit
@@ -315,4 +313,136 @@ pub fn figures(s: &Sweep) -> Vec<crate::plot::Figure> {
         }
     }
     vec![gain, lin]
+}
+
+/// The sweep as a document (for HTML and Markdown): what was varied, then one table row per
+/// point with the unit of each column in its header; `figures` (file, title) linked when the
+/// figures were written.
+pub fn document(design: &Design, s: &Sweep, figures: &[(String, String)]) -> Doc {
+    let mut b = Vec::new();
+    let mut varied = vec![format!("Design file {}.", design.source)];
+    for a in &s.axes {
+        varied.push(format!(
+            "Varying {} from {} to {} in {} {} steps.",
+            a.path,
+            show(a.values[0], a.kind),
+            show(*a.values.last().unwrap_or(&0.0), a.kind),
+            a.values.len(),
+            if a.log { "logarithmic" } else { "linear" }
+        ));
+    }
+    b.push(Block::Paragraph(varied.join(" ")));
+    let at = if s.axes.iter().any(|a| a.path == "operating.anode_current") {
+        "the swept average anode current".to_string()
+    } else {
+        format!(
+            "an average anode current of {}",
+            eng(
+                design
+                    .anode_current
+                    .get::<uom::si::electric_current::ampere>(),
+                "A"
+            )
+        )
+    };
+    b.push(Block::Paragraph(format!(
+        "At {at}. ±1 % limit: the anode current where the DC gain deviation first reaches 1 %. Pulse: peak at the load (negative-going); rise as displayed; S/N: peak over baseline noise; droop: Q/(C·V) per pulse on the last gap's capacitor."
+    )));
+    let pulse = s.rows.iter().any(|r| r.pulse_peak_volts.is_some());
+    if !pulse && design.signal.light.is_some() && s.rows.len() > crate::sweep::MAX_SIGNAL_POINTS {
+        b.push(Block::Paragraph(format!(
+            "The pulse, rise, S/N and droop columns are computed for sweeps of up to {} points.",
+            crate::sweep::MAX_SIGNAL_POINTS
+        )));
+    }
+    // Each column's prefix from its first figure, so that a column reads in one unit.
+    let first =
+        |f: &dyn Fn(&crate::sweep::Row) -> Option<f64>| s.rows.iter().find_map(f).unwrap_or(1.0);
+    let mut columns = Vec::new();
+    let mut axis_scales = Vec::new();
+    for a in &s.axes {
+        let name = a.path.rsplit('.').next().unwrap_or(&a.path).to_string();
+        let (f, u) = match a.kind {
+            Kind::Ratio => (1.0, String::new()),
+            Kind::Resistance => scale(a.values[0], "Ω"),
+            k => scale(a.values[0], k.symbol()),
+        };
+        columns.push(Column::new(name, u));
+        axis_scales.push(f);
+    }
+    let (fi, ui) = scale(first(&|r| r.divider_amps), "A");
+    let (fp, up) = scale(first(&|r| r.dissipation_watts), "W");
+    let (fl, ul) = scale(first(&|r| r.linearity_1pct_amps), "A");
+    let (fv, uv) = scale(first(&|r| r.pulse_peak_volts), "V");
+    let (ft, ut) = scale(first(&|r| r.rise_s), "s");
+    columns.extend([
+        Column::new("supply", "V"),
+        Column::new("gain G0", ""),
+        Column::new("gain at the operating point", ""),
+        Column::new("deviation there", "%"),
+        Column::new("divider", ui),
+        Column::new("d ln G / d ln V", ""),
+        Column::new("dissipation", up),
+        Column::new("±1 % limit", ul),
+    ]);
+    if pulse {
+        columns.extend([
+            Column::new("pulse", uv),
+            Column::new("rise", ut),
+            Column::new("S/N", ""),
+            Column::new("droop", "%"),
+        ]);
+    }
+    columns.push(Column::new("verdict", ""));
+    let o = |x: Option<f64>, f: &dyn Fn(f64) -> String| x.map_or("—".to_string(), f);
+    let rows = s
+        .rows
+        .iter()
+        .map(|r| {
+            let mut cells: Vec<String> = r
+                .values
+                .iter()
+                .zip(&axis_scales)
+                .map(|(x, f)| sig4(x / f))
+                .collect();
+            cells.extend([
+                sig4(r.supply_volts),
+                o(r.small_signal_gain, &|g| format!("{g:.3e}")),
+                o(r.gain, &|g| format!("{g:.3e}")),
+                o(r.deviation, &|d| format!("{:+.3}", d * 100.0)),
+                o(r.divider_amps, &|i| sig4(i / fi)),
+                o(r.sensitivity, &|x| format!("{x:.2}")),
+                o(r.dissipation_watts, &|x| sig4(x / fp)),
+                r.linearity_1pct_amps
+                    .map_or("not reached".to_string(), |i| sig4(i / fl)),
+            ]);
+            if pulse {
+                cells.extend([
+                    o(r.pulse_peak_volts, &|v| format!("−{}", sig4(v / fv))),
+                    o(r.rise_s, &|t| sig4(t / ft)),
+                    o(r.snr, &|x| format!("{x:.0}")),
+                    o(r.droop, &|x| format!("{:.3}", x * 100.0)),
+                ]);
+            }
+            cells.push(r.verdict.clone());
+            cells
+        })
+        .collect();
+    b.push(Block::Heading(2, "Points".into()));
+    b.push(Block::Table(Table { columns, rows }));
+    if !figures.is_empty() {
+        b.push(Block::Heading(2, "Figures".into()));
+        for (file, title) in figures {
+            b.push(Block::Figure {
+                file: file.clone(),
+                title: title.clone(),
+            });
+        }
+    }
+    Doc {
+        title: format!("dynode sweep: {}", design.name),
+        cautions: CAUTIONS.iter().map(|c| c.to_string()).collect(),
+        blocks: b,
+        closing: CLOSING_CAUTION.to_string(),
+    }
 }

@@ -276,3 +276,60 @@ pub fn cautions(a: &Analysis) -> Vec<String> {
         .chain(a.safety.specific.iter().cloned())
         .collect()
 }
+
+/// The parts list as document blocks (HTML and Markdown): one table row per line of identical
+/// parts, ratings to order beside what each part sees, the units in the column headers.
+pub fn parts_blocks(a: &Analysis) -> Vec<crate::report::doc::Block> {
+    use crate::report::doc::{Block, Column, Table, sig4};
+    let lines = crate::parts::list(a);
+    let o = |x: Option<f64>, scale: f64| x.map_or("—".to_string(), |v| sig4(v / scale));
+    let rows = lines
+        .iter()
+        .map(|l| {
+            vec![
+                crate::parts::designator_text(&l.designators),
+                l.count.to_string(),
+                l.kind.word().to_string(),
+                l.value_text(),
+                l.series.unwrap_or("none").to_string(),
+                format!(
+                    "{}{}",
+                    crate::units::show_number(l.tolerance * 100.0),
+                    if l.tolerance_assumed {
+                        " (assumed)"
+                    } else {
+                        ""
+                    }
+                ),
+                o(l.watts, 1e-3),
+                o(l.power_rating, 1e-3),
+                sig4(l.volts),
+                o(l.voltage_rating, 1.0),
+                l.notes.join(" "),
+            ]
+        })
+        .collect();
+    vec![
+        Block::Table(Table {
+            columns: vec![
+                Column::new("parts", ""),
+                Column::new("count", ""),
+                Column::new("kind", ""),
+                Column::new("value", ""),
+                Column::new("E-series", ""),
+                Column::new("tolerance", "%"),
+                Column::new("dissipation", "mW"),
+                Column::new("power rating", "mW"),
+                Column::new("highest voltage", "V"),
+                Column::new("voltage rating", "V"),
+                Column::new("notes", ""),
+            ],
+            rows,
+        }),
+        Block::Paragraph(format!(
+            "Ratings: at least {}× the highest voltage a part sees (with or without the tube's current) and {}× its dissipation (common practice, from memory); the design's own ratings are kept where they meet that.",
+            crate::parts::VOLTAGE_MARGIN,
+            crate::parts::POWER_MARGIN
+        )),
+    ]
+}

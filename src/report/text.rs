@@ -360,7 +360,7 @@ pub fn render(a: &Analysis) -> String {
     if a.warnings.is_empty() {
         let _ = writeln!(out, "  none");
     }
-    for w in &a.warnings {
+    for w in a.warnings.iter().map(|w| w.message.as_str()) {
         wrap(&mut out, "  * ", w);
     }
     if !a.assumptions.is_empty() {

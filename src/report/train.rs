@@ -518,7 +518,7 @@ pub fn render_text(a: &Analysis) -> String {
     if a.warnings.is_empty() {
         let _ = writeln!(out, "  none");
     }
-    for w in &a.warnings {
+    for w in a.warnings.iter().map(|w| w.message.as_str()) {
         wrap(&mut out, "  * ", w);
     }
     let _ = writeln!(out);
@@ -527,7 +527,7 @@ pub fn render_text(a: &Analysis) -> String {
 }
 
 /// The stand-alone JSON of `dynode train`.
-pub fn render_json(a: &Analysis) -> String {
+pub fn render_json(a: &Analysis) -> Result<String, crate::report::finite::NonFinite> {
     let full = crate::report::json::to_value(a);
     let v = json!({
         "schema_version": full["schema_version"],
@@ -536,20 +536,21 @@ pub fn render_json(a: &Analysis) -> String {
         "cautions": full["cautions"],
         "closing_caution": CLOSING_CAUTION,
         "train": json(a),
-        "warnings": a.warnings,
+        "warnings": crate::report::json::warnings(&a.warnings),
     });
-    let mut s = serde_json::to_string_pretty(&v).unwrap_or_else(|_| "{}".to_string());
-    s.push('\n');
-    s
+    crate::report::finite::to_text(&v)
 }
 
 /// The stand-alone report of `dynode train` in any format: the train section only (with the
 /// cautions and warnings), never the full report.
-pub fn render(a: &Analysis, format: crate::report::Format) -> String {
+pub fn render(
+    a: &Analysis,
+    format: crate::report::Format,
+) -> Result<String, crate::report::finite::NonFinite> {
     use crate::report::Format;
-    match format {
+    Ok(match format {
         Format::Text => render_text(a),
-        Format::Json => render_json(a),
+        Format::Json => render_json(a)?,
         Format::PartsCsv => crate::parts::csv(a),
         Format::Html | Format::Markdown => {
             let text = section_text(a).unwrap_or_else(|| {
@@ -561,5 +562,5 @@ pub fn render(a: &Analysis, format: crate::report::Format) -> String {
                 crate::report::markdown::section_page(a, "train", "Pulse train", &text)
             }
         }
-    }
+    })
 }

@@ -1,0 +1,349 @@
+//! The report as a document: headings, paragraphs, lists, tables with units in their column
+//! headers, and references to figure files, built once and rendered to Markdown or HTML by two
+//! small renderers here.
+//!
+//! *Invariant:* a [`Doc`] carries the high-voltage cautions and the closing caution as fields,
+//! not as blocks, so no renderer can leave them out: every rendering opens with the cautions
+//! and closes with the short one. Text is escaped by the renderer (HTML entities; Markdown
+//! table pipes and line breaks), never by the builder. No IO.
+
+use std::fmt::Write;
+
+/// A column of a table: its label and the unit its cells are in (empty for a plain number or
+/// a word).
+#[derive(Debug, Clone, PartialEq)]
+pub struct Column {
+    /// What the column holds.
+    pub label: String,
+    /// The unit of every cell, shown in the header as `label (unit)`.
+    pub unit: String,
+}
+
+impl Column {
+    /// A column of figures in `unit`.
+    pub fn new(label: impl Into<String>, unit: impl Into<String>) -> Column {
+        Column {
+            label: label.into(),
+            unit: unit.into(),
+        }
+    }
+
+    /// The header as printed.
+    pub fn header(&self) -> String {
+        if self.unit.is_empty() {
+            self.label.clone()
+        } else {
+            format!("{} ({})", self.label, self.unit)
+        }
+    }
+}
+
+/// A table with units in its column headers.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Table {
+    /// The columns.
+    pub columns: Vec<Column>,
+    /// Rows of cells, one per column; numbers without their unit (it is in the header).
+    pub rows: Vec<Vec<String>>,
+}
+
+/// One piece of a document, in reading order.
+#[derive(Debug, Clone, PartialEq)]
+pub enum Block {
+    /// A section heading (level 2) or a sub-heading (level 3).
+    Heading(u8, String),
+    /// A paragraph of running text.
+    Paragraph(String),
+    /// A bulleted list.
+    List(Vec<String>),
+    /// A table.
+    Table(Table),
+    /// A figure written beside the report as `file` (`name.svg`), with its title.
+    Figure {
+        /// The figure's file name, relative to where the report is read from.
+        file: String,
+        /// Its title.
+        title: String,
+    },
+}
+
+/// A whole document.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Doc {
+    /// The title (the command and the design's name).
+    pub title: String,
+    /// The cautions shown first.
+    pub cautions: Vec<String>,
+    /// The body.
+    pub blocks: Vec<Block>,
+    /// The caution shown last.
+    pub closing: String,
+}
+
+/// A Markdown table cell or line: pipes escaped, line breaks and control characters made spaces.
+fn md(s: &str) -> String {
+    s.chars()
+        .map(|c| if c.is_control() { ' ' } else { c })
+        .collect::<String>()
+        .replace('|', "\\|")
+}
+
+/// HTML text with the five special characters escaped.
+fn esc(s: &str) -> String {
+    let mut out = String::with_capacity(s.len());
+    for c in s.chars() {
+        match c {
+            '&' => out.push_str("&amp;"),
+            '<' => out.push_str("&lt;"),
+            '>' => out.push_str("&gt;"),
+            '"' => out.push_str("&quot;"),
+            '\'' => out.push_str("&#39;"),
+            c => out.push(c),
+        }
+    }
+    out
+}
+
+/// The document as Markdown: a quoted caution block first and last, real tables, figures as
+/// links to their files.
+pub fn to_markdown(d: &Doc) -> String {
+    let mut out = String::new();
+    let _ = writeln!(out, "> **HIGH-VOLTAGE CAUTION**\n>");
+    for c in &d.cautions {
+        let _ = writeln!(out, "> - {}", md(c));
+    }
+    let _ = writeln!(out, "\n# {}\n", md(&d.title));
+    out.push_str(&blocks_markdown(&d.blocks));
+    let _ = writeln!(out, "> **{}**", md(&d.closing));
+    out
+}
+
+/// Blocks as Markdown, for a document or for one section of a larger report.
+pub fn blocks_markdown(blocks: &[Block]) -> String {
+    let mut out = String::new();
+    for b in blocks {
+        match b {
+            Block::Heading(level, t) => {
+                let _ = writeln!(out, "{} {}\n", "#".repeat(usize::from(*level)), md(t));
+            }
+            Block::Paragraph(t) => {
+                let _ = writeln!(out, "{}\n", md(t));
+            }
+            Block::List(items) => {
+                for i in items {
+                    let _ = writeln!(out, "- {}", md(i));
+                }
+                let _ = writeln!(out);
+            }
+            Block::Table(t) => {
+                let head: Vec<String> = t.columns.iter().map(|c| md(&c.header())).collect();
+                let _ = writeln!(out, "| {} |", head.join(" | "));
+                let _ = writeln!(out, "|{}|", vec!["---"; head.len()].join("|"));
+                for r in &t.rows {
+                    let cells: Vec<String> = r.iter().map(|c| md(c)).collect();
+                    let _ = writeln!(out, "| {} |", cells.join(" | "));
+                }
+                let _ = writeln!(out);
+            }
+            Block::Figure { file, title } => {
+                let _ = writeln!(out, "![{}]({})\n", md(title), file.replace(' ', "%20"));
+            }
+        }
+    }
+    out
+}
+
+/// The document as one self-contained HTML page (no scripts): cautions first and last, real
+/// tables, figures as images of their files.
+pub fn to_html(d: &Doc) -> String {
+    let mut out = String::new();
+    let _ = writeln!(
+        out,
+        "<!DOCTYPE html>\n<html lang=\"en\">\n<head>\n<meta charset=\"utf-8\">\n<title>{}</title>\n<style>{STYLE}</style>\n</head>\n<body>",
+        esc(&d.title)
+    );
+    let _ = writeln!(
+        out,
+        "<section class=\"caution\" id=\"caution-first\"><h2>High-voltage caution</h2><ul>"
+    );
+    for c in &d.cautions {
+        let _ = writeln!(out, "<li>{}</li>", esc(c));
+    }
+    let _ = writeln!(out, "</ul></section>\n<h1>{}</h1>", esc(&d.title));
+    out.push_str(&blocks_html(&d.blocks));
+    let _ = writeln!(
+        out,
+        "<section class=\"caution\" id=\"caution-last\"><p><strong>{}</strong></p></section>\n</body>\n</html>",
+        esc(&d.closing)
+    );
+    out
+}
+
+/// Blocks as HTML, for a document or for one section of a larger page.
+pub fn blocks_html(blocks: &[Block]) -> String {
+    let mut out = String::new();
+    for b in blocks {
+        match b {
+            Block::Heading(level, t) => {
+                let l = (*level).clamp(2, 4);
+                let _ = writeln!(out, "<h{l}>{}</h{l}>", esc(t));
+            }
+            Block::Paragraph(t) => {
+                let _ = writeln!(out, "<p>{}</p>", esc(t));
+            }
+            Block::List(items) => {
+                let _ = writeln!(out, "<ul>");
+                for i in items {
+                    let _ = writeln!(out, "<li>{}</li>", esc(i));
+                }
+                let _ = writeln!(out, "</ul>");
+            }
+            Block::Table(t) => {
+                let _ = write!(out, "<table><thead><tr>");
+                for c in &t.columns {
+                    let _ = write!(out, "<th>{}</th>", esc(&c.header()));
+                }
+                let _ = write!(out, "</tr></thead><tbody>");
+                for r in &t.rows {
+                    let _ = write!(out, "<tr>");
+                    for (i, c) in r.iter().enumerate() {
+                        let numeric = i > 0
+                            && c.chars().next().is_some_and(|ch| {
+                                ch.is_ascii_digit() || matches!(ch, '-' | '+' | '−')
+                            });
+                        let _ = write!(
+                            out,
+                            "<td{}>{}</td>",
+                            if numeric { " class=\"num\"" } else { "" },
+                            esc(c)
+                        );
+                    }
+                    let _ = write!(out, "</tr>");
+                }
+                let _ = writeln!(out, "</tbody></table>");
+            }
+            Block::Figure { file, title } => {
+                let _ = writeln!(
+                    out,
+                    "<figure><img src=\"{}\" alt=\"{}\"><figcaption>{}</figcaption></figure>",
+                    esc(file),
+                    esc(title),
+                    esc(title)
+                );
+            }
+        }
+    }
+    out
+}
+
+/// The page's style: readable on screen and in print, cautions boxed in red.
+const STYLE: &str = "body{font-family:sans-serif;max-width:70em;margin:1em auto;padding:0 1em;color:#111;line-height:1.4}\
+.caution{border:3px solid #b00;background:#fff4f4;padding:.3em 1em;margin:1em 0}\
+.caution h2{color:#b00;margin:.3em 0}\
+table{border-collapse:collapse;margin:.5em 0 1em}\
+th,td{border:1px solid #bbb;padding:.2em .5em;text-align:left;vertical-align:top}\
+th{background:#eee}\
+td.num{text-align:right;font-variant-numeric:tabular-nums;white-space:nowrap}\
+figure{margin:1em 0}figure img{max-width:100%}\
+@media print{.caution{break-inside:avoid}table{break-inside:auto}tr{break-inside:avoid}}";
+
+/// A number to four significant figures, plain (no unit): the unit is in the column header.
+pub fn sig4(x: f64) -> String {
+    if !x.is_finite() {
+        return "—".to_string();
+    }
+    if x == 0.0 {
+        return "0".to_string();
+    }
+    let e = x.abs().log10().floor();
+    if (-3.0..5.0).contains(&e) {
+        let decimals = (3.0 - e).max(0.0) as usize;
+        let t = format!("{x:.decimals$}");
+        if t.contains('.') {
+            t.trim_end_matches('0').trim_end_matches('.').to_string()
+        } else {
+            t
+        }
+    } else {
+        format!("{x:.3e}")
+    }
+}
+
+/// The SI prefix that shows `typical` (in `unit`) between 1 and 1000: the factor to divide by
+/// and the prefixed unit, e.g. `(1e-3, "mW")`.
+pub fn scale(typical: f64, unit: &str) -> (f64, String) {
+    const PREFIXES: [(f64, &str); 8] = [
+        (1e9, "G"),
+        (1e6, "M"),
+        (1e3, "k"),
+        (1.0, ""),
+        (1e-3, "m"),
+        (1e-6, "µ"),
+        (1e-9, "n"),
+        (1e-12, "p"),
+    ];
+    let t = typical.abs();
+    for (f, p) in PREFIXES {
+        if t >= f {
+            return (f, format!("{p}{unit}"));
+        }
+    }
+    (1e-12, format!("p{unit}"))
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn sample() -> Doc {
+        Doc {
+            title: "t <1>".into(),
+            cautions: vec!["lethal | voltages".into()],
+            blocks: vec![
+                Block::Heading(2, "Gain".into()),
+                Block::Table(Table {
+                    columns: vec![Column::new("supply", "V"), Column::new("verdict", "")],
+                    rows: vec![vec!["1000".into(), "a|b".into()]],
+                }),
+                Block::Figure {
+                    file: "spread-gain.svg".into(),
+                    title: "Gain".into(),
+                },
+            ],
+            closing: "Switch off first.".into(),
+        }
+    }
+
+    #[test]
+    fn markdown_has_a_real_table_with_units_and_the_cautions_first_and_last() {
+        let m = to_markdown(&sample());
+        assert!(m.starts_with("> **HIGH-VOLTAGE CAUTION**"));
+        assert!(m.trim_end().ends_with("> **Switch off first.**"));
+        assert!(m.contains("| supply (V) | verdict |\n|---|---|\n| 1000 | a\\|b |"));
+        assert!(m.contains("> - lethal \\| voltages"));
+        assert!(m.contains("![Gain](spread-gain.svg)"));
+    }
+
+    #[test]
+    fn html_escapes_and_has_no_preformatted_text() {
+        let h = to_html(&sample());
+        assert!(h.contains("<th>supply (V)</th>"));
+        assert!(h.contains("<h1>t &lt;1&gt;</h1>"));
+        assert!(!h.contains("<pre>"));
+        let first = h.find("caution-first").expect("first caution");
+        let last = h.find("caution-last").expect("last caution");
+        assert!(first < h.find("<table>").expect("table") && last > h.find("<table>").unwrap());
+    }
+
+    #[test]
+    fn numbers_keep_four_figures_and_prefixes_land_between_1_and_1000() {
+        assert_eq!(sig4(193.04), "193");
+        assert_eq!(sig4(8.7), "8.7");
+        assert_eq!(sig4(0.012346), "0.01235");
+        assert_eq!(sig4(2.672e6), "2.672e6");
+        assert_eq!(sig4(f64::NAN), "—");
+        assert_eq!(scale(2.0e-6, "A"), (1e-6, "µA".to_string()));
+        assert_eq!(scale(1100.0, "V"), (1e3, "kV".to_string()));
+        assert_eq!(scale(0.5, "W"), (1e-3, "mW".to_string()));
+    }
+}
