@@ -1337,8 +1337,11 @@ pub fn budget(design: &Design, chain: &Chain) -> Option<SignalBudget> {
         }
     }
     let average = l.rate.map(|rate| charge * rate);
+    // With a train block these are the train's pulses: the train section judges their
+    // average as solved, so the same figure is not judged twice.
     if let Some(avg) = average
         && avg > chain.max_anode_amps
+        && design.train.is_none()
     {
         warnings.push(warning!(
             Code::LightAverageAboveRating,
