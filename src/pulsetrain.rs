@@ -342,12 +342,14 @@ pub struct TrainAnalysis {
 }
 
 /// What to compute.
-#[derive(Debug, Clone, Copy, PartialEq, Default)]
+#[derive(Debug, Clone, Copy, Default)]
 pub struct TrainOptions {
     /// Override the pulse count.
     pub pulses: Option<usize>,
     /// Only the train itself: no pulse-linearity scan, sizing or taper comparison.
     pub train_only: bool,
+    /// Where the main run counts the pulses it has reached (a progress display).
+    pub progress: Option<&'static std::sync::atomic::AtomicUsize>,
 }
 
 /// Label of a decoupling capacitor and its decoupled gap's element index (0-based).
@@ -705,6 +707,7 @@ pub fn analyse(
         &RunOptions {
             record: true,
             recovery_band: Some(RECOVERY_BAND),
+            progress: opts.progress,
             ..RunOptions::default()
         },
     )?;

@@ -398,10 +398,21 @@ pub fn train(args: TrainArgs) -> Result<Exit, CliError> {
     }
     check_pulses(pulses)?;
     check_output(&out, &[design.as_path()])?;
-    let opts = crate::pulsetrain::TrainOptions { pulses, train_only };
+    let count = match (pulses, &d.train) {
+        (Some(n), _) => n,
+        (None, Some(t)) => t.pattern.arrivals_len(),
+        (None, None) => 0,
+    };
     let mut a = analysis::analyse_with(&d, None)?;
-    let train = crate::pulsetrain::analyse(&d, &a.network.tube, &opts)
-        .map_err(|e| CliError::solve(format!("{}: {e}", d.source)))?;
+    let train = with_pulse_progress(count, out.quiet, |progress| {
+        let opts = crate::pulsetrain::TrainOptions {
+            pulses,
+            train_only,
+            progress,
+        };
+        crate::pulsetrain::analyse(&d, &a.network.tube, &opts)
+    })
+    .map_err(|e| CliError::solve(format!("{}: {e}", d.source)))?;
     if let Some(t) = &train {
         a.warnings.extend(t.warnings.iter().cloned());
     }
@@ -410,6 +421,44 @@ pub fn train(args: TrainArgs) -> Result<Exit, CliError> {
     emit(&text, &out, &[&design])?;
     Ok(Exit::Ok)
 }
+
+/// Run `work` with a progress bar of the pulses reached when the train is long (at least
+/// [`PROGRESS_PULSES`]) and standard error is a terminal; `work` gets the counter to pass on.
+fn with_pulse_progress<T>(
+    count: usize,
+    quiet: bool,
+    work: impl FnOnce(Option<&'static std::sync::atomic::AtomicUsize>) -> T,
+) -> T {
+    use indicatif::{ProgressBar, ProgressStyle};
+    use std::io::IsTerminal;
+    use std::sync::atomic::{AtomicBool, AtomicUsize, Ordering};
+    static REACHED: AtomicUsize = AtomicUsize::new(0);
+    if quiet || count < PROGRESS_PULSES || !std::io::stderr().is_terminal() {
+        return work(None);
+    }
+    REACHED.store(0, Ordering::Relaxed);
+    let done = AtomicBool::new(false);
+    let bar = ProgressBar::new(count as u64);
+    if let Ok(style) = ProgressStyle::with_template("{bar:40} {pos}/{len} pulses ({eta} left)") {
+        bar.set_style(style);
+    }
+    let out = std::thread::scope(|scope| {
+        scope.spawn(|| {
+            while !done.load(Ordering::Relaxed) {
+                bar.set_position(REACHED.load(Ordering::Relaxed) as u64);
+                std::thread::sleep(std::time::Duration::from_millis(100));
+            }
+        });
+        let out = work(Some(&REACHED));
+        done.store(true, Ordering::Relaxed);
+        out
+    });
+    bar.finish_and_clear();
+    out
+}
+
+/// Trains from this many pulses show progress on a terminal.
+const PROGRESS_PULSES: usize = 20_000;
 
 /// `dynode netlist`.
 pub fn netlist(args: NetlistArgs) -> Result<Exit, CliError> {

@@ -154,7 +154,7 @@ pub struct Sample {
 }
 
 /// What the integrator is asked for.
-#[derive(Debug, Clone, Copy, PartialEq)]
+#[derive(Debug, Clone, Copy)]
 pub struct RunOptions {
     /// Tolerance on the tube-gap voltages, relative to each gap's voltage before the train.
     pub rtol: f64,
@@ -180,6 +180,8 @@ pub struct RunOptions {
     /// linearisation of what it does to the base, checked against full solves; see
     /// `map.rs`) instead of in full; `false` solves every pulse in full.
     pub pulse_map: bool,
+    /// Where to count the pulses reached, for a progress display.
+    pub progress: Option<&'static std::sync::atomic::AtomicUsize>,
 }
 
 impl Default for RunOptions {
@@ -194,6 +196,7 @@ impl Default for RunOptions {
             stop_at: None,
             exact_quiet: true,
             pulse_map: true,
+            progress: None,
         }
     }
 }
@@ -830,6 +833,10 @@ impl Base {
         // The step budget grows with the train: a few hundred steps resolve one pulse.
         let budget = opts.max_steps.max(400 * arrivals.len() + 100_000);
         while time < t_stop * (1.0 - 1e-15) {
+            if let Some(p) = opts.progress {
+                let reached = arrivals.partition_point(|a| *a <= time);
+                p.store(reached, std::sync::atomic::Ordering::Relaxed);
+            }
             if accepted + rejected > budget {
                 return Err(TransientError::Failed {
                     time,
