@@ -6,7 +6,6 @@
 //! (definition of capacitance) with the voltages of the textbook multiplier.
 
 use std::fmt::Write as _;
-use std::process::Command;
 
 use dynode::analysis;
 use dynode::design::{self, CapStyle, Design, Element, Polarity};
@@ -14,7 +13,7 @@ use uom::si::capacitance::farad;
 use uom::si::electric_potential::volt;
 use uom::si::electrical_resistance::ohm;
 
-use crate::common::{crate_path, ngspice_available, rel, temp_dir};
+use crate::common::{crate_path, ngspice_available, ngspice_batch, rel, temp_dir};
 
 /// The switched-off base, still connected to the supply, as a SPICE netlist with initial
 /// conditions from the operating point (cathode-negative designs only: the return is node 0).
@@ -139,17 +138,8 @@ fn switched_off(
 /// Run ngspice on the netlist with a transient to `stop` seconds in steps of at most `step`,
 /// and return the time the last watched capacitor falls to 60 V.
 fn ngspice_time(text: &str, watch: usize, stop: f64, step: f64, name: &str) -> f64 {
-    let dir = temp_dir(name);
-    let path = dir.join("bleed.cir");
     let text = format!("{text}.tran {step} {stop} 0 {step} uic\n.end\n");
-    std::fs::write(&path, &text).unwrap();
-    let out = Command::new("ngspice")
-        .arg("-b")
-        .arg(&path)
-        .output()
-        .unwrap();
-    let stdout = String::from_utf8_lossy(&out.stdout);
-    assert!(out.status.success(), "ngspice failed:\n{stdout}");
+    let stdout = ngspice_batch(&text, &temp_dir(name), "bleed");
     let times: Vec<f64> = stdout
         .lines()
         .filter_map(|l| {

@@ -3,8 +3,6 @@
 //! textbook Cockcroft–Walton formulas (high-voltage engineering texts, from memory; values for
 //! I = 1 mA, f = 30 kHz, C = 10 nF in the project's reference list).
 
-use std::process::Command;
-
 use dynode::multiplier::{self, IDEAL, Multiplier, RECTIFIER};
 use dynode::{analysis, design, netlist};
 use uom::si::capacitance::nanofarad;
@@ -13,7 +11,7 @@ use uom::si::electrical_resistance::ohm;
 use uom::si::f64::{Capacitance, ElectricPotential, ElectricalResistance, Frequency};
 use uom::si::frequency::kilohertz;
 
-use crate::common::{crate_path, ngspice_available, rel, temp_dir};
+use crate::common::{crate_path, ngspice_available, ngspice_batch, rel, temp_dir};
 
 fn mult(n: usize, diode: multiplier::Diode, filter: bool) -> Multiplier {
     Multiplier {
@@ -71,16 +69,7 @@ fn a_doubler_droops_as_the_textbook_says() {
 
 /// Run a multiplier netlist in ngspice and read its `meas` results by name.
 fn run(text: &str, dir: &std::path::Path, name: &str) -> std::collections::HashMap<String, f64> {
-    let path = dir.join(format!("{name}.cir"));
-    std::fs::write(&path, text).unwrap();
-    let out = Command::new("ngspice")
-        .arg("-b")
-        .arg(&path)
-        .output()
-        .unwrap();
-    let stdout = String::from_utf8_lossy(&out.stdout);
-    assert!(out.status.success(), "ngspice failed:\n{stdout}");
-    stdout
+    ngspice_batch(text, dir, name)
         .lines()
         .filter_map(|l| {
             let (k, v) = l.split_once('=')?;
@@ -168,7 +157,7 @@ fn the_demo_supply_matches_ngspice() {
         .expect("the demo describes its supply");
     let m = d.multiplier.unwrap();
     // The netlist as a user gets it: `dynode netlist --supply` (4000 periods).
-    let out = Command::new(env!("CARGO_BIN_EXE_dynode"))
+    let out = std::process::Command::new(env!("CARGO_BIN_EXE_dynode"))
         .args(["netlist", "--supply", "-q"])
         .arg(crate_path("designs/multiplier-fed.ron"))
         .output()
