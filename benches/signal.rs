@@ -1,7 +1,8 @@
 //! Speed of the signal budget: a 40-point load sweep with a computed waveform at every load
 //! (a benchmark, not a test). Target: under 50 ms.
 use criterion::{Criterion, criterion_group, criterion_main};
-use dynode::{analysis, design, signal};
+use dynode::budget::signal;
+use dynode::{analysis, design};
 
 fn bench(c: &mut Criterion) {
     for demo in ["rooftop-paddle", "laser-timing", "photon-counter-positive"] {

@@ -1,7 +1,8 @@
 //! Speed of sizing, tolerance statistics and sweeps (a benchmark, not a test).
 //! Targets (issue): 100 000 spread samples < 2 s on 2 cores; sizing < 0.5 s; 100-point sweep < 0.1 s.
 use criterion::{Criterion, criterion_group, criterion_main};
-use dynode::{design, sizing, spread, sweep};
+use dynode::design;
+use dynode::study::{sizing, spread, sweep};
 
 fn demo() -> design::Design {
     design::load(std::path::Path::new(concat!(

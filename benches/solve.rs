@@ -1,9 +1,9 @@
 //! Speed of the DC solve and the linearity curve (a benchmark, not a test).
 use criterion::{Criterion, criterion_group, criterion_main};
 use dynode::design;
-use dynode::linearity;
-use dynode::network::{Network, Workspace};
-use dynode::tube::TubeModel;
+use dynode::model::tube::TubeModel;
+use dynode::solve::linearity;
+use dynode::solve::network::{Network, Workspace};
 
 fn chain(stages: usize) -> Network {
     let gaps = vec!["R(\"470k\")"; stages + 1].join(", ");

@@ -4,11 +4,11 @@
 //! (solve) → [`Analysis`] (gap table, linearity, safety, warnings) → [`crate::report`]. This module
 //! does no IO and knows nothing of output formats; warnings are returned beside the results.
 
+use crate::budget::safety::{self, Safety};
 use crate::design::{CapStyle, Design, Element};
-use crate::linearity::{self, Linearity};
-use crate::network::{Network, OperatingPoint, SolveError, Workspace};
-use crate::safety::{self, Safety};
-use crate::tube::{TubeError, TubeModel};
+use crate::model::tube::{TubeError, TubeModel};
+use crate::solve::linearity::{self, Linearity};
+use crate::solve::network::{Network, OperatingPoint, SolveError, Workspace};
 use crate::units::format_eng;
 use crate::warning::{Code, Warning, warning};
 use uom::si::electric_current::ampere;
@@ -120,14 +120,14 @@ pub struct Analysis {
     /// from 60 % of the supply to the tube's maximum.
     pub gain_curve: Vec<(f64, f64)>,
     /// The pulse-train figures, when the design gives a `train` block.
-    pub train: Option<crate::pulsetrain::TrainAnalysis>,
+    pub train: Option<crate::budget::pulsetrain::TrainAnalysis>,
     /// The signal budget (light → pulse at the load), when the design has a light block.
-    pub signal: Option<crate::signal::SignalBudget>,
+    pub signal: Option<crate::budget::signal::SignalBudget>,
     /// The supply as built (a voltage multiplier under the base's load), when the design
     /// describes one and its steady state was found.
-    pub supply_model: Option<crate::multiplier::SupplyModel>,
+    pub supply_model: Option<crate::solve::multiplier::SupplyModel>,
     /// Transistor-held stages against the passive divider, when the design has followers.
-    pub active_stages: Option<crate::active::ActiveStages>,
+    pub active_stages: Option<crate::budget::active::ActiveStages>,
 }
 
 impl Analysis {
@@ -160,10 +160,10 @@ pub struct PulseStream {
 /// else the light block; `None` without a rate. A train size that contradicts the light's
 /// photoelectrons by more than 10 % is refused where the train's size is written.
 fn pulse_stream(design: &Design, gain: f64) -> Result<Option<PulseStream>, AnalysisError> {
-    use crate::cathode::ELEMENTARY_CHARGE;
+    use crate::model::cathode::ELEMENTARY_CHARGE;
     let light = design.signal.light.as_ref();
     let light_charge = light.map(|l| {
-        crate::light::convert(
+        crate::model::light::convert(
             &l.spectrum,
             l.photons,
             l.coupling,
@@ -174,7 +174,7 @@ fn pulse_stream(design: &Design, gain: f64) -> Result<Option<PulseStream>, Analy
             * ELEMENTARY_CHARGE
     });
     if let Some(t) = &design.train {
-        let qk = crate::pulsetrain::cathode_charge(t.size, &t.shape, gain);
+        let qk = crate::budget::pulsetrain::cathode_charge(t.size, &t.shape, gain);
         if let Some(ql) = light_charge.filter(|q| *q > 0.0)
             && (qk / ql - 1.0).abs() > 0.10
         {
@@ -210,7 +210,7 @@ fn pulse_stream(design: &Design, gain: f64) -> Result<Option<PulseStream>, Analy
 /// What a builder should hear about the supply as built.
 fn supply_model_warnings(
     design: &Design,
-    sm: &crate::multiplier::SupplyModel,
+    sm: &crate::solve::multiplier::SupplyModel,
     warnings: &mut Vec<Warning>,
 ) {
     let vs = design.supply_magnitude();
@@ -253,13 +253,16 @@ pub fn rated_voltage(power: f64, resistance: f64, working: f64) -> f64 {
 
 /// Run the whole analysis.
 pub fn analyse(design: &Design) -> Result<Analysis, AnalysisError> {
-    analyse_with(design, Some(crate::pulsetrain::TrainOptions::default()))
+    analyse_with(
+        design,
+        Some(crate::budget::pulsetrain::TrainOptions::default()),
+    )
 }
 
 /// Run the analysis; `train` = None skips the pulse-train solve (e.g. for a netlist).
 pub fn analyse_with(
     design: &Design,
-    train: Option<crate::pulsetrain::TrainOptions>,
+    train: Option<crate::budget::pulsetrain::TrainOptions>,
 ) -> Result<Analysis, AnalysisError> {
     let file = design.source.clone();
     let tube = TubeModel::from_spec(&design.tube).map_err(|source| AnalysisError::Tube {
@@ -525,7 +528,7 @@ pub fn analyse_with(
         ));
     }
     if t.perveance_assumed {
-        let (i, d, v) = crate::tube::ASSUMED_PULSE_LINEARITY;
+        let (i, d, v) = crate::model::tube::ASSUMED_PULSE_LINEARITY;
         assumptions.push(format!(
             "pulse linearity {} at {:.0} % with {:.0} V on the last gap (from memory; give tube.pulse_linearity)",
             format_eng(i, "A"),
@@ -537,7 +540,7 @@ pub fn analyse_with(
         Some(st) if design.operating_assumed => assumptions.push(format!(
             "operating point at the pulses' average: {} of cathode current ({:.0} photoelectrons a pulse at {} on average, from {}); the anode current there is {} (give operating.anode_current to choose another)",
             format_eng(st.rate * st.cathode_charge, "A"),
-            st.cathode_charge / crate::cathode::ELEMENTARY_CHARGE,
+            st.cathode_charge / crate::model::cathode::ELEMENTARY_CHARGE,
             format_eng(st.rate, "Hz"),
             st.from,
             format_eng(op.anode_amps(), "A")
@@ -561,9 +564,9 @@ pub fn analyse_with(
         })
         .filter(|(_, g)| g.is_finite() && *g > 0.0)
         .collect();
-    let signal = crate::signal::budget(
+    let signal = crate::budget::signal::budget(
         design,
-        &crate::signal::Chain {
+        &crate::budget::signal::Chain {
             gain: op.gain(),
             collection: t.collection,
             excess_noise: t.excess_noise_factor(&tube_gaps),
@@ -579,7 +582,7 @@ pub fn analyse_with(
 
     let train = match train {
         None => None,
-        Some(opts) => match crate::pulsetrain::analyse(design, &network.tube, &opts) {
+        Some(opts) => match crate::budget::pulsetrain::analyse(design, &network.tube, &opts) {
             Ok(t) => t,
             Err(e) => {
                 warnings.push(warning!(
@@ -595,7 +598,7 @@ pub fn analyse_with(
     }
     let supply_model = design.multiplier.as_ref().and_then(|m| {
         let stability = design.supply_quality.and_then(|q| q.gain_stability);
-        match crate::multiplier::assess(m, vs, op.supply_amps(), sensitivity, stability) {
+        match crate::solve::multiplier::assess(m, vs, op.supply_amps(), sensitivity, stability) {
             Ok(sm) => Some(sm),
             Err(e) => {
                 warnings.push(warning!(Code::MultiplierSolveFailed,
@@ -608,9 +611,9 @@ pub fn analyse_with(
     if let Some(sm) = &supply_model {
         supply_model_warnings(design, sm, &mut warnings);
     }
-    let active_stages = crate::active::assess(design, &network, &op);
+    let active_stages = crate::budget::active::assess(design, &network, &op);
     if let Some(act) = &active_stages {
-        warnings.extend(crate::active::warnings(act));
+        warnings.extend(crate::budget::active::warnings(act));
     }
     Ok(Analysis {
         active_stages,

@@ -1,51 +1,26 @@
 //! `dynode`: design and check photomultiplier-tube bases from one design file.
 //!
-//! The flow is one way: [`design`] reads and checks a RON design file into uom quantities;
-//! [`tube`] calibrates the gain law and the space-charge limit; [`network`] solves the divider
-//! with the tube's own currents; [`linearity`] traces the gain against anode current; [`safety`]
-//! computes stored charge and bleed-down; [`analysis`] gathers everything; [`report`] renders it;
-//! [`netlist`] writes the same network for a circuit simulator; [`output`] writes files safely.
+//! The flow is one way, and the folders show it: [`design`] reads and checks a RON design file
+//! into uom quantities; [`model`] holds the tube's laws, cathodes and light; [`numerics`] the
+//! shared kernels; [`solve`] the solves of the one circuit (DC, linearity, time domain, the
+//! pulse at the instrument); [`budget`] what the solved circuit means (signal, trains, safety,
+//! parts); [`analysis`] runs one pass and gathers everything; [`study`] runs many solves (size,
+//! spread, sweep, compare); [`report`] renders text, JSON, HTML, Markdown, figures and netlists;
+//! [`cli`] parses arguments, writes files and maps errors to exit codes.
 //! The model's public API speaks in uom quantities at its edges and plain f64 inside hot loops.
 #![forbid(unsafe_code)]
 #![warn(missing_docs)]
 // Numerical code indexes several parallel arrays by node number; iterator chains would hide that.
 #![allow(clippy::needless_range_loop)]
 
-pub mod active;
 pub mod analysis;
-pub mod cathode;
+pub mod budget;
 pub mod cli;
-pub mod commands;
-pub mod compare;
-pub mod constants;
-pub mod counting;
 pub mod design;
-pub mod eseries;
-pub mod frontend;
-pub mod light;
-pub mod limits;
-pub mod linearity;
-pub mod multiplier;
-pub mod netlist;
-pub mod network;
-pub mod output;
-pub mod parts;
-pub mod plot;
-pub mod pulsetrain;
+pub mod model;
+pub mod numerics;
 pub mod report;
-pub mod safety;
-pub mod schematic;
-pub mod serve;
-pub mod signal;
-pub mod sizing;
-pub mod spread;
-pub mod stability;
-pub mod starter;
-pub mod sweep;
-pub mod timing;
-pub mod train;
-pub mod transient;
-pub mod tube;
+pub mod solve;
+pub mod study;
 pub mod units;
 pub mod warning;
-pub mod waveform;

@@ -45,7 +45,10 @@ fn train_pages_hold_the_train_section_only() {
             !page.contains("Gaps at the operating point") && !page.contains("DC linearity"),
             "{format}: the full report leaked in"
         );
-        assert!(page.contains(dynode::safety::CLOSING_CAUTION), "{format}");
+        assert!(
+            page.contains(dynode::budget::safety::CLOSING_CAUTION),
+            "{format}"
+        );
     }
 }
 
@@ -125,8 +128,8 @@ fn schematic_names_every_element_with_its_value() {
     for path in crate::common::demo_designs() {
         let d = dynode::design::load(&path).unwrap();
         let a = dynode::analysis::analyse_with(&d, None).unwrap();
-        let fig = dynode::schematic::figure(&a);
-        let svg = dynode::plot::svg(&fig).unwrap();
+        let fig = dynode::report::schematic::figure(&a);
+        let svg = dynode::report::plot::svg(&fig).unwrap();
         let texts = svg_texts(&svg);
         let file = path.display();
         for (j, e) in d.elements.iter().enumerate() {
@@ -184,13 +187,13 @@ fn schematic_names_every_element_with_its_value() {
         }
         assert!(texts.iter().any(|t| t.contains("HIGH VOLTAGE")));
         // The PNG: decodes, has the figure's size, and is not blank.
-        let png = dynode::plot::png_bytes(&fig).unwrap();
+        let png = dynode::report::plot::png_bytes(&fig).unwrap();
         let mut reader = png::Decoder::new(std::io::Cursor::new(png))
             .read_info()
             .unwrap();
         let mut buf = vec![0; reader.output_buffer_size()];
         let info = reader.next_frame(&mut buf).unwrap();
-        assert_eq!((info.width, info.height), dynode::plot::size(&fig));
+        assert_eq!((info.width, info.height), dynode::report::plot::size(&fig));
         let px = &buf[..info.buffer_size()];
         let dark = px.chunks(3).filter(|p| p[0] < 128).count();
         assert!(
@@ -271,7 +274,7 @@ fn compare_with_every_divider_resistor_divided_by_three_triples_the_divider_curr
 /// current. A design with a light block gets the pulse columns.
 #[test]
 fn sweep_counts_gaps_from_one_and_scales_all_gaps() {
-    use dynode::sweep;
+    use dynode::study::sweep;
     let d = dynode::design::load(&crate_path("designs/rooftop-paddle.ron")).unwrap();
     let first = sweep::parse_axis("divider.gaps[1]=2M..2M:2").unwrap();
     sweep::check_axes(&d, std::slice::from_ref(&first)).unwrap();

@@ -170,7 +170,7 @@ fn multiplier_bleed_down_matches_ngspice() {
     }
     let d = design::load(&crate_path("designs/multiplier-fed.ron")).unwrap();
     let a = analysis::analyse(&d).unwrap();
-    let ours = dynode::safety::bleed_time(&d, &a.op, true).expect("bleeds");
+    let ours = dynode::budget::safety::bleed_time(&d, &a.op, true).expect("bleeds");
     let (text, watch) = switched_off(&d, &a, false, false);
     let spice = ngspice_time(&text, watch.len(), 3.0 * ours, ours / 3000.0, "bleed-mult");
     assert!(rel(ours, spice) < 0.01, "ours {ours} s, ngspice {spice} s");
@@ -188,7 +188,7 @@ fn tap_string_bleed_down_matches_ngspice() {
     }
     let d = design::load(&crate_path("designs/transistor-held.ron")).unwrap();
     let a = analysis::analyse(&d).unwrap();
-    let ours = dynode::safety::bleed_time(&d, &a.op, true).expect("bleeds");
+    let ours = dynode::budget::safety::bleed_time(&d, &a.op, true).expect("bleeds");
     assert!(
         a.safety.bleed_case.contains("followers cut off"),
         "{}",
@@ -218,8 +218,8 @@ fn conducting_followers_bleed_down_matches_ngspice() {
     }
     let d = design::load(&crate_path("designs/transistor-held.ron")).unwrap();
     let a = analysis::analyse(&d).unwrap();
-    let ours = dynode::safety::bleed_time_followers(&d, &a.op, true, true).expect("bleeds");
-    let off = dynode::safety::bleed_time_followers(&d, &a.op, true, false).expect("bleeds");
+    let ours = dynode::budget::safety::bleed_time_followers(&d, &a.op, true, true).expect("bleeds");
+    let off = dynode::budget::safety::bleed_time_followers(&d, &a.op, true, false).expect("bleeds");
     assert!(ours < off, "conducting {ours} s, cut off {off} s");
     let (text, watch) = switched_off(&d, &a, true, true);
     let spice = ngspice_time(&text, watch.len(), 3.0 * ours, ours / 3000.0, "bleed-held");

@@ -7,8 +7,9 @@
 //! values).
 
 use crate::common::{crate_path, demo_designs, ngspice_available, rel};
-use dynode::waveform::{self, CurrentPulse, Line, LoadCircuit};
-use dynode::{analysis, design, signal};
+use dynode::budget::signal;
+use dynode::solve::waveform::{self, CurrentPulse, Line, LoadCircuit};
+use dynode::{analysis, design};
 
 fn analyse(rel_path: &str) -> analysis::Analysis {
     let d = design::load(&crate_path(rel_path)).expect("design reads");

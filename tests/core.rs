@@ -1,8 +1,8 @@
 //! The core model against textbook laws and worked examples.
 
 use dynode::design::{self, Design};
-use dynode::network::{Network, Workspace};
-use dynode::tube::TubeModel;
+use dynode::model::tube::TubeModel;
+use dynode::solve::network::{Network, Workspace};
 
 use crate::common::{crate_path, rel};
 
@@ -181,7 +181,7 @@ fn resistive_divider_is_over_linear_and_zener_flattens() {
 fn iec_thresholds_in_the_safety_figures() {
     // IEC 61010-1:2010 §6.3.1 (from memory): 70 V DC hazardous live, 45 µC, 350 mJ, 2 mA DC;
     // IEC 60204-1 §6.2.4 (from memory): 60 V within 5 s.
-    use dynode::safety::*;
+    use dynode::budget::safety::*;
     assert_eq!(HAZARDOUS_DC_VOLTS, 70.0);
     assert_eq!(CHARGE_LIMIT_COULOMBS, 45e-6);
     assert_eq!(ENERGY_LIMIT_JOULES, 0.350);
@@ -201,7 +201,7 @@ fn bleed_down_of_one_capacitor_is_rc_ln_ratio() {
         );
     let d = design::parse_str(&text, "t.ron").unwrap();
     let a = dynode::analysis::analyse(&d).unwrap();
-    let t = dynode::safety::bleed_time(&d, &a.op, false).expect("bleeds");
+    let t = dynode::budget::safety::bleed_time(&d, &a.op, false).expect("bleeds");
     let v0 = a.op.element_volts[10];
     let expect = 1e6 * 100e-9 * (v0 / 60.0).ln();
     assert!(rel(t, expect) < 0.01, "{t} vs {expect}");
@@ -233,9 +233,9 @@ fn linearity_is_output_against_light_with_its_ceiling() {
         let g0 = a.small_signal_gain;
         let first = l.points.first().unwrap().ideal_amps / g0;
         let last = l.points.last().unwrap().ideal_amps / g0;
-        let mut ws = dynode::network::Workspace::default();
+        let mut ws = dynode::solve::network::Workspace::default();
         let mut best = 0.0f64;
-        let mut prev: Option<dynode::network::OperatingPoint> = None;
+        let mut prev: Option<dynode::solve::network::OperatingPoint> = None;
         for i in 0..2000 {
             let ik = (first.ln() + (last.ln() - first.ln()) * i as f64 / 1999.0).exp();
             if let Ok(op) = a.network.solve_raw(ik, prev.as_ref(), &mut ws) {
@@ -342,7 +342,7 @@ fn a_linear_chain_stays_under_three_percent_at_a_tenth_of_its_divider_current() 
         }
         let (_, net) = network(&text);
         let (i0, _) = net.quiescent();
-        let mut ws = dynode::network::Workspace::default();
+        let mut ws = dynode::solve::network::Workspace::default();
         let op = net.solve_anode_raw(0.1 * i0, &mut ws).expect("solves");
         op.gain() / net.small_signal_gain() - 1.0
     };

@@ -202,7 +202,7 @@ fn saturation_of(gaps: &[String]) -> (f64, String) {
     );
     let reached = match &e {
         analysis::AnalysisError::Operating {
-            source: dynode::network::SolveError::Unreachable { reached, .. },
+            source: dynode::solve::network::SolveError::Unreachable { reached, .. },
             ..
         } => *reached,
         _ => panic!("{msg}"),

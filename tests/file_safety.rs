@@ -74,7 +74,7 @@ fn the_temporary_file_name_is_not_predictable() {
     let planted = dir.join(format!(".r.txt.{}.tmp", std::process::id()));
     std::os::unix::fs::symlink(&victim, &planted).expect("symlink");
     let target = dir.join("r.txt");
-    dynode::output::write_atomic(&target, b"report", &[], false).expect("write");
+    dynode::cli::output::write_atomic(&target, b"report", &[], false).expect("write");
     assert_eq!(std::fs::read_to_string(&victim).expect("read"), "keep me");
     assert_eq!(std::fs::read_to_string(&target).expect("read"), "report");
     let mut names: Vec<String> = std::fs::read_dir(&dir)
@@ -94,8 +94,8 @@ fn the_temporary_file_name_is_not_predictable() {
     expected.sort();
     assert_eq!(names, expected);
     // A second write without --force meets the file and refuses; with it, replaces.
-    assert!(dynode::output::write_atomic(&target, b"again", &[], false).is_err());
-    dynode::output::write_atomic(&target, b"again", &[], true).expect("force");
+    assert!(dynode::cli::output::write_atomic(&target, b"again", &[], false).is_err());
+    dynode::cli::output::write_atomic(&target, b"again", &[], true).expect("force");
     assert_eq!(std::fs::read_to_string(&target).expect("read"), "again");
 }
 

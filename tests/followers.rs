@@ -5,8 +5,8 @@
 
 use dynode::analysis;
 use dynode::design;
-use dynode::netlist::{self, NetlistOptions};
-use dynode::network::{OperatingPoint, Workspace};
+use dynode::report::netlist::{self, NetlistOptions};
+use dynode::solve::network::{OperatingPoint, Workspace};
 
 use crate::common::{crate_path, meas, ngspice_available, ngspice_batch, rel, temp_dir};
 
@@ -155,8 +155,8 @@ fn a_train_on_the_held_base_matches_ngspice() {
     if !ngspice_available("a_train_on_the_held_base_matches_ngspice") {
         return;
     }
-    use dynode::pulsetrain::cathode_charge;
-    use dynode::transient::{Base, RunOptions};
+    use dynode::budget::pulsetrain::cathode_charge;
+    use dynode::solve::transient::{Base, RunOptions};
     // The demo's light (374 photoelectrons a pulse) as three pulses 100 ns apart: the light
     // block's own rate gives way to the train's (one pulse stream).
     let text = std::fs::read_to_string(crate_path(DEMO))
@@ -168,7 +168,7 @@ fn a_train_on_the_held_base_matches_ngspice() {
         &text[..end]
     );
     let d = design::parse_str(&text, "held-train.ron").expect("the held demo with a train reads");
-    let tube = dynode::tube::TubeModel::from_spec(&d.tube).unwrap();
+    let tube = dynode::model::tube::TubeModel::from_spec(&d.tube).unwrap();
     let base = Base::from_design(&d, tube);
     let (nv, _) = base.quiescent_state().unwrap();
     let gaps: Vec<f64> = (1..=d.tube.stages + 1).map(|j| nv[j] - nv[j - 1]).collect();
@@ -230,7 +230,7 @@ fn a_train_on_the_held_base_matches_ngspice() {
 #[test]
 fn held_gaps_spread_as_the_string_divides() {
     use dynode::design::Element;
-    use dynode::spread::{self, SpreadConfig};
+    use dynode::study::spread::{self, SpreadConfig};
     use uom::si::electric_potential::volt;
     use uom::si::electrical_resistance::ohm;
 
@@ -318,8 +318,8 @@ fn held_gaps_spread_as_the_string_divides() {
 /// shows every one of these parts by its designator.
 #[test]
 fn followers_in_parts_list_and_schematic() {
+    use dynode::budget::parts::Kind;
     use dynode::design::Element;
-    use dynode::parts::Kind;
     use uom::si::electric_current::ampere;
     use uom::si::electrical_resistance::ohm;
 
@@ -327,7 +327,7 @@ fn followers_in_parts_list_and_schematic() {
     let a = analysis::analyse(&d).unwrap();
     let f = d.followers.clone().unwrap();
     let v = d.supply_magnitude();
-    let lines = dynode::parts::list(&a);
+    let lines = dynode::budget::parts::list(&a);
     let by_name = |name: &str| {
         lines
             .iter()
@@ -344,7 +344,7 @@ fn followers_in_parts_list_and_schematic() {
         .collect();
     let total: f64 = r.iter().sum();
     let d8 = v * r[..8].iter().sum::<f64>() / total;
-    let names = dynode::parts::designators(&d);
+    let names = dynode::budget::parts::designators(&d);
     assert_eq!(names.followers, ["Q1", "Q2", "Q3"]);
     assert_eq!(names.string.len(), 4);
     let string: f64 = names.string.iter().map(|n| by_name(n).value).sum();
@@ -366,7 +366,7 @@ fn followers_in_parts_list_and_schematic() {
             "{q}: {l:?}"
         );
     }
-    let svg = dynode::plot::svg(&dynode::schematic::figure(&a)).unwrap();
+    let svg = dynode::report::plot::svg(&dynode::report::schematic::figure(&a)).unwrap();
     // Every `<text>` of the SVG, trimmed.
     let texts: Vec<&str> = svg
         .split("<text")

@@ -5,10 +5,10 @@
 //! single-photoelectron spectrum, and a closed form for the pulse-pair resolution of two
 //! Gaussian pulses.
 
-use dynode::counting::{self, SpeModel};
+use dynode::budget::counting::{self, SpeModel};
+use dynode::budget::frontend::{self, ChargePreamp, FrontEnd, VoltageAmplifier};
 use dynode::design::InstrumentResponse;
-use dynode::frontend::{self, ChargePreamp, FrontEnd, VoltageAmplifier};
-use dynode::waveform::Waveform;
+use dynode::solve::waveform::Waveform;
 use rand::SeedableRng;
 use rand::rngs::ChaCha8Rng;
 use rand_distr::{Distribution, Exp, Poisson};
@@ -366,7 +366,7 @@ fn transit_time_moves_as_the_inverse_square_root_of_the_supply() {
     use uom::si::electric_potential::volt;
     use uom::si::f64::{ElectricPotential, Time};
     use uom::si::time::{nanosecond, second};
-    let (t, d) = dynode::timing::transit_at(
+    let (t, d) = dynode::budget::timing::transit_at(
         Time::new::<nanosecond>(40.0),
         ElectricPotential::new::<volt>(1000.0),
         ElectricPotential::new::<volt>(1000.0),
@@ -426,7 +426,7 @@ fn every_demo_reports_the_front_end_counting_and_transit_keys() {
 /// outside the design file's range is refused with that range.
 #[test]
 fn sweep_varies_the_front_end() {
-    use dynode::sweep;
+    use dynode::study::sweep;
     for (file, field, lo, hi) in [
         (
             "designs/photon-counter-dark.ron",

@@ -49,10 +49,10 @@ fn pipeline(text: &str) {
         None,
         "JSON report"
     );
-    let netlist = dynode::netlist::write(
+    let netlist = dynode::report::netlist::write(
         &d,
         &a.network.tube,
-        &dynode::netlist::NetlistOptions {
+        &dynode::report::netlist::NetlistOptions {
             cathode_amps: a.op.cathode_amps,
             control_block: true,
         },

@@ -3,8 +3,9 @@
 //! textbook Cockcroft–Walton formulas (high-voltage engineering texts, from memory; values for
 //! I = 1 mA, f = 30 kHz, C = 10 nF in the project's reference list).
 
-use dynode::multiplier::{self, IDEAL, Multiplier, RECTIFIER};
-use dynode::{analysis, design, netlist};
+use dynode::report::netlist;
+use dynode::solve::multiplier::{self, IDEAL, Multiplier, RECTIFIER};
+use dynode::{analysis, design};
 use uom::si::capacitance::nanofarad;
 use uom::si::electric_potential::volt;
 use uom::si::electrical_resistance::ohm;

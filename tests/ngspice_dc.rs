@@ -6,8 +6,8 @@ use std::process::Command;
 
 use dynode::analysis;
 use dynode::design;
-use dynode::netlist::{self, NetlistOptions};
-use dynode::network::Workspace;
+use dynode::report::netlist::{self, NetlistOptions};
+use dynode::solve::network::Workspace;
 
 use crate::common::{crate_path, ngspice_available, rel, temp_dir};
 
@@ -48,7 +48,7 @@ fn compare_design(file: &str) {
     let mut ws = Workspace::default();
     // Three anode currents: well inside the linear range, near +1 %, and past it (3×); then a
     // cathode current deep in saturation (past −5 %), where the starved gaps sit at a few volts.
-    let mut cases: Vec<dynode::network::OperatingPoint> = [plus1 * 0.05, plus1, plus1 * 3.0]
+    let mut cases: Vec<dynode::solve::network::OperatingPoint> = [plus1 * 0.05, plus1, plus1 * 3.0]
         .into_iter()
         .map(|ia| a.network.solve_anode_raw(ia, &mut ws).unwrap())
         .collect();

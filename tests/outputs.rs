@@ -72,7 +72,7 @@ fn every_demo_renders_every_figure_as_svg_and_png() {
             assert!(svg.contains("<text"), "{name}.svg has text");
             let (w, h, var) = png_stats(&dir.join(format!("{name}.png")));
             let fig = figs.iter().find(|f| &f.name == name).unwrap();
-            assert_eq!((w, h), dynode::plot::size(fig), "{name}.png size");
+            assert_eq!((w, h), dynode::report::plot::size(fig), "{name}.png size");
             assert!(var > 200.0, "{name}.png looks blank (grey variance {var})");
         }
         assert!(
@@ -432,9 +432,9 @@ fn cathode_catalogue_lists_every_builtin_with_provenance() {
     let out = dynode().arg("cathodes").output().unwrap();
     assert!(out.status.success());
     let text = String::from_utf8(out.stdout).unwrap();
-    let n = dynode::cathode::builtin_cathodes().len();
+    let n = dynode::model::cathode::builtin_cathodes().len();
     assert!(n >= 10, "ten built-in cathode classes ({n})");
-    for c in dynode::cathode::builtin_cathodes() {
+    for c in dynode::model::cathode::builtin_cathodes() {
         assert!(text.contains(&c.key), "{} listed", c.key);
     }
     // Provenance is stated for every curve (they are typical curves from memory, not data).
@@ -470,7 +470,7 @@ fn light_match_compares_six_or_more_lines_against_every_cathode() {
     // He-Ne says which medium its wavelength is given in (CIPM 2007: 632.9908 nm in vacuum).
     assert!(text.contains("632.8 nm") && text.contains("in air"));
     let cells = text.lines().filter(|l| l.contains("% of best")).count();
-    assert!(cells >= lines.len() * dynode::cathode::builtin_cathodes().len());
+    assert!(cells >= lines.len() * dynode::model::cathode::builtin_cathodes().len());
     assert!(text.contains("HIGH VOLTAGE"), "the caution is printed");
     // A custom list and a bad one.
     let out = dynode()

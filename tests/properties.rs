@@ -1,8 +1,8 @@
 //! Invariants of the DC solve over random valid designs (proptest).
 
 use dynode::design;
-use dynode::network::{Network, Workspace};
-use dynode::tube::TubeModel;
+use dynode::model::tube::TubeModel;
+use dynode::solve::network::{Network, Workspace};
 use proptest::prelude::*;
 
 fn design_text(stages: usize, supply: f64, rs: &[f64], zener_last: bool, k: f64) -> String {
@@ -211,14 +211,14 @@ proptest! {
     fn parts_list_matches_the_design(b in arb_bench()) {
         let d = design::parse_str(&b.text(), "bench.ron").unwrap();
         let Ok(a) = dynode::analysis::analyse(&d) else { return Ok(()) };
-        let lines = dynode::parts::list(&a);
+        let lines = dynode::budget::parts::list(&a);
         // Expected parts: (kind, value) with counts.
-        let mut want: Vec<(dynode::parts::Kind, f64, usize)> = Vec::new();
+        let mut want: Vec<(dynode::budget::parts::Kind, f64, usize)> = Vec::new();
         let mut add = |k, v: f64, c: usize| match want.iter_mut().find(|w| w.0 == k && (w.1 / v - 1.0).abs() < 1e-9) {
             Some(w) => w.2 += c,
             None => want.push((k, v, c)),
         };
-        use dynode::parts::Kind;
+        use dynode::budget::parts::Kind;
         for (j, &(r, m)) in b.gaps.iter().enumerate() {
             if j == b.gaps.len() - 1 && let Some(v) = b.zener_last {
                 add(Kind::Zener, v, 1);
@@ -256,10 +256,10 @@ proptest! {
         let line_of = |name: &str| lines.iter().find(|l| l.designators.iter().any(|x| x == name));
         for l in &lines {
             if let Some(r) = l.voltage_rating {
-                prop_assert!(r >= dynode::parts::VOLTAGE_MARGIN * l.volts * (1.0 - 1e-12), "{:?}", l);
+                prop_assert!(r >= dynode::budget::parts::VOLTAGE_MARGIN * l.volts * (1.0 - 1e-12), "{:?}", l);
             }
             if let (Some(p), Some(w)) = (l.power_rating, l.watts) {
-                prop_assert!(p >= dynode::parts::POWER_MARGIN * w * (1.0 - 1e-12), "{:?}", l);
+                prop_assert!(p >= dynode::budget::parts::POWER_MARGIN * w * (1.0 - 1e-12), "{:?}", l);
             }
         }
         for (j, g) in a.gaps.iter().enumerate() {
@@ -272,13 +272,13 @@ proptest! {
             if b.zener_last.is_none() {
                 let ohm = b.supply * b.gaps[j].0 / total_r;
                 prop_assert!((g.quiescent_volts / m as f64 - ohm).abs() <= 1e-6 * ohm, "Ohm's law, gap {}", j + 1);
-                prop_assert!(l.voltage_rating.unwrap() >= dynode::parts::VOLTAGE_MARGIN * ohm * (1.0 - 1e-9));
+                prop_assert!(l.voltage_rating.unwrap() >= dynode::budget::parts::VOLTAGE_MARGIN * ohm * (1.0 - 1e-9));
             }
         }
         for (k, (g, _, _)) in b.caps.iter().enumerate() {
             let l = line_of(&format!("C{}", k + 1)).expect("every capacitor listed");
             let gv = a.gaps[g - 1].volts.abs().max(a.gaps[g - 1].quiescent_volts.abs());
-            prop_assert!(l.voltage_rating.unwrap() >= dynode::parts::VOLTAGE_MARGIN * gv * (1.0 - 1e-12));
+            prop_assert!(l.voltage_rating.unwrap() >= dynode::budget::parts::VOLTAGE_MARGIN * gv * (1.0 - 1e-12));
         }
     }
 }

@@ -3,11 +3,11 @@
 
 use std::process::Command;
 
-use dynode::cathode::{self, Cathode, qe_from_sensitivity};
-use dynode::light::Shape;
-use dynode::signal::{self, NOISE_TEMPERATURE, johnson_density};
-use dynode::tube::TubeModel;
-use dynode::waveform::{self, CurrentPulse, Line, LoadCircuit};
+use dynode::budget::signal::{self, NOISE_TEMPERATURE, johnson_density};
+use dynode::model::cathode::{self, Cathode, qe_from_sensitivity};
+use dynode::model::light::Shape;
+use dynode::model::tube::TubeModel;
+use dynode::solve::waveform::{self, CurrentPulse, Line, LoadCircuit};
 
 use crate::common::{crate_path, demo_designs, ngspice_available, rel, temp_dir};
 
@@ -664,7 +664,7 @@ fn leading_edge_timing_follows_the_first_photoelectron() {
     let single = waveform::gaussian_pulse(10e-12, 1e-12);
     let response = waveform::simulate(&c, &single, 0.0);
     let height = response.measure().peak;
-    let spread = dynode::timing::monte_carlo(&dynode::timing::TimingInput {
+    let spread = dynode::budget::timing::monte_carlo(&dynode::budget::timing::TimingInput {
         shape: &Shape::Exponential {
             rise: 0.0,
             decay: tau,

@@ -3,13 +3,13 @@
 
 use std::process::Command;
 
+use dynode::budget::stability;
 use dynode::design;
-use dynode::eseries::{E6, E12, E24, E48, E96, Series};
-use dynode::network::Workspace;
-use dynode::sizing;
-use dynode::spread::{self, SpreadConfig};
-use dynode::stability;
-use dynode::sweep;
+use dynode::model::eseries::{E6, E12, E24, E48, E96, Series};
+use dynode::solve::network::Workspace;
+use dynode::study::sizing;
+use dynode::study::spread::{self, SpreadConfig};
+use dynode::study::sweep;
 use proptest::prelude::*;
 
 use crate::common::{crate_path, rel, temp_dir};
@@ -165,11 +165,11 @@ fn assert_meets(req: &sizing::Requirements, s: &sizing::Sized) -> Result<(), Str
     if let (Some((_, droop)), Some(_)) = (req.capacitors, &a.design.train) {
         // Sized with the pulse-train solve: the time-domain droop of each decoupled gap
         // (whole base, strays included) stays within the allowed droop.
-        let opts = dynode::pulsetrain::TrainOptions {
+        let opts = dynode::budget::pulsetrain::TrainOptions {
             train_only: true,
             ..Default::default()
         };
-        let t = dynode::pulsetrain::analyse(&a.design, &a.network.tube, &opts)
+        let t = dynode::budget::pulsetrain::analyse(&a.design, &a.network.tube, &opts)
             .map_err(|e| e.to_string())?
             .ok_or("no train analysis")?;
         for d in &t.droop {
@@ -375,9 +375,9 @@ fn monte_carlo_spread_matches_first_order_propagation() {
         let mut up = a.network.clone();
         let mut dn = a.network.clone();
         let h = 1e-4;
-        if let dynode::network::Part::Resistor(g) = a.network.parts[i] {
-            up.parts[i] = dynode::network::Part::Resistor(g / (1.0 + h));
-            dn.parts[i] = dynode::network::Part::Resistor(g / (1.0 - h));
+        if let dynode::solve::network::Part::Resistor(g) = a.network.parts[i] {
+            up.parts[i] = dynode::solve::network::Part::Resistor(g / (1.0 + h));
+            dn.parts[i] = dynode::solve::network::Part::Resistor(g / (1.0 - h));
         }
         let deriv = (up.small_signal_gain().ln() - dn.small_signal_gain().ln())
             / ((1.0 + h).ln() - (1.0 - h).ln());
@@ -693,27 +693,27 @@ fn capacitors_sized_for_a_rate_hold_poisson_bunching() {
     let s = sizing::size(&req).unwrap();
     assert!(s.reasoning.iter().any(|r| r.contains("Poisson arrivals")));
     let d = &s.design;
-    let tube = dynode::tube::TubeModel::from_spec(&d.tube).unwrap();
-    let base = dynode::transient::Base::from_design(d, tube.clone());
+    let tube = dynode::model::tube::TubeModel::from_spec(&d.tube).unwrap();
+    let base = dynode::solve::transient::Base::from_design(d, tube.clone());
     let mut spec = d.train.clone().expect("a train block");
-    spec.pattern = dynode::train::Pattern::Poisson(1e6, 3000, 11);
+    spec.pattern = dynode::design::train::Pattern::Poisson(1e6, 3000, 11);
     let (nv, _) = base.quiescent_state().unwrap();
     let gaps: Vec<f64> = (1..=d.tube.stages + 1).map(|j| nv[j] - nv[j - 1]).collect();
     let g0 = tube.gain_for_gaps(&gaps);
-    let qk = dynode::pulsetrain::cathode_charge(spec.size, &spec.shape, g0);
+    let qk = dynode::budget::pulsetrain::cathode_charge(spec.size, &spec.shape, g0);
     let arrivals = spec.pattern.arrivals();
     let run = base
         .run(
             &arrivals,
             &spec.shape,
             qk,
-            &dynode::transient::RunOptions {
+            &dynode::solve::transient::RunOptions {
                 recovery_band: None,
                 ..Default::default()
             },
         )
         .unwrap();
-    let steady = dynode::pulsetrain::steady_state(d, &base, &spec, qk, g0)
+    let steady = dynode::budget::pulsetrain::steady_state(d, &base, &spec, qk, g0)
         .unwrap()
         .unwrap();
     let tau = base.slowest_time_constant().unwrap();

@@ -2,11 +2,11 @@
 //! capacitance with Kirchhoff's current law, first-order RC recovery, and the linear limit.
 
 use crate::common::{meas, ngspice_available, ngspice_batch, rel, temp_dir};
+use dynode::budget::pulsetrain::cathode_charge;
 use dynode::design::{Design, parse_str};
-use dynode::netlist;
-use dynode::pulsetrain::cathode_charge;
-use dynode::transient::{Base, Run, RunOptions};
-use dynode::tube::TubeModel;
+use dynode::model::tube::TubeModel;
+use dynode::report::netlist;
+use dynode::solve::transient::{Base, Run, RunOptions};
 
 /// A 10-stage chain with capacitors across the last three gaps (a test scenario of our own,
 /// invented numbers). `{DECOUPLING}`, `{SIZE}`, `{PATTERN}` are filled in per test.
@@ -549,7 +549,7 @@ fn recommended_capacitors_do_not_depend_on_the_train_length_and_hold_the_rate() 
         assert!(text.contains("100 pC") && text.contains(&format!("count: {count}")));
         let d = parse_str(&text, "train-chain.ron").expect("reads");
         let tube = TubeModel::from_spec(&d.tube).unwrap();
-        let t = dynode::pulsetrain::analyse(&d, &tube, &Default::default())
+        let t = dynode::budget::pulsetrain::analyse(&d, &tube, &Default::default())
             .unwrap()
             .unwrap();
         let s = t.sizing.expect("sizing");

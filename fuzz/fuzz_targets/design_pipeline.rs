@@ -35,10 +35,10 @@ fuzz_target!(|data: &[u8]| {
         }
     }
     // The netlist of the same network, at the design's operating point.
-    let netlist = dynode::netlist::write(
+    let netlist = dynode::report::netlist::write(
         &design,
         &analysis.network.tube,
-        &dynode::netlist::NetlistOptions {
+        &dynode::report::netlist::NetlistOptions {
             cathode_amps: analysis.op.cathode_amps,
             control_block: true,
         },
@@ -54,7 +54,7 @@ fuzz_target!(|data: &[u8]| {
     assert!(controls <= 1, "user text started a .control line in the netlist");
     // One figure through the PNG encoder too (the SVGs went into the HTML report).
     if let Some(fig) = dynode::report::figures::all(&analysis).first() {
-        dynode::plot::png_bytes(fig).expect("a figure renders");
+        dynode::report::plot::png_bytes(fig).expect("a figure renders");
     }
     let json = dynode::report::json::to_value(&analysis);
     if let Some(path) = finite::json_unexpected_null(&json) {

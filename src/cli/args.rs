@@ -1,7 +1,7 @@
 //! The command line's words: clap-derived argument types, used only by [`super::run`].
 //!
 //! Nothing outside `cli` sees these types; the library's model, solves and reports take plain
-//! values (a [`crate::report::Format`], a [`crate::spread::SpreadConfig`]) built from them.
+//! values (a [`crate::report::Format`], a [`crate::study::spread::SpreadConfig`]) built from them.
 
 use std::path::PathBuf;
 
@@ -288,10 +288,10 @@ pub struct SpreadArgs {
     #[arg(long, value_name = "FRACTION", value_parser = ratio)]
     pub supply_drift: Option<f64>,
     /// Standard deviation of ln(tube gain) between tubes (0 to switch off).
-    #[arg(long, value_name = "SIGMA", default_value_t = crate::spread::DEFAULT_TUBE_GAIN_SIGMA)]
+    #[arg(long, value_name = "SIGMA", default_value_t = crate::study::spread::DEFAULT_TUBE_GAIN_SIGMA)]
     pub tube_gain_sigma: f64,
     /// Standard deviation of the secondary-emission exponent k.
-    #[arg(long, value_name = "SIGMA", default_value_t = crate::spread::DEFAULT_EXPONENT_SIGMA)]
+    #[arg(long, value_name = "SIGMA", default_value_t = crate::study::spread::DEFAULT_EXPONENT_SIGMA)]
     pub exponent_sigma: f64,
     /// Charge per anode pulse, for the droop figures (e.g. "200pC").
     #[arg(long, value_name = "CHARGE")]
@@ -386,7 +386,7 @@ pub struct NewArgs {
     pub out: OutputArgs,
 }
 
-/// `new --divider` (the words of [`crate::starter::DividerStyle`]).
+/// `new --divider` (the words of [`crate::design::starter::DividerStyle`]).
 #[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
 pub enum DividerArg {
     /// Every gap the same.
@@ -398,7 +398,7 @@ pub enum DividerArg {
     Tapered,
 }
 
-impl From<DividerArg> for crate::starter::DividerStyle {
+impl From<DividerArg> for crate::design::starter::DividerStyle {
     fn from(a: DividerArg) -> Self {
         match a {
             DividerArg::Equal => Self::Equal,
@@ -408,7 +408,7 @@ impl From<DividerArg> for crate::starter::DividerStyle {
     }
 }
 
-/// `new --light` (the words of [`crate::starter::LightKind`]).
+/// `new --light` (the words of [`crate::design::starter::LightKind`]).
 #[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
 pub enum LightArg {
     /// No light block (DC figures only).
@@ -421,7 +421,7 @@ pub enum LightArg {
     Laser,
 }
 
-impl From<LightArg> for crate::starter::LightKind {
+impl From<LightArg> for crate::design::starter::LightKind {
     fn from(a: LightArg) -> Self {
         match a {
             LightArg::None => Self::None,
@@ -432,7 +432,7 @@ impl From<LightArg> for crate::starter::LightKind {
     }
 }
 
-/// `new --readout` (the words of [`crate::starter::ReadoutKind`]).
+/// `new --readout` (the words of [`crate::design::starter::ReadoutKind`]).
 #[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
 pub enum ReadoutArg {
     /// No readout block.
@@ -441,7 +441,7 @@ pub enum ReadoutArg {
     Scope,
 }
 
-impl From<ReadoutArg> for crate::starter::ReadoutKind {
+impl From<ReadoutArg> for crate::design::starter::ReadoutKind {
     fn from(a: ReadoutArg) -> Self {
         match a {
             ReadoutArg::None => Self::None,

@@ -1,5 +1,5 @@
 //! The catalogue commands: `cathodes` (the built-in curves with their provenance) and
-//! `light-match` (wavelengths × cathodes through [`crate::signal::light_match`]).
+//! `light-match` (wavelengths × cathodes through [`crate::budget::signal::light_match`]).
 
 use std::path::Path;
 
@@ -10,7 +10,7 @@ use crate::units;
 
 /// The text of `dynode cathodes`.
 pub fn cathodes() -> String {
-    use crate::cathode::{Cathode, builtin_cathodes, builtin_windows};
+    use crate::model::cathode::{Cathode, builtin_cathodes, builtin_windows};
     use std::fmt::Write as _;
     let mut out = String::new();
     let _ = writeln!(
@@ -52,12 +52,12 @@ pub fn cathodes() -> String {
 
 /// `dynode light-match`: wavelengths × cathodes.
 pub fn light_match(design: &Path, lines: &[f64], photons: Option<f64>) -> Result<Exit, CliError> {
-    use crate::cathode::{Cathode, builtin_cathodes};
-    use crate::signal::{COMMON_LINES, Chain, light_match};
+    use crate::budget::signal::{COMMON_LINES, Chain, light_match};
+    use crate::model::cathode::{Cathode, builtin_cathodes};
     use crate::units::format_eng;
     use std::fmt::Write as _;
     let d = design::load(design)?;
-    use crate::limits::{PHOTONS, WAVELENGTH};
+    use crate::design::limits::{PHOTONS, WAVELENGTH};
     if let Some(bad) = lines.iter().find(|nm| !WAVELENGTH.contains(**nm * 1e-9)) {
         return Err(CliError::bad(format!(
             "--lines: expected wavelengths in nm from {}, found {}",
@@ -108,7 +108,7 @@ pub fn light_match(design: &Path, lines: &[f64], photons: Option<f64>) -> Result
     }
     let rows = light_match(&d, &chain, &list, &cathodes, photons);
     let mut out = String::new();
-    let _ = writeln!(out, "{}", crate::safety::CLOSING_CAUTION);
+    let _ = writeln!(out, "{}", crate::budget::safety::CLOSING_CAUTION);
     let count = |x: f64| {
         if x == 0.0 {
             "0".to_string()
@@ -126,7 +126,7 @@ pub fn light_match(design: &Path, lines: &[f64], photons: Option<f64>) -> Result
         d.name,
         count(photons),
         chain.gain,
-        crate::signal::path_line(&d)
+        crate::budget::signal::path_line(&d)
     );
     let _ = writeln!(
         out,
@@ -158,6 +158,6 @@ pub fn light_match(design: &Path, lines: &[f64], photons: Option<f64>) -> Result
             );
         }
     }
-    let _ = writeln!(out, "\n{}", crate::safety::CLOSING_CAUTION);
+    let _ = writeln!(out, "\n{}", crate::budget::safety::CLOSING_CAUTION);
     print_text(&out)
 }

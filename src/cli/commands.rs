@@ -11,10 +11,10 @@ use super::args::{
 };
 use super::{CliError, Exit, check_output, emit, print_text, say, write_plots};
 use crate::analysis;
+use crate::cli::output;
 use crate::design;
-use crate::netlist::{self, NetlistOptions};
-use crate::output;
 use crate::report::doc;
+use crate::report::netlist::{self, NetlistOptions};
 use crate::report::{self, Format};
 use crate::units::{self, Kind};
 use std::io::Write;
@@ -26,7 +26,7 @@ const SUPPLY_PERIODS: usize = 4000;
 /// Read and check a design, and check that the output target may be written, before any
 /// work is done (so that a refusal writes nothing).
 fn load_for_output(design: &Path, out: &OutputArgs) -> Result<design::Design, CliError> {
-    let d = crate::commands::load_design(design)?;
+    let d = crate::cli::basic::load_design(design)?;
     check_output(out, &[design])?;
     Ok(d)
 }
@@ -36,7 +36,7 @@ fn load_for_output(design: &Path, out: &OutputArgs) -> Result<design::Design, Cl
 /// given on the command line. Empty without `--plots`.
 fn figure_links(
     dir: Option<&Path>,
-    figs: Option<&[crate::plot::Figure]>,
+    figs: Option<&[crate::report::plot::Figure]>,
     out: &OutputArgs,
 ) -> Vec<(String, String)> {
     let (Some(dir), Some(figs)) = (dir, figs) else {
@@ -58,10 +58,10 @@ fn figure_links(
 
 /// `--pulses` must be a count from 1 to the largest train.
 fn check_pulses(pulses: Option<usize>) -> Result<(), CliError> {
-    if pulses.is_some_and(|p| p == 0 || p > crate::train::MAX_PULSES) {
+    if pulses.is_some_and(|p| p == 0 || p > crate::design::train::MAX_PULSES) {
         return Err(CliError::bad(format!(
             "--pulses: expected a count from 1 to {}",
-            crate::train::MAX_PULSES
+            crate::design::train::MAX_PULSES
         )));
     }
     Ok(())
@@ -101,8 +101,8 @@ pub fn report(args: ReportArgs) -> Result<Exit, CliError> {
 }
 
 /// The spread's configuration from its arguments, with the ranges checked.
-fn spread_config(a: &SpreadArgs) -> Result<crate::spread::SpreadConfig, CliError> {
-    let mut cfg = crate::spread::SpreadConfig {
+fn spread_config(a: &SpreadArgs) -> Result<crate::study::spread::SpreadConfig, CliError> {
+    let mut cfg = crate::study::spread::SpreadConfig {
         samples: a.samples,
         seed: a.seed,
         resistor_tolerance: a.resistor_tolerance,
@@ -121,24 +121,24 @@ fn spread_config(a: &SpreadArgs) -> Result<crate::spread::SpreadConfig, CliError
         supply_max_volts: None,
         linearity_samples: a.linearity_samples,
     };
-    let (lo, hi) = crate::limits::SPREAD_SAMPLES;
+    let (lo, hi) = crate::design::limits::SPREAD_SAMPLES;
     if !(lo..=hi).contains(&cfg.samples) {
         return Err(CliError::bad(format!(
             "--samples: expected {lo} to {hi}, found {}",
             cfg.samples
         )));
     }
-    if cfg.linearity_samples > crate::limits::SPREAD_LINEARITY_SAMPLES {
+    if cfg.linearity_samples > crate::design::limits::SPREAD_LINEARITY_SAMPLES {
         return Err(CliError::bad(format!(
             "--linearity-samples: expected 0 to {} (each costs about 80 solves), found {}",
-            crate::limits::SPREAD_LINEARITY_SAMPLES,
+            crate::design::limits::SPREAD_LINEARITY_SAMPLES,
             cfg.linearity_samples
         )));
     }
-    if !crate::limits::SPREAD_SIGMAS.contains(cfg.sigmas) {
+    if !crate::design::limits::SPREAD_SIGMAS.contains(cfg.sigmas) {
         return Err(CliError::bad(format!(
             "--sigmas: expected a number of standard deviations per tolerance from {}, found {}",
-            crate::limits::SPREAD_SIGMAS.describe(),
+            crate::design::limits::SPREAD_SIGMAS.describe(),
             units::show_number(cfg.sigmas)
         )));
     }
@@ -158,7 +158,7 @@ fn spread_config(a: &SpreadArgs) -> Result<crate::spread::SpreadConfig, CliError
     if let Some(r) = &a.requirements {
         let file = r.display().to_string();
         let text = design::read_text(r, "requirements")?;
-        let req = crate::sizing::parse_requirements(&text, &file)?;
+        let req = crate::study::sizing::parse_requirements(&text, &file)?;
         cfg.target_gain = Some(req.target_gain);
         cfg.max_deviation = cfg.max_deviation.or(Some(req.deviation));
         cfg.supply_max_volts = Some(req.supply_max_volts);
@@ -203,7 +203,7 @@ pub fn spread(args: SpreadArgs) -> Result<Exit, CliError> {
             b.set_position(done as u64);
         }
     };
-    let result = crate::spread::run(&d, &cfg, &progress);
+    let result = crate::study::spread::run(&d, &cfg, &progress);
     if let Some(b) = &bar {
         b.finish_and_clear();
     }
@@ -244,15 +244,15 @@ pub fn sweep(args: SweepArgs) -> Result<Exit, CliError> {
     }
     let mut axes = Vec::new();
     for v in &vary {
-        axes.push(crate::sweep::parse_axis(v).map_err(CliError::bad)?);
+        axes.push(crate::study::sweep::parse_axis(v).map_err(CliError::bad)?);
     }
     if axes.iter().map(|a| a.values.len()).product::<usize>() > 100_000 {
         return Err(CliError::bad("--vary: at most 100 000 points in all"));
     }
-    if let Err(e) = crate::sweep::check_axes(&d, &axes) {
+    if let Err(e) = crate::study::sweep::check_axes(&d, &axes) {
         return Err(CliError::bad(format!("--vary {e}")));
     }
-    let s = crate::sweep::run(&d, &axes);
+    let s = crate::study::sweep::run(&d, &axes);
     let figs = plots.as_ref().map(|_| report::sweep::figures(&s));
     let links = figure_links(plots.as_deref(), figs.as_deref(), &out);
     let text = match format {
@@ -275,7 +275,7 @@ pub fn size(
     force: bool,
     quiet: bool,
 ) -> Result<Exit, CliError> {
-    use crate::sizing;
+    use crate::study::sizing;
     output::check_target(output, &[requirements], force)?;
     let file = requirements.display().to_string();
     let text = design::read_text(requirements, "requirements")?;
@@ -311,14 +311,14 @@ pub fn compare(args: CompareArgs) -> Result<Exit, CliError> {
     } = args;
     let inputs: Vec<&Path> = designs.iter().map(PathBuf::as_path).collect();
     check_output(&out, &inputs)?;
-    let text = crate::commands::compare(&designs, format == DataFormat::Json)?;
+    let text = crate::cli::basic::compare(&designs, format == DataFormat::Json)?;
     emit(&text, &out, &inputs)?;
     Ok(Exit::Ok)
 }
 
 /// `dynode new`.
 pub fn new(args: NewArgs) -> Result<Exit, CliError> {
-    use crate::starter::{Starter, starting_points};
+    use crate::design::starter::{Starter, starting_points};
     let points = starting_points();
     if args.list {
         let mut text = String::from("Starting points for `dynode new --from NAME`:\n");
@@ -375,7 +375,7 @@ pub fn new(args: NewArgs) -> Result<Exit, CliError> {
         s.readout = r.into();
     }
     check_output(&args.out, &[])?;
-    let text = crate::commands::new_design(&s)?;
+    let text = crate::cli::basic::new_design(&s)?;
     emit(&text, &args.out, &[])?;
     Ok(Exit::Ok)
 }
@@ -405,12 +405,12 @@ pub fn train(args: TrainArgs) -> Result<Exit, CliError> {
     };
     let mut a = analysis::analyse_with(&d, None)?;
     let train = with_pulse_progress(count, out.quiet, |progress| {
-        let opts = crate::pulsetrain::TrainOptions {
+        let opts = crate::budget::pulsetrain::TrainOptions {
             pulses,
             train_only,
             progress,
         };
-        crate::pulsetrain::analyse(&d, &a.network.tube, &opts)
+        crate::budget::pulsetrain::analyse(&d, &a.network.tube, &opts)
     })
     .map_err(|e| CliError::solve(format!("{}: {e}", d.source)))?;
     if let Some(t) = &train {
@@ -474,13 +474,13 @@ pub fn netlist(args: NetlistArgs) -> Result<Exit, CliError> {
     let anode = match &anode_current {
         None => d.anode_current,
         Some(t) => match units::parse(t, Kind::Current) {
-            Ok(v) if crate::limits::ANODE_CURRENT.contains(v) => {
+            Ok(v) if crate::design::limits::ANODE_CURRENT.contains(v) => {
                 crate::units::ElectricCurrent::new::<uom::si::electric_current::ampere>(v)
             }
             Ok(v) => {
                 return Err(CliError::bad(format!(
                     "--anode-current: {} (the design file's range for operating.anode_current)",
-                    crate::limits::ANODE_CURRENT
+                    crate::design::limits::ANODE_CURRENT
                         .check(v)
                         .err()
                         .unwrap_or_default()
@@ -516,7 +516,7 @@ pub fn netlist(args: NetlistArgs) -> Result<Exit, CliError> {
         };
         check_pulses(pulses)?;
         let pattern = pulses.map_or(spec.pattern, |p| spec.pattern.with_count(p));
-        let base = crate::transient::Base::from_design(&d, a.network.tube.clone());
+        let base = crate::solve::transient::Base::from_design(&d, a.network.tube.clone());
         let g0 = match base.quiescent_state() {
             Ok((nv, _)) => {
                 let gaps: Vec<f64> = (1..=d.tube.stages + 1).map(|j| nv[j] - nv[j - 1]).collect();
@@ -524,7 +524,7 @@ pub fn netlist(args: NetlistArgs) -> Result<Exit, CliError> {
             }
             Err(e) => return Err(CliError::solve(format!("{}: {e}", d.source))),
         };
-        let qk = crate::pulsetrain::cathode_charge(spec.size, &spec.shape, g0);
+        let qk = crate::budget::pulsetrain::cathode_charge(spec.size, &spec.shape, g0);
         let text = netlist::write_transient(
             &d,
             &a.network.tube,
@@ -536,10 +536,10 @@ pub fn netlist(args: NetlistArgs) -> Result<Exit, CliError> {
         emit(&text, &out, &[&design])?;
         return Ok(Exit::Ok);
     }
-    let mut ws = crate::network::Workspace::default();
+    let mut ws = crate::solve::network::Workspace::default();
     let op = match a.network.solve_anode(anode, &mut ws) {
         Ok(op) => op,
-        Err(e @ crate::network::SolveError::Unreachable { .. }) => {
+        Err(e @ crate::solve::network::SolveError::Unreachable { .. }) => {
             return Err(CliError::bad(format!("{}: --anode-current: {e}", d.source)));
         }
         Err(e) => return Err(CliError::solve(format!("{}: {e}", d.source))),

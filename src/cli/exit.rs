@@ -7,11 +7,11 @@
 //! number; the tests below pin the table.
 
 use crate::analysis::AnalysisError;
-use crate::commands::CommandError;
+use crate::cli::basic::CommandError;
+use crate::cli::output::OutputError;
 use crate::design::DesignError;
-use crate::output::OutputError;
 use crate::report::finite::NonFinite;
-use crate::sizing::SizingError;
+use crate::study::sizing::SizingError;
 
 /// The process's exit status.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]

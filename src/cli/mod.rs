@@ -7,9 +7,12 @@
 //! flag names; data goes to stdout, messages to stderr.
 
 mod args;
+pub mod basic;
 mod catalogue;
 mod commands;
 pub mod exit;
+pub mod output;
+pub mod serve;
 
 use std::ffi::OsString;
 use std::io::Write;
@@ -19,7 +22,6 @@ use clap::Parser;
 
 pub use exit::{CliError, Exit, Kind};
 
-use crate::output;
 use args::{Cli, Command, OutputArgs};
 
 /// `eprintln!` that never panics: a message that cannot be shown is no reason to crash.
@@ -73,7 +75,7 @@ fn dispatch(command: Command) -> Result<Exit, CliError> {
             print_out(&script)?;
             Ok(Exit::Ok)
         }
-        Command::Check { design } => print_text(&crate::commands::check(&design)?),
+        Command::Check { design } => print_text(&crate::cli::basic::check(&design)?),
         Command::Cathodes => print_text(&catalogue::cathodes()),
         Command::LightMatch {
             design,
@@ -82,7 +84,7 @@ fn dispatch(command: Command) -> Result<Exit, CliError> {
         } => catalogue::light_match(&design, &lines, photons),
         Command::Serve { design, port } => {
             let shown = design.display().to_string();
-            crate::serve::run(&design, port, |addr| {
+            crate::cli::serve::run(&design, port, |addr| {
                 say!("dynode: serving {shown} at http://{addr}/ (Ctrl-C stops)");
             })?;
             Ok(Exit::Ok)
@@ -147,7 +149,7 @@ fn emit(text: &str, out: &OutputArgs, inputs: &[&Path]) -> Result<(), CliError> 
 /// Write the figures into `dir` and say how many files that made.
 fn write_plots(
     dir: &Path,
-    figs: &[crate::plot::Figure],
+    figs: &[crate::report::plot::Figure],
     inputs: &[&Path],
     out: &OutputArgs,
 ) -> Result<(), CliError> {

@@ -7,11 +7,11 @@
 use serde::Deserialize;
 
 use super::{Checker, DesignError, RawDesign, Value};
-use crate::cathode::{self, Cathode, Curve};
-use crate::counting::CountingSpec;
-use crate::frontend::{ChargePreamp, FrontEnd, VoltageAmplifier};
-use crate::light::{self, Background, LightSpec, Shape, SourceKind, Spectrum};
-use crate::limits::{self, Range};
+use crate::budget::counting::CountingSpec;
+use crate::budget::frontend::{ChargePreamp, FrontEnd, VoltageAmplifier};
+use crate::design::limits::{self, Range};
+use crate::model::cathode::{self, Cathode, Curve};
+use crate::model::light::{self, Background, LightSpec, Shape, SourceKind, Spectrum};
 use crate::units::{self, Kind};
 
 /// Single-electron rise time assumed when the tube gives none (10–90 %, from memory: a few ns
@@ -439,12 +439,12 @@ pub struct SignalSpec {
 fn wavelength(c: &Checker, field: &str, v: &Value) -> Result<f64, DesignError> {
     // A length carries its unit ("405 nm"), as every quantity but volts and ohms does.
     let m = c.positive(field, v, Kind::Length)?;
-    if !crate::limits::WAVELENGTH.contains(m) {
+    if !crate::design::limits::WAVELENGTH.contains(m) {
         return Err(c.fail(
             field,
             format!(
                 "expected a wavelength from {} such as \"405 nm\", found {v}",
-                crate::limits::WAVELENGTH.describe()
+                crate::design::limits::WAVELENGTH.describe()
             ),
         ));
     }
@@ -591,12 +591,12 @@ fn check_light(c: &Checker, l: &RawLight) -> Result<LightSpec, DesignError> {
                 ))
             }
             RawAmount::Photons(n) => {
-                if !crate::limits::PHOTONS.contains(*n) {
+                if !crate::design::limits::PHOTONS.contains(*n) {
                     return Err(c.fail(
                         format!("{field}.Photons"),
                         format!(
                             "expected a number of photons {}, found {}",
-                            crate::limits::PHOTONS.describe(),
+                            crate::design::limits::PHOTONS.describe(),
                             units::show_number(*n)
                         ),
                     ));
@@ -619,7 +619,7 @@ fn check_light(c: &Checker, l: &RawLight) -> Result<LightSpec, DesignError> {
     };
     let mut intrinsic = None;
     let shape_of = |field: &str, s: Option<RawShape>, default: RawShape, w: &Value| {
-        let width = c.within(field, w, &crate::limits::LIGHT_PULSE_WIDTH)?;
+        let width = c.within(field, w, &crate::design::limits::LIGHT_PULSE_WIDTH)?;
         Ok::<Shape, DesignError>(match s.unwrap_or(default) {
             RawShape::Gaussian => Shape::Gaussian { fwhm: width },
             RawShape::Rectangular => Shape::Rectangular { width },
@@ -727,10 +727,18 @@ fn check_light(c: &Checker, l: &RawLight) -> Result<LightSpec, DesignError> {
                     format!("expected a positive energy in MeV, found {deposited_mev}"),
                 ));
             }
-            let decay = c.within("light.source.decay", decay, &crate::limits::LIGHT_DECAY)?;
+            let decay = c.within(
+                "light.source.decay",
+                decay,
+                &crate::design::limits::LIGHT_DECAY,
+            )?;
             let rise = match rise {
                 None => 0.0,
-                Some(v) => c.within("light.source.rise", v, &crate::limits::LIGHT_PULSE_WIDTH)?,
+                Some(v) => c.within(
+                    "light.source.rise",
+                    v,
+                    &crate::design::limits::LIGHT_PULSE_WIDTH,
+                )?,
             };
             if rise >= decay {
                 return Err(c.fail(
@@ -758,12 +766,12 @@ fn check_light(c: &Checker, l: &RawLight) -> Result<LightSpec, DesignError> {
         None => 1.0,
         Some(v) => {
             let x = c.quantity("light.coupling", v, Kind::Ratio)?;
-            if !crate::limits::LIGHT_COUPLING.contains(x) {
+            if !crate::design::limits::LIGHT_COUPLING.contains(x) {
                 return Err(c.fail(
                     "light.coupling",
                     format!(
                         "expected a fraction from {} such as \"30 %\", found {v}",
-                        crate::limits::LIGHT_COUPLING.describe()
+                        crate::design::limits::LIGHT_COUPLING.describe()
                     ),
                 ));
             }
@@ -896,7 +904,7 @@ fn check_readout(c: &Checker, r: &RawReadout) -> Result<ReadoutSpec, DesignError
             let length = c.within(
                 "readout.cable.length",
                 &k.length,
-                &crate::limits::CABLE_LENGTH,
+                &crate::design::limits::CABLE_LENGTH,
             )?;
             let impedance = c.ranged(
                 "readout.cable.impedance",
@@ -1082,7 +1090,7 @@ fn check_front_end(c: &Checker, f: &RawFrontEnd) -> Result<FrontEnd, DesignError
                 Some(g) => plain(c, "front_end.shaper_gain", *g, &limits::SHAPER_GAIN)?,
             },
             input_resistance: match input_resistance {
-                None => crate::frontend::TYPICAL_PREAMP_INPUT_OHMS,
+                None => crate::budget::frontend::TYPICAL_PREAMP_INPUT_OHMS,
                 Some(v) => c.within(
                     "front_end.input_resistance",
                     v,
@@ -1090,7 +1098,7 @@ fn check_front_end(c: &Checker, f: &RawFrontEnd) -> Result<FrontEnd, DesignError
                 )?,
             },
             input_capacitance: match input_capacitance {
-                None => crate::frontend::TYPICAL_PREAMP_INPUT_FARADS,
+                None => crate::budget::frontend::TYPICAL_PREAMP_INPUT_FARADS,
                 Some(v) => c.within(
                     "front_end.input_capacitance",
                     v,
@@ -1098,7 +1106,7 @@ fn check_front_end(c: &Checker, f: &RawFrontEnd) -> Result<FrontEnd, DesignError
                 )?,
             },
             noise_density: match noise_density {
-                None => crate::frontend::TYPICAL_PREAMP_NOISE,
+                None => crate::budget::frontend::TYPICAL_PREAMP_NOISE,
                 Some(v) => density(c, "front_end.noise_density", v, &limits::NOISE_DENSITY)?,
             },
             noise_current: match noise_current {
@@ -1147,7 +1155,7 @@ fn check_counting(c: &Checker, k: &RawCounting) -> Result<CountingSpec, DesignEr
             &limits::COINCIDENCE_WINDOW,
         )?,
         other_rate: opt("counting.other_rate", &k.other_rate, &limits::COUNT_RATE)?,
-        under_amplified: under.unwrap_or(crate::counting::TYPICAL_UNDER_AMPLIFIED),
+        under_amplified: under.unwrap_or(crate::budget::counting::TYPICAL_UNDER_AMPLIFIED),
         under_assumed: under.is_none(),
     })
 }

@@ -115,7 +115,7 @@ pub fn body(a: &Analysis) -> Option<String> {
                 out,
                 "  the follower on D{} reaches {:.0} % of its limit at an anode current of {} (gain {:+.2} %): past it the dynode is no longer held, it moves with the tube's current as on the passive divider, and the gain departs from linear",
                 l.dynode,
-                crate::active::AT_LIMIT * 100.0,
+                crate::budget::active::AT_LIMIT * 100.0,
                 eng(l.anode_amps, "A"),
                 l.deviation * 100.0
             );

@@ -1,10 +1,10 @@
 //! The core report's figures: gap voltages, gain against supply, DC linearity.
 //!
-//! Each is a [`Figure`] description with a stable name; [`crate::plot`] draws it. Later
+//! Each is a [`Figure`] description with a stable name; [`crate::report::plot`] draws it. Later
 //! capabilities add their own figures by returning more `Figure`s from [`all`].
 
 use crate::analysis::Analysis;
-use crate::plot::{Axis, Band, Figure, Marker, Style};
+use crate::report::plot::{Axis, Band, Figure, Marker, Style};
 
 use uom::si::electric_potential::volt;
 
@@ -33,7 +33,7 @@ pub fn gaps(a: &Analysis) -> Figure {
             .collect(),
     );
     f.integer_x = true;
-    f.legend = crate::plot::Legend::UpperRight;
+    f.legend = crate::report::plot::Legend::UpperRight;
     if let Some(m) = a.design.tube.max_gap {
         f.markers
             .push(Marker::Y(m.get::<volt>(), "tube's gap limit".to_string()));
@@ -122,7 +122,7 @@ pub fn linearity(a: &Analysis) -> Figure {
 }
 
 /// Gain of each pulse of the train relative to the first.
-pub fn train_gain(t: &crate::pulsetrain::TrainAnalysis) -> Figure {
+pub fn train_gain(t: &crate::budget::pulsetrain::TrainAnalysis) -> Figure {
     let mut f = Figure::new(
         "train-gain",
         "Gain of each pulse over the train, relative to the first",
@@ -143,7 +143,7 @@ pub fn train_gain(t: &crate::pulsetrain::TrainAnalysis) -> Figure {
 }
 
 /// Change of each decoupling capacitor's voltage over the train (downsampled series).
-pub fn train_droop(t: &crate::pulsetrain::TrainAnalysis) -> Option<Figure> {
+pub fn train_droop(t: &crate::budget::pulsetrain::TrainAnalysis) -> Option<Figure> {
     let s = &t.series;
     if s.cap_delta_volts.is_empty() || s.t.len() < 2 {
         return None;
@@ -161,14 +161,14 @@ pub fn train_droop(t: &crate::pulsetrain::TrainAnalysis) -> Option<Figure> {
             s.t.iter().copied().zip(dv.iter().copied()).collect(),
         );
     }
-    f.legend = crate::plot::Legend::LowerRight;
+    f.legend = crate::report::plot::Legend::LowerRight;
     Some(f)
 }
 
 /// The time window of the pulse itself on the computed record: from a little before the signal
 /// first reaches 1 % of the peak to a little after it falls back under 5 % (before the first
 /// cable echo can arrive), so that a 6 ns pulse is not drawn on a 600 ns axis.
-fn pulse_window(s: &crate::signal::SignalBudget) -> (f64, f64) {
+fn pulse_window(s: &crate::budget::signal::SignalBudget) -> (f64, f64) {
     let w = &s.waveform;
     let p = &s.pulse;
     let (t0, t1) = (
@@ -199,7 +199,7 @@ fn pulse_window(s: &crate::signal::SignalBudget) -> (f64, f64) {
 }
 
 /// Samples of the record within `[lo, hi]`, signed as the instrument shows them.
-fn displayed(w: &crate::waveform::Waveform, lo: f64, hi: f64) -> Vec<(f64, f64)> {
+fn displayed(w: &crate::solve::waveform::Waveform, lo: f64, hi: f64) -> Vec<(f64, f64)> {
     w.t.iter()
         .zip(&w.v)
         .filter(|(t, _)| **t >= lo && **t <= hi)
@@ -210,7 +210,7 @@ fn displayed(w: &crate::waveform::Waveform, lo: f64, hi: f64) -> Vec<(f64, f64)>
 /// The computed pulse at the load as the instrument shows it: negative-going (electrons
 /// arriving at the anode pull the signal node down, and a coupling capacitor passes the same
 /// edge), zoomed on the pulse, with its 10 % and 90 % levels and the peak in the title.
-pub fn pulse(s: &crate::signal::SignalBudget) -> Figure {
+pub fn pulse(s: &crate::budget::signal::SignalBudget) -> Figure {
     let w = &s.waveform;
     let p = &s.pulse;
     let (lo, hi) = pulse_window(s);
@@ -250,14 +250,14 @@ pub fn pulse(s: &crate::signal::SignalBudget) -> Figure {
             crate::units::format_eng(r, "s")
         ))
     );
-    f.legend = crate::plot::Legend::LowerRight;
+    f.legend = crate::report::plot::Legend::LowerRight;
     f
 }
 
 /// What follows the pulse over the whole computed record — cable echoes and the tail a
 /// coupling capacitor leaves — on a vertical scale set by them (the pulse itself runs off the
 /// figure, as the title says). `None` when nothing after the pulse reaches 0.5 % of its peak.
-pub fn pulse_after(s: &crate::signal::SignalBudget) -> Option<Figure> {
+pub fn pulse_after(s: &crate::budget::signal::SignalBudget) -> Option<Figure> {
     let w = &s.waveform;
     let p = &s.pulse;
     let (t0, hi) = pulse_window(s);
@@ -301,12 +301,12 @@ pub fn pulse_after(s: &crate::signal::SignalBudget) -> Option<Figure> {
             }
         }
     }
-    f.legend = crate::plot::Legend::LowerRight;
+    f.legend = crate::report::plot::Legend::LowerRight;
     Some(f)
 }
 
 /// The single-photoelectron spectrum with the noise, and the discriminator threshold.
-pub fn spe_spectrum(c: &crate::counting::PhotonCounting) -> Figure {
+pub fn spe_spectrum(c: &crate::budget::counting::PhotonCounting) -> Figure {
     let sp = &c.spectrum;
     let k = (sp.p.len() / 400).max(1);
     let pts: Vec<(f64, f64)> =
@@ -340,7 +340,7 @@ pub fn spe_spectrum(c: &crate::counting::PhotonCounting) -> Figure {
     );
     f.markers
         .push(Marker::X(c.threshold.1, "threshold".to_string()));
-    f.legend = crate::plot::Legend::UpperRight;
+    f.legend = crate::report::plot::Legend::UpperRight;
     f
 }
 
@@ -360,10 +360,10 @@ pub fn cathode(a: &Analysis) -> Figure {
     .with("quantum efficiency, window included", Style::Line, pts);
     if let Some(l) = &a.design.signal.light {
         match &l.spectrum {
-            crate::light::Spectrum::Line(nm) => {
+            crate::model::light::Spectrum::Line(nm) => {
                 f.markers.push(Marker::X(*nm, format!("{nm:.0} nm source")));
             }
-            crate::light::Spectrum::Band { centre, fwhm } => {
+            crate::model::light::Spectrum::Band { centre, fwhm } => {
                 f.markers
                     .push(Marker::X(*centre, format!("{centre:.0} nm source centre")));
                 f.markers
@@ -371,7 +371,7 @@ pub fn cathode(a: &Analysis) -> Figure {
                 f.markers
                     .push(Marker::X(centre + fwhm / 2.0, String::new()));
             }
-            crate::light::Spectrum::Table(_) => {
+            crate::model::light::Spectrum::Table(_) => {
                 let wsum: Vec<(f64, f64)> = l.spectrum.weights();
                 let peak = wsum.iter().map(|p| p.1).fold(0.0f64, f64::max);
                 if peak > 0.0 {
@@ -385,13 +385,13 @@ pub fn cathode(a: &Analysis) -> Figure {
             }
         }
     }
-    f.legend = crate::plot::Legend::UpperRight;
+    f.legend = crate::report::plot::Legend::UpperRight;
     f
 }
 
 /// Peak at the load and displayed rise against load resistance, from the load sweep: two
 /// figures, each with its own unit.
-pub fn load_sweep(s: &crate::signal::SignalBudget) -> Vec<Figure> {
+pub fn load_sweep(s: &crate::budget::signal::SignalBudget) -> Vec<Figure> {
     let rows = &s.sweep.rows;
     let window = |f: &mut Figure| {
         if let Some((lo, hi)) = s.sweep.window {
@@ -433,7 +433,7 @@ pub fn load_sweep(s: &crate::signal::SignalBudget) -> Vec<Figure> {
 /// Every figure of a report, in order.
 pub fn all(a: &Analysis) -> Vec<Figure> {
     let mut v = vec![
-        crate::schematic::figure(a),
+        crate::report::schematic::figure(a),
         gaps(a),
         gain_curve(a),
         linearity(a),

@@ -4,10 +4,10 @@
 use std::fmt::Write;
 
 use crate::analysis::Analysis;
-use crate::plot;
+use crate::budget::safety::CLOSING_CAUTION;
 use crate::report::figures;
+use crate::report::plot;
 use crate::report::tables::{self, Table};
-use crate::safety::CLOSING_CAUTION;
 
 /// Escape text for HTML.
 pub fn esc(s: &str) -> String {

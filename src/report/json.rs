@@ -8,8 +8,8 @@
 use serde_json::{Value, json};
 
 use crate::analysis::Analysis;
+use crate::budget::safety::{self, CAUTIONS, CLOSING_CAUTION};
 use crate::design::Polarity;
-use crate::safety::{self, CAUTIONS, CLOSING_CAUTION};
 use uom::si::electric_potential::volt;
 
 /// Version of the JSON layout; bumped when a key changes meaning or disappears.
@@ -120,7 +120,7 @@ pub fn to_value(a: &Analysis) -> Value {
             "shield_touch_amps": s.shield_touch_amps,
         },
         "train": super::train::json(a),
-        "parts": crate::parts::list(a).iter().map(|l| json!({
+        "parts": crate::budget::parts::list(a).iter().map(|l| json!({
             "designators": l.designators,
             "part": l.kind.word(),
             "value": l.value,
@@ -137,8 +137,8 @@ pub fn to_value(a: &Analysis) -> Value {
             "notes": l.notes,
         })).collect::<Vec<_>>(),
         "parts_margins": {
-            "voltage": crate::parts::VOLTAGE_MARGIN,
-            "power": crate::parts::POWER_MARGIN,
+            "voltage": crate::budget::parts::VOLTAGE_MARGIN,
+            "power": crate::budget::parts::POWER_MARGIN,
         },
         "warnings": warnings(&a.warnings),
         "assumptions": a.assumptions,

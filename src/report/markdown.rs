@@ -3,8 +3,8 @@
 use std::fmt::Write;
 
 use crate::analysis::Analysis;
+use crate::budget::safety::CLOSING_CAUTION;
 use crate::report::tables::{self, Table};
-use crate::safety::CLOSING_CAUTION;
 
 /// The design's own text (name, notes) as Markdown text: no raw HTML gets through, since many
 /// Markdown viewers render it (a name like `<img onerror=…>` must print, not run).

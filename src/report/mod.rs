@@ -10,6 +10,9 @@ pub mod finite;
 pub mod html;
 pub mod json;
 pub mod markdown;
+pub mod netlist;
+pub mod plot;
+pub mod schematic;
 pub mod signal;
 pub mod spread;
 pub mod supply;
@@ -92,7 +95,7 @@ pub fn render(a: &Analysis, format: Format) -> Result<String, finite::NonFinite>
         Format::Json => json::render(a)?,
         Format::Html => html::render(a),
         Format::Markdown => markdown::render(a),
-        Format::PartsCsv => crate::parts::csv(a),
+        Format::PartsCsv => crate::budget::parts::csv(a),
     })
 }
 
@@ -144,7 +147,7 @@ pub fn extra_sections(a: &Analysis) -> Vec<Section> {
         .collect();
     sections.push(Section {
         title: "Parts list".to_string(),
-        text: crate::parts::text(a),
+        text: crate::budget::parts::text(a),
         blocks: Some(tables::parts_blocks(a)),
     });
     sections

@@ -1,7 +1,7 @@
 //! The signal-budget sections of the reports: light → photoelectrons → pulse at the load →
 //! readability, timing, background, the photodiode alternative and the load sweep.
 //!
-//! Text and JSON renderings of [`crate::signal::SignalBudget`]; the JSON keys are documented in
+//! Text and JSON renderings of [`crate::budget::signal::SignalBudget`]; the JSON keys are documented in
 //! docs/json.md ("JSON schema"). Numbers are magnitudes: the anode pulse itself is
 //! negative-going.
 
@@ -11,9 +11,9 @@ use serde_json::{Value, json};
 
 use super::text::wrap;
 use crate::analysis::Analysis;
-use crate::signal::{SignalBudget, Verdict};
+use crate::budget::signal::{SignalBudget, Verdict};
+use crate::solve::waveform::PulseFigures;
 use crate::units::format_eng as eng;
-use crate::waveform::PulseFigures;
 
 fn opt_s(x: Option<f64>) -> String {
     x.map_or_else(|| "beyond the window".to_string(), |v| eng(v, "s"))
@@ -54,7 +54,7 @@ fn share(x: f64) -> String {
     }
 }
 
-fn front_end_text(out: &mut String, f: &crate::signal::FrontEndFigures) {
+fn front_end_text(out: &mut String, f: &crate::budget::signal::FrontEndFigures) {
     let _ = writeln!(out, "FRONT END (the pulse above is its output)");
     wrap(out, "  amplifier     ", &f.description);
     let _ = writeln!(
@@ -103,7 +103,7 @@ fn front_end_text(out: &mut String, f: &crate::signal::FrontEndFigures) {
     let _ = writeln!(out);
 }
 
-fn bench_text(out: &mut String, b: &crate::signal::Bench) {
+fn bench_text(out: &mut String, b: &crate::budget::signal::Bench) {
     match (b.transit, b.delay_per_volt) {
         (Some(t), Some(d)) => {
             wrap(
@@ -157,7 +157,7 @@ fn bench_text(out: &mut String, b: &crate::signal::Bench) {
     );
 }
 
-fn counting_text(out: &mut String, c: &crate::counting::PhotonCounting) {
+fn counting_text(out: &mut String, c: &crate::budget::counting::PhotonCounting) {
     let _ = writeln!(out, "PHOTON COUNTING");
     for n in &c.notes {
         wrap(out, "  * ", n);
@@ -314,7 +314,7 @@ pub fn render_text(out: &mut String, a: &Analysis) {
     );
     let circuit = format!(
         "{}; {} at low frequency, {} in all; RC = {}",
-        crate::signal::path_line(&a.design),
+        crate::budget::signal::path_line(&a.design),
         eng(c.pulse_resistance(), "Ω"),
         eng(c.total_capacitance(), "F"),
         eng(c.time_constant(), "s")
@@ -437,7 +437,7 @@ pub fn render_text(out: &mut String, a: &Analysis) {
                 &format!(
                     "{} (Monte Carlo of photoelectron arrivals, charges and the tube's response through this load, {} trials; the centroid estimate √(σ_TTS² + σ_light²)/√N would say {})",
                     eng(t.photon_jitter, "s"),
-                    crate::timing::TRIALS,
+                    crate::budget::timing::TRIALS,
                     eng(t.centroid_jitter, "s")
                 ),
             );
@@ -456,7 +456,7 @@ pub fn render_text(out: &mut String, a: &Analysis) {
                 out,
                 "  constant fraction   {} rms at {:.0} % of each pulse's own peak (removes amplitude walk to first order)",
                 eng(j, "s"),
-                crate::signal::CFD_FRACTION * 100.0
+                crate::budget::signal::CFD_FRACTION * 100.0
             );
         }
         let _ = writeln!(
@@ -527,15 +527,15 @@ pub fn render_text(out: &mut String, a: &Analysis) {
         let _ = writeln!(
             out,
             "PHOTODIODE ALTERNATIVE (silicon PIN, curve from memory; {} diode + input, amplifier {:.0} nV/√Hz assumed)",
-            eng(crate::signal::PHOTODIODE_CAPACITANCE, "F"),
-            crate::signal::AMPLIFIER_NOISE * 1e9
+            eng(crate::budget::signal::PHOTODIODE_CAPACITANCE, "F"),
+            crate::budget::signal::AMPLIFIER_NOISE * 1e9
         );
         let _ = writeln!(
             out,
             "  responsivity {:.3} A/W; charge {} ({} electrons); peak photocurrent {}",
             pd.responsivity,
             eng(pd.charge, "C"),
-            sci(pd.charge / crate::cathode::ELEMENTARY_CHARGE),
+            sci(pd.charge / crate::model::cathode::ELEMENTARY_CHARGE),
             eng(pd.peak_amps, "A")
         );
         let _ = writeln!(
@@ -764,7 +764,7 @@ pub fn add_json(v: &mut Value, a: &Analysis) {
     );
 }
 
-fn front_end_json(f: &crate::signal::FrontEndFigures) -> Value {
+fn front_end_json(f: &crate::budget::signal::FrontEndFigures) -> Value {
     json!({
         "kind": f.kind,
         "description": f.description,
@@ -785,7 +785,7 @@ fn front_end_json(f: &crate::signal::FrontEndFigures) -> Value {
     })
 }
 
-fn counting_json(c: &crate::counting::PhotonCounting) -> Value {
+fn counting_json(c: &crate::budget::counting::PhotonCounting) -> Value {
     // The spectrum in at most 200 points (cell sums), as a density per unit of the mean.
     let k = (c.spectrum.p.len() / 200).max(1);
     let (mut x, mut density) = (Vec::new(), Vec::new());

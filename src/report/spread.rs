@@ -7,10 +7,10 @@ use std::fmt::Write;
 
 use serde_json::{Value, json};
 
+use crate::budget::safety::{CAUTIONS, CLOSING_CAUTION};
 use crate::report::doc::{Block, Column, Doc, Table, scale, sig4};
 use crate::report::text::{caution_block, wrap};
-use crate::safety::{CAUTIONS, CLOSING_CAUTION};
-use crate::spread::{Percentiles, Spread};
+use crate::study::spread::{Percentiles, Spread};
 use crate::units::format_eng as eng;
 
 fn p3(p: &Percentiles, f: &dyn Fn(f64) -> String) -> String {
@@ -259,8 +259,8 @@ pub fn json(s: &Spread) -> Result<String, super::finite::NonFinite> {
 
 /// The figures: one histogram per output in [`Spread::histograms`], with the 1/50/99 %
 /// percentiles marked where they are known.
-pub fn figures(s: &Spread) -> Vec<crate::plot::Figure> {
-    use crate::plot::{Axis, Figure, Marker, Style};
+pub fn figures(s: &Spread) -> Vec<crate::report::plot::Figure> {
+    use crate::report::plot::{Axis, Figure, Marker, Style};
     s.histograms
         .iter()
         .filter(|h| !h.centres.is_empty())
@@ -299,7 +299,7 @@ pub fn figures(s: &Spread) -> Vec<crate::plot::Figure> {
                     f.markers.push(Marker::X(v * k, l.to_string()));
                 }
             }
-            f.legend = crate::plot::Legend::UpperRight;
+            f.legend = crate::report::plot::Legend::UpperRight;
             f
         })
         .collect()

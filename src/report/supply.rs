@@ -1,12 +1,12 @@
 //! The supply-quality section of the report (text and JSON): ripple and drift as gain changes,
-//! and the supply stability a gain stability needs ([`crate::stability`]).
+//! and the supply stability a gain stability needs ([`crate::budget::stability`]).
 
 use std::fmt::Write;
 
 use serde_json::Value;
 
 use crate::analysis::Analysis;
-use crate::stability;
+use crate::budget::stability;
 use crate::units::format_eng as eng;
 
 /// Title of the section.

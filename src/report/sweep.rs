@@ -6,11 +6,11 @@ use std::fmt::Write;
 
 use serde_json::{Value, json};
 
+use crate::budget::safety::{CAUTIONS, CLOSING_CAUTION};
 use crate::design::Design;
 use crate::report::doc::{Block, Column, Doc, Table, scale, sig4};
 use crate::report::text::wrap;
-use crate::safety::{CAUTIONS, CLOSING_CAUTION};
-use crate::sweep::Sweep;
+use crate::study::sweep::Sweep;
 use crate::units::{Kind, format_eng as eng};
 
 const RULE: &str =
@@ -78,11 +78,14 @@ pub fn text(design: &Design, s: &Sweep) -> String {
         let _ = write!(head, "{name:>12} ");
     }
     let pulse = s.rows.iter().any(|r| r.pulse_peak_volts.is_some());
-    if !pulse && design.signal.light.is_some() && s.rows.len() > crate::sweep::MAX_SIGNAL_POINTS {
+    if !pulse
+        && design.signal.light.is_some()
+        && s.rows.len() > crate::study::sweep::MAX_SIGNAL_POINTS
+    {
         let _ = writeln!(
             out,
             "(the pulse, rise, S/N and droop columns are computed for sweeps of up to {} points)\n",
-            crate::sweep::MAX_SIGNAL_POINTS
+            crate::study::sweep::MAX_SIGNAL_POINTS
         );
     }
     let pulse_head = if pulse {
@@ -166,8 +169,8 @@ pub fn json(design: &Design, s: &Sweep) -> Result<String, super::finite::NonFini
 
 /// The figures: gain (small-signal and at the operating point) and the ±1 % linearity limit
 /// against the first swept value; with a second axis, one line per value of it.
-pub fn figures(s: &Sweep) -> Vec<crate::plot::Figure> {
-    use crate::plot::{Axis, Figure, Style};
+pub fn figures(s: &Sweep) -> Vec<crate::report::plot::Figure> {
+    use crate::report::plot::{Axis, Figure, Style};
     let Some(first) = s.axes.first() else {
         return Vec::new();
     };
@@ -184,7 +187,7 @@ pub fn figures(s: &Sweep) -> Vec<crate::plot::Figure> {
         }
     };
     // Groups: one per value of the second axis (or a single group).
-    let groups: Vec<(String, Vec<&crate::sweep::Row>)> = match s.axes.get(1) {
+    let groups: Vec<(String, Vec<&crate::study::sweep::Row>)> = match s.axes.get(1) {
         None => vec![(String::new(), s.rows.iter().collect())],
         Some(b) => b
             .values
@@ -205,7 +208,7 @@ pub fn figures(s: &Sweep) -> Vec<crate::plot::Figure> {
     };
     // A log axis only where the values span more than a decade (fewer ticks otherwise).
     let y_axis =
-        |label: &str, unit: Option<&str>, f: &dyn Fn(&crate::sweep::Row) -> Option<f64>| {
+        |label: &str, unit: Option<&str>, f: &dyn Fn(&crate::study::sweep::Row) -> Option<f64>| {
             let v: Vec<f64> = s.rows.iter().filter_map(f).filter(|y| *y > 0.0).collect();
             let (lo, hi) = v
                 .iter()
@@ -236,7 +239,7 @@ pub fn figures(s: &Sweep) -> Vec<crate::plot::Figure> {
     // A grid draws one small-signal line per value of the second axis only where it differs
     // from the one before (the operating current, say, leaves it alone), so the legend stays
     // short; the legend goes to the side the gain leaves free.
-    let g0_of = |rows: &Vec<&crate::sweep::Row>| -> Vec<f64> {
+    let g0_of = |rows: &Vec<&crate::study::sweep::Row>| -> Vec<f64> {
         rows.iter().filter_map(|r| r.small_signal_gain).collect()
     };
     let all_same = groups.len() > 1
@@ -244,7 +247,7 @@ pub fn figures(s: &Sweep) -> Vec<crate::plot::Figure> {
             let (a, b) = (g0_of(&w[0].1), g0_of(&w[1].1));
             a.len() == b.len() && a.iter().zip(&b).all(|(x, y)| (x / y - 1.0).abs() < 1e-9)
         });
-    let l1_of = |rows: &Vec<&crate::sweep::Row>| -> Vec<f64> {
+    let l1_of = |rows: &Vec<&crate::study::sweep::Row>| -> Vec<f64> {
         rows.iter().filter_map(|r| r.linearity_1pct_amps).collect()
     };
     let all_same_l1 = groups.len() > 1
@@ -256,7 +259,7 @@ pub fn figures(s: &Sweep) -> Vec<crate::plot::Figure> {
     let mut last_g0: Option<Vec<(f64, f64)>> = None;
     for (label, rows) in &groups {
         let sep = if label.is_empty() { "" } else { ", " };
-        let pts = |f: &dyn Fn(&crate::sweep::Row) -> Option<f64>| -> Vec<(f64, f64)> {
+        let pts = |f: &dyn Fn(&crate::study::sweep::Row) -> Option<f64>| -> Vec<(f64, f64)> {
             rows.iter()
                 .filter_map(|r| {
                     f(r).filter(|y| y.is_finite() && *y > 0.0)
@@ -302,14 +305,14 @@ pub fn figures(s: &Sweep) -> Vec<crate::plot::Figure> {
         }
         last_l1 = Some(l1);
     }
-    let falls = |f: &crate::plot::Figure| {
+    let falls = |f: &crate::report::plot::Figure| {
         f.series
             .first()
             .is_some_and(|s| s.points.len() > 1 && s.points[0].1 > s.points[s.points.len() - 1].1)
     };
     for f in [&mut gain, &mut lin] {
         if falls(f) {
-            f.legend = crate::plot::Legend::UpperRight;
+            f.legend = crate::report::plot::Legend::UpperRight;
         }
     }
     vec![gain, lin]
@@ -349,15 +352,19 @@ pub fn document(design: &Design, s: &Sweep, figures: &[(String, String)]) -> Doc
         "At {at}. ±1 % limit: the anode current where the DC gain deviation first reaches 1 %. Pulse: peak at the load (negative-going); rise as displayed; S/N: peak over baseline noise; droop: Q/(C·V) per pulse on the last gap's capacitor."
     )));
     let pulse = s.rows.iter().any(|r| r.pulse_peak_volts.is_some());
-    if !pulse && design.signal.light.is_some() && s.rows.len() > crate::sweep::MAX_SIGNAL_POINTS {
+    if !pulse
+        && design.signal.light.is_some()
+        && s.rows.len() > crate::study::sweep::MAX_SIGNAL_POINTS
+    {
         b.push(Block::Paragraph(format!(
             "The pulse, rise, S/N and droop columns are computed for sweeps of up to {} points.",
-            crate::sweep::MAX_SIGNAL_POINTS
+            crate::study::sweep::MAX_SIGNAL_POINTS
         )));
     }
     // Each column's prefix from its first figure, so that a column reads in one unit.
-    let first =
-        |f: &dyn Fn(&crate::sweep::Row) -> Option<f64>| s.rows.iter().find_map(f).unwrap_or(1.0);
+    let first = |f: &dyn Fn(&crate::study::sweep::Row) -> Option<f64>| {
+        s.rows.iter().find_map(f).unwrap_or(1.0)
+    };
     let mut columns = Vec::new();
     let mut axis_scales = Vec::new();
     for a in &s.axes {

@@ -1,8 +1,8 @@
 //! The report's content as labelled rows and tables, shared by the HTML and Markdown renderers.
 
 use crate::analysis::Analysis;
+use crate::budget::safety;
 use crate::design::{GainSpec, Polarity};
-use crate::safety;
 use crate::units::format_eng as eng;
 use uom::si::electric_current::ampere;
 use uom::si::electric_potential::volt;
@@ -78,7 +78,7 @@ pub fn design(a: &Analysis) -> Table {
                     .map_or_else(|| "not given".into(), |i| eng(i.get::<ampere>(), "A"))
             ),
         ),
-        kv("signal path", crate::signal::path_line(d)),
+        kv("signal path", crate::budget::signal::path_line(d)),
         kv(
             "operating at",
             format!("{} average anode current", eng(a.op.anode_amps(), "A")),
@@ -281,13 +281,13 @@ pub fn cautions(a: &Analysis) -> Vec<String> {
 /// parts, ratings to order beside what each part sees, the units in the column headers.
 pub fn parts_blocks(a: &Analysis) -> Vec<crate::report::doc::Block> {
     use crate::report::doc::{Block, Column, Table, sig4};
-    let lines = crate::parts::list(a);
+    let lines = crate::budget::parts::list(a);
     let o = |x: Option<f64>, scale: f64| x.map_or("—".to_string(), |v| sig4(v / scale));
     let rows = lines
         .iter()
         .map(|l| {
             vec![
-                crate::parts::designator_text(&l.designators),
+                crate::budget::parts::designator_text(&l.designators),
                 l.count.to_string(),
                 l.kind.word().to_string(),
                 l.value_text(),
@@ -328,8 +328,8 @@ pub fn parts_blocks(a: &Analysis) -> Vec<crate::report::doc::Block> {
         }),
         Block::Paragraph(format!(
             "Ratings: at least {}× the highest voltage a part sees (with or without the tube's current) and {}× its dissipation (common practice, from memory); the design's own ratings are kept where they meet that.",
-            crate::parts::VOLTAGE_MARGIN,
-            crate::parts::POWER_MARGIN
+            crate::budget::parts::VOLTAGE_MARGIN,
+            crate::budget::parts::POWER_MARGIN
         )),
     ]
 }

@@ -4,8 +4,8 @@
 use std::fmt::Write;
 
 use crate::analysis::Analysis;
+use crate::budget::safety::{self, CAUTIONS, CLOSING_CAUTION};
 use crate::design::{GainSpec, Polarity};
-use crate::safety::{self, CAUTIONS, CLOSING_CAUTION};
 use crate::units::format_eng as eng;
 use uom::si::electric_current::ampere;
 use uom::si::electric_potential::volt;
@@ -136,7 +136,7 @@ pub fn render(a: &Analysis) -> String {
         d.decoupling.len(),
         eng(d.stray.get::<uom::si::capacitance::farad>(), "F")
     );
-    let _ = writeln!(out, "  signal path {}", crate::signal::path_line(d));
+    let _ = writeln!(out, "  signal path {}", crate::budget::signal::path_line(d));
     let _ = writeln!(
         out,
         "  operating   average anode current {}",
@@ -353,7 +353,7 @@ pub fn render(a: &Analysis) -> String {
     super::train::text(&mut out, a);
     super::signal::render_text(&mut out, a);
     let _ = writeln!(out, "PARTS LIST");
-    out.push_str(&crate::parts::text(a));
+    out.push_str(&crate::budget::parts::text(a));
     let _ = writeln!(out);
 
     let _ = writeln!(out, "WARNINGS");

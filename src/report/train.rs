@@ -8,10 +8,10 @@ use std::fmt::Write;
 use serde_json::{Value, json};
 
 use crate::analysis::Analysis;
-use crate::pulsetrain::{self, TrainAnalysis};
+use crate::budget::pulsetrain::{self, TrainAnalysis};
+use crate::budget::safety::{CHARGE_LIMIT_COULOMBS, CLOSING_CAUTION, ENERGY_LIMIT_JOULES};
+use crate::design::train::{ELEMENTARY_CHARGE, PulseSize};
 use crate::report::text::{caution_block, wrap};
-use crate::safety::{CHARGE_LIMIT_COULOMBS, CLOSING_CAUTION, ENERGY_LIMIT_JOULES};
-use crate::train::{ELEMENTARY_CHARGE, PulseSize};
 use crate::units::format_eng as eng;
 
 fn fin(x: f64) -> Value {
@@ -231,14 +231,14 @@ fn section(out: &mut String, t: &TrainAnalysis, a: &Analysis) {
                 s.allowed * 100.0,
                 match t.spec.pattern {
                     _ if !s.for_ever
-                        && !matches!(t.spec.pattern, crate::train::Pattern::Single) =>
+                        && !matches!(t.spec.pattern, crate::design::train::Pattern::Single) =>
                         if s.pulses_sized < t.count {
                             "over the train's first 200 pulses from rest: the base has no steady state at its rate"
                         } else {
                             "over this train from rest: the base has no steady state at its rate"
                         },
-                    crate::train::Pattern::Single => "one pulse from rest",
-                    crate::train::Pattern::Poisson(..) =>
+                    crate::design::train::Pattern::Single => "one pulse from rest",
+                    crate::design::train::Pattern::Poisson(..) =>
                         "the rate continuing for ever, Poisson arrivals: the drop beyond the mean shift exceeded by 1 % of pulses",
                     _ =>
                         "the pattern continuing for ever: the drop a period's pulses add in the periodic steady state",
@@ -268,7 +268,7 @@ fn section(out: &mut String, t: &TrainAnalysis, a: &Analysis) {
             "    ",
             &format!(
                 "Ratings: {}× the voltage each capacitor holds (common practice), rounded up to a common rating. The recommended capacitors store {} in all ({} {} than the fitted ones); quoted limits {} mJ and {} µC (IEC 61010-1, from memory).{}",
-                crate::eseries::CAPACITOR_RATING_MARGIN,
+                crate::model::eseries::CAPACITOR_RATING_MARGIN,
                 eng(s.total_joules, "J"),
                 eng(s.added_joules.abs(), "J"),
                 if s.added_joules >= 0.0 {
@@ -551,7 +551,7 @@ pub fn render(
     Ok(match format {
         Format::Text => render_text(a),
         Format::Json => render_json(a)?,
-        Format::PartsCsv => crate::parts::csv(a),
+        Format::PartsCsv => crate::budget::parts::csv(a),
         Format::Html | Format::Markdown => {
             let text = section_text(a).unwrap_or_else(|| {
                 "The design gives no train block; nothing to solve in time.\n".to_string()

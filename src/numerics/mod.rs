@@ -1,0 +1,3 @@
+//! Numerical kernels shared by the solves, with no knowledge of tubes or circuits.
+
+pub mod band;
