@@ -22,8 +22,9 @@
 //!   (the supply unchanged): the pulse-linearity limits and the small-signal gain of both.
 
 use crate::budget::safety::{CHARGE_LIMIT_COULOMBS, ENERGY_LIMIT_JOULES};
-use crate::design::train::{ELEMENTARY_CHARGE, Pattern, PulseSize, Shape, TrainSpec};
+use crate::design::train::{Pattern, PulseSize, Shape, TrainSpec};
 use crate::design::{CapStyle, Design, Element};
+use crate::model::constants::ELEMENTARY_CHARGE;
 use crate::model::tube::TubeModel;
 use crate::solve::transient::{Base, Run, RunOptions, Sample, TransientError};
 use crate::units::format_eng as eng;

@@ -380,7 +380,7 @@ pub struct CableSpec {
 impl CableSpec {
     /// One-way delay, s.
     pub fn delay(&self) -> f64 {
-        self.length / (self.velocity * cathode::LIGHT_SPEED)
+        self.length / (self.velocity * crate::model::constants::LIGHT_SPEED)
     }
 }
 

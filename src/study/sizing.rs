@@ -53,7 +53,6 @@ use uom::si::electric_potential::volt;
 use uom::si::electrical_resistance::ohm;
 use uom::si::power::watt;
 
-pub use crate::model::constants::ELEMENTARY_CHARGE;
 /// Fraction of the allowed deviation the bisection aims at, keeping the rest for snapping.
 pub const DEVIATION_MARGIN: f64 = 0.85;
 /// Default power derating: parts run at no more than half their rated power (common practice).
