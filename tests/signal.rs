@@ -1,15 +1,15 @@
 //! Signal budget: quantum efficiency, pulse charge and amplitude, the pulse at the load, noise,
 //! excess noise and reflections, each against an outside source named beside the check.
 
-use std::process::Command;
-
 use dynode::budget::signal::{self, NOISE_TEMPERATURE, johnson_density};
 use dynode::model::cathode::{self, Cathode, qe_from_sensitivity};
 use dynode::model::light::Shape;
 use dynode::model::tube::TubeModel;
 use dynode::solve::waveform::{self, CurrentPulse, Line, LoadCircuit};
 
-use crate::common::{crate_path, demo_designs, ngspice_available, rel, temp_dir};
+use crate::common::{
+    crate_path, demo_designs, ngspice_available, ngspice_batch, rel, temp_dir, wrdata_columns,
+};
 
 const E: f64 = 1.602_176_634e-19;
 
@@ -216,28 +216,8 @@ pub fn ngspice_wave(
         pulse.dt,
         out.display()
     );
-    let file = dir.join("check.cir");
-    std::fs::write(&file, cir).unwrap();
-    let o = Command::new("ngspice")
-        .arg("-b")
-        .arg(&file)
-        .output()
-        .unwrap();
-    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
-    let text = std::fs::read_to_string(&out).unwrap();
-    let mut t = Vec::new();
-    let mut v = Vec::new();
-    for line in text.lines() {
-        let cols: Vec<f64> = line
-            .split_whitespace()
-            .filter_map(|x| x.parse().ok())
-            .collect();
-        if cols.len() >= 2 {
-            t.push(cols[0]);
-            v.push(cols[1]);
-        }
-    }
-    (t, v)
+    ngspice_batch(&cir, &dir, "check");
+    wrdata_columns(&out)
 }
 
 /// Peak and 10–90 % rise within 1 % of ngspice's.
@@ -483,27 +463,9 @@ fn ngspice_points(name: &str, points: &[(f64, f64)], body: &str, stop: f64) -> w
         "* analytic pulse\nI1 0 a PWL({pwl})\n{body}\n.options numdgt=7 reltol=1e-6\n.control\nset wr_singlescale\ntran {h:e} {stop:e} 0 {h:e}\nwrdata {} v(out)\nquit 0\n.endc\n.end\n",
         out.display()
     );
-    let file = dir.join("check.cir");
-    std::fs::write(&file, cir).unwrap();
-    let o = Command::new("ngspice")
-        .arg("-b")
-        .arg(&file)
-        .output()
-        .unwrap();
-    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
-    let text = std::fs::read_to_string(&out).unwrap();
-    let mut w = waveform::Waveform::default();
-    for line in text.lines() {
-        let c: Vec<f64> = line
-            .split_whitespace()
-            .filter_map(|x| x.parse().ok())
-            .collect();
-        if c.len() >= 2 {
-            w.t.push(c[0]);
-            w.v.push(c[1]);
-        }
-    }
-    w
+    ngspice_batch(&cir, &dir, "check");
+    let (t, v) = wrdata_columns(&out);
+    waveform::Waveform { t, v }
 }
 
 #[test]
