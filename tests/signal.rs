@@ -27,9 +27,9 @@ fn rc_circuit(r: f64, c: f64) -> LoadCircuit {
 
 #[test]
 fn codata_quantum_efficiency_points() {
-    // CODATA 2018 exact constants: hc/e = 1239.8419843320… nm·W/A (checks.md, seen).
+    // CODATA 2018 exact constants: hc/e = 1239.8419843320… nm·W/A (CODATA 2018: h, c, e exact).
     assert!((cathode::hc_over_e_nm() - 1_239.841_984_332).abs() < 1e-6);
-    // Computed points in checks.md: 0.1 A/W at 420 nm → 29.52 %; 0.08 A/W at 400 nm → 24.80 %;
+    // Computed from QE = S·hc/(eλ) with those constants: 0.1 A/W at 420 nm → 29.52 %; 0.08 A/W at 400 nm → 24.80 %;
     // 2.7 mA/W at 800 nm → 0.418 %. Tolerance: the last quoted digit.
     assert!((qe_from_sensitivity(0.1, 420.0) * 100.0 - 29.52).abs() < 0.005);
     assert!((qe_from_sensitivity(0.08, 400.0) * 100.0 - 24.80).abs() < 0.005);
@@ -103,7 +103,7 @@ fn roy_clarke_18_11_3_integrating_limit() {
 #[test]
 fn step_into_rc_rises_in_ln9_rc() {
     // Standard first-order derivation: 10–90 % of a step into R‖C is RC ln 9 = 2.1972 RC
-    // (checks.md, seen). Measured numerically on the computed waveform, within 0.5 %.
+    // (textbook). Measured numerically on the computed waveform, within 0.5 %.
     for (r, c) in [(50.0, 20e-12), (1e3, 15e-12), (1e6, 30e-12)] {
         let tau = r * c;
         let pulse = waveform::step_pulse(1e-3, 20.0 * tau, tau / 400.0);
@@ -119,7 +119,7 @@ fn step_into_rc_rises_in_ln9_rc() {
 
 #[test]
 fn johnson_nyquist_densities() {
-    // √(4 k T R) with exact k_B (checks.md, computed): 1 kΩ at 290 K 4.0019 nV/√Hz, at 300 K
+    // √(4 k T R) with exact k_B (CODATA 2018 k_B, computed by hand): 1 kΩ at 290 K 4.0019 nV/√Hz, at 300 K
     // 4.0704 nV/√Hz (4.07 seen in reference tables); 50 Ω at 290 K 0.8949 nV/√Hz.
     assert!(rel(johnson_density(1e3, NOISE_TEMPERATURE), 4.0019e-9) < 2e-5);
     assert!(rel(johnson_density(1e3, 300.0), 4.0704e-9) < 2e-5);
@@ -128,7 +128,7 @@ fn johnson_nyquist_densities() {
 
 #[test]
 fn excess_noise_factors_of_a_poisson_cascade() {
-    // F = 1 + 1/δ1 + 1/(δ1 δ2) + … (textbook theory, from memory; checks.md):
+    // F = 1 + 1/δ1 + 1/(δ1 δ2) + … (textbook theory of a Poisson cascade, from memory):
     // uniform δ = 4 → 1.333; δ = 5 → 1.25; δ1 = 10 then δ = 4 → 1.133. Ten stages leave a
     // remainder below 1e-6 of the infinite series.
     let model = |a: f64, k: f64| TubeModel {
@@ -370,7 +370,7 @@ fn every_demo_reports_the_signal_keys() {
 
 #[test]
 fn every_builtin_cathode_has_a_peak_and_cutoffs() {
-    // checks.md "Photocathodes" (typical, from memory): S-1 peaks in the near infrared and
+    // Typical photocathode curves in the trade literature (from memory): S-1 peaks in the near infrared and
     // reaches past 1000 nm; GaAs is flat to its band-gap edge near 870 nm (Eg = 1.424 eV).
     for c in cathode::builtin_cathodes() {
         let k = Cathode::builtin(&c.key, None).unwrap();
