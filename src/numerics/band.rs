@@ -1,4 +1,6 @@
-//! Band LU with partial pivoting and the band-plus-border system of a time step.
+//! Band LU with partial pivoting (the one band solver: the DC Newton solve and the time steps
+//! use it) and the band-plus-border system of a time step. Both systems have `KL = 5` below and
+//! `KU = 3` above the diagonal: the interleaved unknowns of a dynode chain.
 
 /// Where a node's potential comes from.
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -36,8 +38,25 @@ impl BandLu {
         &mut self.ab[r * W + c + KL - r]
     }
     #[inline]
-    fn get(&self, r: usize, c: usize) -> f64 {
+    pub(crate) fn get(&self, r: usize, c: usize) -> f64 {
         self.ab[r * W + c + KL - r]
+    }
+    /// Add `v` to entry (r, c), which lies in the band (`r ≤ c + KL`, `c ≤ r + KU`).
+    #[inline]
+    pub(crate) fn add(&mut self, r: usize, c: usize, v: f64) {
+        *self.at(r, c) += v;
+    }
+    /// Zero every entry (a new matrix of the same size).
+    pub(crate) fn clear(&mut self) {
+        self.ab.fill(0.0);
+    }
+    /// Factor in place and solve `A x = b` (`b` becomes `x`); false when `A` is singular.
+    pub(crate) fn factor_solve(&mut self, b: &mut [f64]) -> bool {
+        if !self.factor() {
+            return false;
+        }
+        self.solve(b);
+        true
     }
     fn factor(&mut self) -> bool {
         let m = self.m;
