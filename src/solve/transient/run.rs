@@ -19,6 +19,9 @@ impl Base {
     /// [`Base::run`] from the node potentials `start` (at time 0, with no tube current and a
     /// constant past) instead of the DC state; the records (droop, gain ratio, recovery) stay
     /// relative to the DC state with no tube current.
+    ///
+    /// Longer than most (about 160 lines): the set-up and the one loop over the steps, in which
+    /// every branch is a named step; the loop's state is shared by all of them.
     pub fn run_from(
         &self,
         start: Option<&[f64]>,
@@ -41,19 +44,15 @@ impl Base {
             qk,
             support: shape.support(),
         };
-        let feature = shape.feature();
         let signal_initial = self.signal_volts(&reference);
         let elements_initial = self.elements_of(&reference);
         let sig_scale = self.signal_scale(qk, shape, initial_gain);
         let tol = self.tolerances(&reference, &g0_gaps, sig_scale, signal_initial, opts);
-        let breaks = train.breaks();
         let train_end = train.end();
         let recovery_horizon = self.recovery_horizon();
-        let t_stop = match (opts.stop_at, opts.recovery_band) {
-            (Some(t), _) => t.max(train_end),
-            (None, Some(_)) => train_end + recovery_horizon,
-            (None, None) => train_end,
-        };
+        // History: potentials at the last three accepted times (a DC state has a constant past).
+        let span = Span::new(train_end, recovery_horizon, shape.feature(), opts);
+        let (t_stop, h_start) = (span.t_stop, span.h_start);
         let mut watch = Watch::new(
             self,
             &reference,
@@ -70,47 +69,17 @@ impl Base {
         if opts.record {
             watch.observe(self, 0.0, &nv, t[n], 0, false);
         }
-        // History: potentials at the last three accepted times (a DC state has a constant past).
-        let h_start = feature / 50.0;
-        let span = Span {
-            train_end,
-            t_stop,
-            feature,
-            h_start,
+        let mut st = State::new(nv, t, h_start, train.cathode(0.0));
+        let mut stepper = Stepper {
+            breaks: train.breaks(),
+            next: 0,
+            ws: Scratch::default(),
+            hist: vec![0.0; self.caps.len()],
         };
-        let mut st = State {
-            hist_v: [nv.clone(), nv.clone(), nv.clone()],
-            hist_t: [0.0, -h_start, -2.0 * h_start],
-            trial_nv: nv.clone(),
-            trial_t: t.clone(),
-            nv,
-            t,
-            time: 0.0,
-            h: h_start,
-            ik_prev: train.cathode(0.0),
-            after_bp: true,
-        };
-        let mut bp_idx = 0;
-        let mut ws = Scratch::default();
-        let mut hist = vec![0.0; self.caps.len()];
         let (mut accepted, mut rejected) = (0usize, 0usize);
         let mut modal: Option<Modal> = None;
         let mut quiet_jumps = 0usize;
-        let mut map = MapRun {
-            lay: Layout::of(self),
-            scale: g0_gaps
-                .iter()
-                .fold(f64::INFINITY, |m, g| m.min(g.abs()))
-                .max(1.0),
-            map: None,
-            off: !(opts.exact_quiet && opts.pulse_map)
-                || qk <= 0.0
-                || arrivals.len() < 2
-                || !self.followers.is_empty(),
-            pending: None,
-            mapped: 0,
-            solves: 0,
-        };
+        let mut map = MapRun::new(self, &g0_gaps, qk, arrivals, opts);
         // The step budget grows with the train: a few hundred steps resolve one pulse.
         let budget = opts.max_steps.max(400 * arrivals.len() + 100_000);
         while st.time < t_stop * (1.0 - 1e-15) {
@@ -143,94 +112,30 @@ impl Base {
                 .then(|| isolated(arrivals, st.time, train.support, t_stop))
                 .flatten();
             if let Some(idx) = iso {
-                let end = arrivals[idx] + train.support;
-                let pred = match map.map.as_mut().map(|m| m.consult(&st.nv)) {
-                    Some(Use::Map(out)) => {
-                        let in_train = st.time < train_end * (1.0 - 1e-14);
-                        self.apply_mapped(
-                            &map.lay, &out, idx, st.time, end, &mut watch, &mut st.nv,
-                        );
-                        for (j, q) in gap_charges.iter_mut().enumerate() {
-                            *q += out.y[map.lay.gap_charge(j)];
-                        }
-                        st.t.iter_mut().for_each(|x| *x = 0.0);
-                        st.time = end;
-                        if (st.time - train_end).abs() <= 1e-12 * train_end.max(1e-30) {
-                            self.mark_train_end(&st.nv, &mut ends, Some(&mut watch));
-                        }
-                        let stop = watch.observe(self, st.time, &st.nv, 0.0, idx + 1, in_train);
-                        // A constant past: the quiet interval after the pulse restarts it.
-                        st.hist_v = [st.nv.clone(), st.nv.clone(), st.nv.clone()];
-                        st.hist_t = [st.time, st.time - h_start, st.time - 2.0 * h_start];
-                        st.ik_prev = train.cathode(st.time);
-                        st.h = h_start;
-                        map.mapped += 1;
-                        if stop && opts.stop_at.is_none() {
-                            break;
-                        }
-                        continue;
-                    }
-                    Some(Use::Full(pred)) => pred,
-                    None => None,
+                let mut books = Books {
+                    watch: &mut watch,
+                    gap_charges: &mut gap_charges,
+                    ends: &mut ends,
                 };
-                map.pending = Some(Pending {
-                    idx,
-                    end,
-                    x: st.nv.clone(),
-                    gap0: gap_charges.clone(),
-                    mins: (0..map.lay.caps).map(|_| f64::INFINITY).collect(),
-                    min_times: vec![0.0; map.lay.caps],
-                    pred,
-                });
-            }
-            while bp_idx < breaks.len() && breaks[bp_idx] <= st.time * (1.0 + 1e-14) + 1e-300 {
-                bp_idx += 1;
-            }
-            let next_bp = breaks.get(bp_idx).copied().unwrap_or(t_stop).min(t_stop);
-            let landing = st.step_to(next_bp, &train, feature);
-            let t_new = st.time + st.h;
-            let a0 = self.predict(&mut st, t_new, &mut hist);
-            let ik = train.cathode(t_new);
-            self.forward_currents(ik, &st.trial_nv, &mut st.trial_t);
-            let solved = self.newton(
-                ik,
-                a0,
-                &hist,
-                &mut st.trial_nv,
-                &mut st.trial_t,
-                &tol.newton,
-                &mut ws,
-            );
-            if let Err(reason) = solved {
-                rejected += 1;
-                st.h *= 0.25;
-                if st.h < 1e-6 * feature.min(1e-12) {
-                    return Err(TransientError::Failed {
-                        time: st.time,
-                        reason,
-                    });
+                match self.isolated_pulse(idx, &train, &span, &mut st, &mut map, &mut books) {
+                    Some(true) if opts.stop_at.is_none() => break,
+                    Some(_) => continue,
+                    None => {}
                 }
-                continue;
             }
-            let err = self.step_error(&st, t_new, &tol, opts);
-            if err > 1.0 && st.h > 1e-6 * feature {
+            let Some(step) = self.attempt(&mut st, &mut stepper, &train, &span, &tol, opts)? else {
                 rejected += 1;
-                st.h *= (0.9 * err.powf(-1.0 / 3.0)).clamp(0.1, 0.9);
                 continue;
-            }
+            };
+            let (t_new, ik, err, landing) = (step.t_new, step.ik, step.err, step.landing);
             // Accept.
             accepted += 1;
             let window = train.arrived(st.time);
             let in_train = st.time < train_end * (1.0 - 1e-14);
             if window > 0 && in_train {
-                let p = &mut watch.pulses[window - 1];
-                p.cathode_charge += 0.5 * st.h * (st.ik_prev + ik);
-                p.anode_charge += 0.5 * st.h * (st.t[n] + st.trial_t[n]);
-                p.peak_anode_amps = p.peak_anode_amps.max(st.trial_t[n]);
+                st.book_pulse(&mut watch.pulses[window - 1], ik, n);
             }
-            for j in 0..=n {
-                gap_charges[j] += 0.5 * st.h * (st.t[j] + st.trial_t[j]);
-            }
+            st.book_gaps(&mut gap_charges);
             st.accept(t_new, ik);
             if landing && (st.time - train_end).abs() <= 1e-12 * train_end.max(1e-30) {
                 self.mark_train_end(&st.nv, &mut ends, Some(&mut watch));
@@ -279,6 +184,116 @@ impl Base {
             ),
             final_state: (st.time, st.nv),
         })
+    }
+
+    /// One step from `st` towards the next breakpoint: BDF2 with the predictor, Newton's
+    /// method, the error estimate. `None` when rejected (the step is shortened for the retry).
+    fn attempt(
+        &self,
+        st: &mut State,
+        sp: &mut Stepper,
+        train: &Train,
+        span: &Span,
+        tol: &Tolerances,
+        opts: &RunOptions,
+    ) -> Result<Option<Taken>, TransientError> {
+        let (t_stop, feature) = (span.t_stop, span.feature);
+        while sp.next < sp.breaks.len() && sp.breaks[sp.next] <= st.time * (1.0 + 1e-14) + 1e-300 {
+            sp.next += 1;
+        }
+        let next_bp = sp
+            .breaks
+            .get(sp.next)
+            .copied()
+            .unwrap_or(t_stop)
+            .min(t_stop);
+        let landing = st.step_to(next_bp, train, feature);
+        let t_new = st.time + st.h;
+        let a0 = self.predict(st, t_new, &mut sp.hist);
+        let ik = train.cathode(t_new);
+        self.forward_currents(ik, &st.trial_nv, &mut st.trial_t);
+        let solved = self.newton(
+            ik,
+            a0,
+            &sp.hist,
+            &mut st.trial_nv,
+            &mut st.trial_t,
+            &tol.newton,
+            &mut sp.ws,
+        );
+        if let Err(reason) = solved {
+            st.h *= 0.25;
+            if st.h < 1e-6 * feature.min(1e-12) {
+                return Err(TransientError::Failed {
+                    time: st.time,
+                    reason,
+                });
+            }
+            return Ok(None);
+        }
+        let err = self.step_error(st, t_new, tol, opts);
+        if err > 1.0 && st.h > 1e-6 * feature {
+            st.h *= (0.9 * err.powf(-1.0 / 3.0)).clamp(0.1, 0.9);
+            return Ok(None);
+        }
+        Ok(Some(Taken {
+            t_new,
+            ik,
+            err,
+            landing,
+        }))
+    }
+
+    /// An isolated pulse arriving at `st.time` on a quiet base: through the pulse map when it
+    /// holds there (`Some(stop)`: the pulse is booked and the state moved to its end), else
+    /// marked to be solved in full for the map (`None`: the run steps through it).
+    fn isolated_pulse(
+        &self,
+        idx: usize,
+        train: &Train,
+        span: &Span,
+        st: &mut State,
+        map: &mut MapRun,
+        books: &mut Books,
+    ) -> Option<bool> {
+        let end = train.arrivals[idx] + train.support;
+        let (train_end, h_start) = (span.train_end, span.h_start);
+        let pred = match map.map.as_mut().map(|m| m.consult(&st.nv)) {
+            Some(Use::Map(out)) => {
+                let in_train = st.time < train_end * (1.0 - 1e-14);
+                self.apply_mapped(&map.lay, &out, idx, st.time, end, books.watch, &mut st.nv);
+                for (j, q) in books.gap_charges.iter_mut().enumerate() {
+                    *q += out.y[map.lay.gap_charge(j)];
+                }
+                st.t.iter_mut().for_each(|x| *x = 0.0);
+                st.time = end;
+                if (st.time - train_end).abs() <= 1e-12 * train_end.max(1e-30) {
+                    self.mark_train_end(&st.nv, books.ends, Some(&mut *books.watch));
+                }
+                let stop = books
+                    .watch
+                    .observe(self, st.time, &st.nv, 0.0, idx + 1, in_train);
+                // A constant past: the quiet interval after the pulse restarts it.
+                st.hist_v = [st.nv.clone(), st.nv.clone(), st.nv.clone()];
+                st.hist_t = [st.time, st.time - h_start, st.time - 2.0 * h_start];
+                st.ik_prev = train.cathode(st.time);
+                st.h = h_start;
+                map.mapped += 1;
+                return Some(stop);
+            }
+            Some(Use::Full(pred)) => pred,
+            None => None,
+        };
+        map.pending = Some(Pending {
+            idx,
+            end,
+            x: st.nv.clone(),
+            gap0: books.gap_charges.clone(),
+            mins: (0..map.lay.caps).map(|_| f64::INFINITY).collect(),
+            min_times: vec![0.0; map.lay.caps],
+            pred,
+        });
+        None
     }
 
     /// Tube gap voltages K–D1 … Dn–P of the node potentials `nv`.
@@ -575,6 +590,24 @@ struct Span {
     h_start: f64,
 }
 
+impl Span {
+    /// The span of a run: to the train's end, or on to the recovery horizon when a recovery
+    /// band is asked for, or to the time asked for; the first step a fiftieth of the feature.
+    fn new(train_end: f64, recovery_horizon: f64, feature: f64, opts: &RunOptions) -> Span {
+        let t_stop = match (opts.stop_at, opts.recovery_band) {
+            (Some(t), _) => t.max(train_end),
+            (None, Some(_)) => train_end + recovery_horizon,
+            (None, None) => train_end,
+        };
+        Span {
+            train_end,
+            t_stop,
+            feature,
+            h_start: feature / 50.0,
+        }
+    }
+}
+
 /// Error-control and Newton tolerances of a run.
 struct Tolerances {
     /// Monitored differences (a, b, absolute tolerance, value before the train).
@@ -585,6 +618,32 @@ struct Tolerances {
     newton: Vec<f64>,
     /// Error tolerance of each node's potential (the pulse map's checks).
     node: Vec<f64>,
+}
+
+/// The breakpoints ahead and the buffers of the implicit steps.
+struct Stepper {
+    breaks: Vec<f64>,
+    /// The first breakpoint not yet passed.
+    next: usize,
+    ws: Scratch,
+    /// The capacitors' BDF2 history terms.
+    hist: Vec<f64>,
+}
+
+/// An accepted step: its end, the cathode current there, its error ratio, whether it landed
+/// on a breakpoint.
+struct Taken {
+    t_new: f64,
+    ik: f64,
+    err: f64,
+    landing: bool,
+}
+
+/// The records a mapped pulse is booked into.
+struct Books<'a> {
+    watch: &'a mut Watch,
+    gap_charges: &'a mut Vec<f64>,
+    ends: &'a mut AtTrainEnd,
 }
 
 /// Element voltages and tube gaps at the end of the train.
@@ -612,6 +671,34 @@ struct State {
 }
 
 impl State {
+    /// A state at time 0 from the potentials `nv` and gap currents `t`, with a constant past.
+    fn new(nv: Vec<f64>, t: Vec<f64>, h_start: f64, ik0: f64) -> State {
+        State {
+            hist_v: [nv.clone(), nv.clone(), nv.clone()],
+            hist_t: [0.0, -h_start, -2.0 * h_start],
+            trial_nv: nv.clone(),
+            trial_t: t.clone(),
+            nv,
+            t,
+            time: 0.0,
+            h: h_start,
+            ik_prev: ik0,
+            after_bp: true,
+        }
+    }
+    /// Add the accepted step's charges (trapezoid rule) to the pulse record `p`: cathode
+    /// current `ik` at the step's end, anode current from gap `n + 1`.
+    fn book_pulse(&self, p: &mut PulseRecord, ik: f64, n: usize) {
+        p.cathode_charge += 0.5 * self.h * (self.ik_prev + ik);
+        p.anode_charge += 0.5 * self.h * (self.t[n] + self.trial_t[n]);
+        p.peak_anode_amps = p.peak_anode_amps.max(self.trial_t[n]);
+    }
+    /// Add the accepted step's charge across each tube gap (trapezoid rule).
+    fn book_gaps(&self, gap_charges: &mut [f64]) {
+        for (j, q) in gap_charges.iter_mut().enumerate() {
+            *q += 0.5 * self.h * (self.t[j] + self.trial_t[j]);
+        }
+    }
     /// Size the next step towards the breakpoint `next_bp`; true when it lands on it.
     fn step_to(&mut self, next_bp: f64, train: &Train, feature: f64) -> bool {
         if self.after_bp {
@@ -658,6 +745,25 @@ struct MapRun {
 }
 
 impl MapRun {
+    /// The pulse map of a run; off unless quiet intervals are exact, the map is asked for,
+    /// the pulses carry charge, there are two or more and no follower holds a dynode.
+    fn new(base: &Base, g0_gaps: &[f64], qk: f64, arrivals: &[f64], opts: &RunOptions) -> MapRun {
+        MapRun {
+            lay: Layout::of(base),
+            scale: g0_gaps
+                .iter()
+                .fold(f64::INFINITY, |m, g| m.min(g.abs()))
+                .max(1.0),
+            map: None,
+            off: !(opts.exact_quiet && opts.pulse_map)
+                || qk <= 0.0
+                || arrivals.len() < 2
+                || !base.followers.is_empty(),
+            pending: None,
+            mapped: 0,
+            solves: 0,
+        }
+    }
     /// After an accepted step: the pulse being solved in full for the map notes its
     /// capacitors' minima and, at its end, builds or checks the map.
     /// `checks` = (node tolerances, DC state, gap charges so far).
