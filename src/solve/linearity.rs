@@ -161,49 +161,26 @@ fn refine(
     (short, past): (&(f64, OperatingPoint), &(f64, OperatingPoint)),
     ws: &mut Workspace,
 ) -> f64 {
-    let (mut a, mut opa) = (short.0.ln(), short.1.clone());
-    let mut b = past.0.ln();
-    let mut fa = dist(opa.gain() / g0 - 1.0);
-    let mut fb = dist(past.1.gain() / g0 - 1.0);
-    let mut best = past.1.anode_amps();
-    let mut closest = fb.abs();
-    let mut side = 0i8;
-    for _ in 0..60 {
-        let mid = if (fb - fa).abs() > 0.0 {
-            (a * fb - b * fa) / (fb - fa)
-        } else {
-            0.5 * (a + b)
-        };
-        let mid = mid.clamp(a.min(b), a.max(b));
-        let Ok(op) = net.solve_raw(mid.exp(), Some(&opa), ws) else {
-            break;
-        };
-        let f = dist(op.gain() / g0 - 1.0);
-        if f.abs() < closest {
-            closest = f.abs();
-            best = op.anode_amps();
-        }
-        if f >= 0.0 {
-            b = mid;
-            fb = f;
-            if side == 1 {
-                fa *= 0.5;
+    let mut opa = short.1.clone();
+    let fa = dist(opa.gain() / g0 - 1.0);
+    let fb = dist(past.1.gain() / g0 - 1.0);
+    let found = crate::numerics::root::illinois(
+        |x| {
+            let op = net.solve_raw(x.exp(), Some(&opa), ws).ok()?;
+            let f = dist(op.gain() / g0 - 1.0);
+            let amps = op.anode_amps();
+            if f < 0.0 {
+                opa = op;
             }
-            side = 1;
-        } else {
-            a = mid;
-            fa = f;
-            opa = op;
-            if side == -1 {
-                fb *= 0.5;
-            }
-            side = -1;
-        }
-        if f.abs() < 1e-9 || (b - a).abs() < 1e-12 {
-            break;
-        }
-    }
-    best
+            Some((f, amps))
+        },
+        (short.0.ln(), fa),
+        (past.0.ln(), fb, past.1.anode_amps()),
+        1e-9,
+        1e-12,
+        60,
+    );
+    found.nearest.2
 }
 
 /// Anode current where the deviation G/G0 − 1 first reaches `target` (≥ a positive target,

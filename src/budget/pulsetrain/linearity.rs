@@ -59,22 +59,29 @@ pub(super) fn pulse_linearity(
         if idx == 0 {
             return Ok((Some(scan[0].2), scan[0].1.signum()));
         }
-        let (mut a, mut b) = (scan[idx - 1].0, scan[idx].0);
-        let (mut best_peak, mut sign) = (scan[idx].2, scan[idx].1.signum());
-        for _ in 0..24 {
-            let mid = 0.5 * (a + b);
-            let (dev, peak) = single(mid.exp())?;
-            if dev.abs() >= target {
-                b = mid;
-                best_peak = peak;
-                sign = dev.signum();
-            } else {
-                a = mid;
-            }
-            if b - a < 1e-4 {
-                break;
-            }
+        // The Illinois search on |deviation| − target in ln q, from the scan's bracket; the
+        // figure is the peak of the solved pulse nearest the crossing (within 1e-4 in ln q,
+        // as the bisection this replaces stopped, or 1e-6 of the deviation).
+        let (a, b) = (&scan[idx - 1], &scan[idx]);
+        let mut failed = None;
+        let found = crate::numerics::root::illinois(
+            |x| match single(x.exp()) {
+                Ok((dev, peak)) => Some((dev.abs() - target, (peak, dev.signum()))),
+                Err(e) => {
+                    failed = Some(e);
+                    None
+                }
+            },
+            (a.0, a.1.abs() - target),
+            (b.0, b.1.abs() - target, (b.2, b.1.signum())),
+            1e-6 * target,
+            1e-4,
+            24,
+        );
+        if let Some(e) = failed {
+            return Err(e);
         }
+        let (best_peak, sign) = found.nearest.2;
         Ok((Some(best_peak), sign))
     };
     let (pct1_amps, pct1_sign) = find(0.01)?;
