@@ -104,6 +104,24 @@ fn esc(s: &str) -> String {
     out
 }
 
+/// A file name as a Markdown link target: spaces, parentheses and angle brackets
+/// percent-encoded so that the link cannot end early or carry markup.
+pub fn link_target(file: &str) -> String {
+    let mut out = String::with_capacity(file.len());
+    for c in file.chars() {
+        match c {
+            ' ' => out.push_str("%20"),
+            '(' => out.push_str("%28"),
+            ')' => out.push_str("%29"),
+            '<' => out.push_str("%3C"),
+            '>' => out.push_str("%3E"),
+            c if c.is_control() => out.push_str("%3F"),
+            c => out.push(c),
+        }
+    }
+    out
+}
+
 /// The document as Markdown: a quoted caution block first and last, real tables, figures as
 /// links to their files.
 pub fn to_markdown(d: &Doc) -> String {
@@ -146,7 +164,7 @@ pub fn blocks_markdown(blocks: &[Block]) -> String {
                 let _ = writeln!(out);
             }
             Block::Figure { file, title } => {
-                let _ = writeln!(out, "![{}]({})\n", md(title), file.replace(' ', "%20"));
+                let _ = writeln!(out, "![{}]({})\n", md(title), link_target(file));
             }
         }
     }
@@ -208,8 +226,9 @@ pub fn blocks_html(blocks: &[Block]) -> String {
                     let _ = write!(out, "<tr>");
                     for (i, c) in r.iter().enumerate() {
                         let numeric = i > 0
+                            && c.chars().count() <= 14
                             && c.chars().next().is_some_and(|ch| {
-                                ch.is_ascii_digit() || matches!(ch, '-' | '+' | '−')
+                                ch.is_ascii_digit() || matches!(ch, '-' | '+' | '−' | '≥')
                             });
                         let _ = write!(
                             out,
@@ -289,6 +308,153 @@ pub fn scale(typical: f64, unit: &str) -> (f64, String) {
         }
     }
     (1e-12, format!("p{unit}"))
+}
+
+/// A figure as engineering formatting prints it (`format_eng`: "1.11 V", "480 fC"), split
+/// into its number and its prefixed unit, so a table can show the unit in a column of its
+/// own and still print the same digits as the text report.
+pub fn eng_split(value: f64, unit: &str) -> (String, String) {
+    let t = crate::units::format_eng(value, unit);
+    match t.rsplit_once(' ') {
+        Some((n, u)) => (n.to_string(), u.to_string()),
+        None => (t, String::new()),
+    }
+}
+
+/// A column of figures in one unit: the SI prefix that engineering formatting gives most of
+/// the column's figures (the larger one on a tie), and each figure in that prefixed unit with
+/// three significant figures, so that a figure whose own prefix is the column's prints the
+/// digits the text report prints. `None` cells show `missing`.
+pub fn eng_column(
+    label: &str,
+    values: &[Option<f64>],
+    unit: &str,
+    missing: &str,
+) -> (Column, Vec<String>) {
+    let (unit, cells) = eng_cells(values, unit, missing);
+    (Column::new(label, unit), cells)
+}
+
+/// Figures of one kind in one prefixed unit (see [`eng_column`]): the unit and the cells.
+pub fn eng_cells(values: &[Option<f64>], unit: &str, missing: &str) -> (String, Vec<String>) {
+    let mut counts: Vec<(f64, &'static str, usize)> = Vec::new();
+    for v in values.iter().flatten() {
+        let a = v.abs();
+        if !(0.005e-18..999.5e12).contains(&a) {
+            continue;
+        }
+        let p = crate::units::engineering_prefix(a, "µ", 0.9995);
+        match counts.iter_mut().find(|c| c.1 == p.1) {
+            Some(c) => c.2 += 1,
+            None => counts.push((p.0, p.1, 1)),
+        }
+    }
+    let (scale, prefix) = counts
+        .iter()
+        .max_by(|x, y| x.2.cmp(&y.2).then(x.0.total_cmp(&y.0)))
+        .map_or((1.0, ""), |c| (c.0, c.1));
+    let cells = values
+        .iter()
+        .map(|v| match v {
+            None => missing.to_string(),
+            Some(v) => three_figures(v / scale),
+        })
+        .collect();
+    (format!("{prefix}{unit}"), cells)
+}
+
+/// A number with three significant figures, as engineering formatting prints the number part
+/// ("1.11", "22.4", "103"), smaller ones to three significant figures ("0.0512"), tiny ones in
+/// scientific notation.
+pub fn three_figures(y: f64) -> String {
+    let a = y.abs();
+    if !y.is_finite() {
+        "n/a".to_string()
+    } else if y == 0.0 {
+        "0".to_string()
+    } else if a >= 99.95 {
+        format!("{y:.0}")
+    } else if a >= 9.995 {
+        format!("{y:.1}")
+    } else if a >= 0.9995 {
+        format!("{y:.2}")
+    } else if a >= 1e-4 {
+        let decimals = (2.0 - a.log10().floor()) as usize;
+        format!("{y:.decimals$}")
+    } else {
+        format!("{y:.2e}")
+    }
+}
+
+/// A table of single figures, one row each: what it is, its value, the value's unit, and a
+/// note (how it was found, what it is measured against).
+#[derive(Debug, Default)]
+pub struct FigureTable {
+    rows: Vec<Vec<String>>,
+}
+
+impl FigureTable {
+    /// An empty table.
+    pub fn new() -> FigureTable {
+        FigureTable::default()
+    }
+
+    /// A figure in an SI unit, printed by engineering formatting.
+    pub fn eng(&mut self, what: &str, value: f64, unit: &str, note: impl Into<String>) {
+        let (n, u) = eng_split(value, unit);
+        self.rows.push(vec![what.to_string(), n, u, note.into()]);
+    }
+
+    /// A figure that may not exist: `missing` says why in the value's place.
+    pub fn opt(
+        &mut self,
+        what: &str,
+        value: Option<f64>,
+        unit: &str,
+        missing: &str,
+        note: impl Into<String>,
+    ) {
+        match value {
+            Some(v) => self.eng(what, v, unit, note),
+            None => self.text(what, missing, "", note),
+        }
+    }
+
+    /// A figure already printed, with its unit (empty for a plain number).
+    pub fn text(
+        &mut self,
+        what: &str,
+        value: impl Into<String>,
+        unit: &str,
+        note: impl Into<String>,
+    ) {
+        self.rows
+            .push(vec![what.to_string(), value.into(), unit.to_string(), note.into()]);
+    }
+
+    /// Whether no figure was added.
+    pub fn is_empty(&self) -> bool {
+        self.rows.is_empty()
+    }
+
+    /// The table as a block; the note column only where some row has a note.
+    pub fn block(self) -> Block {
+        let notes = self.rows.iter().any(|r| !r[3].is_empty());
+        let mut columns = vec![
+            Column::new("figure", ""),
+            Column::new("value", ""),
+            Column::new("unit", ""),
+        ];
+        let mut rows = self.rows;
+        if notes {
+            columns.push(Column::new("note", ""));
+        } else {
+            for r in &mut rows {
+                r.truncate(3);
+            }
+        }
+        Block::Table(Table { columns, rows })
+    }
 }
 
 #[cfg(test)]

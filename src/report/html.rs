@@ -34,7 +34,6 @@ tr.flagged td { background: #fff0d0; }
 figure { margin: 1em 0; page-break-inside: avoid; }
 figure svg { max-width: 100%; height: auto; border: 1px solid #ddd; }
 figcaption { font-size: 0.9em; color: #444; }
-pre { background: #f7f7f7; padding: 0.6em; overflow-x: auto; font-size: 0.85em; }
 .warn li { color: #7a3b00; }
 .meta { color: #555; font-size: 0.9em; }
 @media print {
@@ -151,20 +150,8 @@ pub fn render(a: &Analysis) -> String {
     let _ = writeln!(out, "<h2>DC linearity</h2>");
     table_html(&mut out, &tables::linearity(a), true);
     for s in crate::report::extra_sections(a) {
-        match &s.blocks {
-            Some(b) => {
-                let _ = writeln!(out, "<h2>{}</h2>", esc(&s.title));
-                out.push_str(&crate::report::doc::blocks_html(b));
-            }
-            None => {
-                let _ = writeln!(
-                    out,
-                    "<h2>{}</h2>\n<pre>{}</pre>",
-                    esc(&s.title),
-                    esc(&s.text)
-                );
-            }
-        }
+        let _ = writeln!(out, "<h2>{}</h2>", esc(&s.title));
+        out.push_str(&crate::report::doc::blocks_html(&s.blocks));
     }
     let _ = writeln!(out, "<h2>Figures</h2>");
     for fig in figures::all(a) {
@@ -214,8 +201,13 @@ pub fn render(a: &Analysis) -> String {
 }
 
 /// A stand-alone page holding one section of the report (e.g. the pulse train): the cautions
-/// first and last, the design's name, the section as preformatted text, the warnings.
-pub fn section_page(a: &Analysis, command: &str, title: &str, text: &str) -> String {
+/// first and last, the design's name, the section's blocks, the warnings.
+pub fn section_page(
+    a: &Analysis,
+    command: &str,
+    title: &str,
+    blocks: &[crate::report::doc::Block],
+) -> String {
     let mut out = String::new();
     let d = &a.design;
     open_page(&mut out, a, &format!("dynode {command}: {}", d.name));
@@ -225,7 +217,8 @@ pub fn section_page(a: &Analysis, command: &str, title: &str, text: &str) -> Str
         esc(command),
         esc(&d.source)
     );
-    let _ = writeln!(out, "<h2>{}</h2>\n<pre>{}</pre>", esc(title), esc(text));
+    let _ = writeln!(out, "<h2>{}</h2>", esc(title));
+    out.push_str(&crate::report::doc::blocks_html(blocks));
     let _ = writeln!(out, "<h2>Warnings</h2>");
     if a.warnings.is_empty() {
         let _ = writeln!(out, "<p>None.</p>");
