@@ -225,11 +225,7 @@ pub fn blocks_html(blocks: &[Block]) -> String {
                 for r in &t.rows {
                     let _ = write!(out, "<tr>");
                     for (i, c) in r.iter().enumerate() {
-                        let numeric = i > 0
-                            && c.chars().count() <= 14
-                            && c.chars().next().is_some_and(|ch| {
-                                ch.is_ascii_digit() || matches!(ch, '-' | '+' | '−' | '≥')
-                            });
+                        let numeric = i > 0 && is_number(c);
                         let _ = write!(
                             out,
                             "<td{}>{}</td>",
@@ -253,6 +249,18 @@ pub fn blocks_html(blocks: &[Block]) -> String {
         }
     }
     out
+}
+
+/// Whether a cell holds a number alone (right-aligned in HTML): "1.11", "-0.358", "2.5958e6",
+/// "±6.32", "≥ 160"; not "54.5 aC" or "10 (assumed)".
+fn is_number(c: &str) -> bool {
+    c.chars()
+        .next()
+        .is_some_and(|ch| ch.is_ascii_digit() || matches!(ch, '-' | '+' | '−' | '±' | '≥'))
+        && c.chars().any(|ch| ch.is_ascii_digit())
+        && c
+            .chars()
+            .all(|ch| ch.is_ascii_digit() || "+-−±≥.eE ".contains(ch))
 }
 
 /// The page's style: readable on screen and in print, cautions boxed in red.
@@ -308,6 +316,18 @@ pub fn scale(typical: f64, unit: &str) -> (f64, String) {
         }
     }
     (1e-12, format!("p{unit}"))
+}
+
+/// Text as a sentence: its first letter a capital, a full stop at its end.
+pub fn sentence(s: &str) -> String {
+    let mut c = s.trim().chars();
+    let mut out: String = c
+        .next()
+        .map_or_else(String::new, |f| f.to_uppercase().chain(c).collect());
+    if !out.is_empty() && !out.ends_with(['.', '!', '?']) {
+        out.push('.');
+    }
+    out
 }
 
 /// A figure as engineering formatting prints it (`format_eng`: "1.11 V", "480 fC"), split
@@ -372,6 +392,11 @@ pub fn three_figures(y: f64) -> String {
         "n/a".to_string()
     } else if y == 0.0 {
         "0".to_string()
+    } else if a >= 999.5 {
+        // Three significant figures, as engineering formatting would print them.
+        let e = a.log10().floor() as i32 - 2;
+        let r = (y / 10f64.powi(e)).round() * 10f64.powi(e);
+        format!("{r:.0}")
     } else if a >= 99.95 {
         format!("{y:.0}")
     } else if a >= 9.995 {
@@ -511,5 +536,30 @@ mod tests {
         assert_eq!(scale(2.0e-6, "A"), (1e-6, "µA".to_string()));
         assert_eq!(scale(1100.0, "V"), (1e3, "kV".to_string()));
         assert_eq!(scale(0.5, "W"), (1e-3, "mW".to_string()));
+    }
+
+    #[test]
+    fn columns_print_the_digits_engineering_formatting_prints() {
+        // Each figure whose own prefix is the column's shows the text report's digits.
+        let v = [Some(825.0), Some(916.4), Some(1006.0)];
+        let (c, cells) = eng_column("tap", &v, "V", "—");
+        assert_eq!(c.header(), "tap (V)");
+        assert_eq!(cells, ["825", "916", "1010"]);
+        let (c, cells) = eng_column("peak", &[Some(1.11), None, Some(0.589)], "V", "—");
+        assert_eq!(c.header(), "peak (V)");
+        assert_eq!(cells, ["1.11", "—", "0.589"]);
+        let (c, cells) = eng_column("C", &[Some(4.7e-9), Some(2.2e-9)], "F", "—");
+        assert_eq!((c.unit.as_str(), cells[0].as_str()), ("nF", "4.70"));
+        assert_eq!(eng_split(4.99e-3, "V"), ("4.99".into(), "mV".into()));
+        assert_eq!(three_figures(0.0512), "0.0512");
+        assert_eq!(three_figures(-42.4), "-42.4");
+    }
+
+    #[test]
+    fn only_bare_numbers_are_right_aligned_and_links_stay_links() {
+        assert!(is_number("-0.358") && is_number("2.5958e6") && is_number("≥ 160"));
+        assert!(!is_number("54.5 aC") && !is_number("10 (assumed)") && !is_number("—"));
+        assert_eq!(link_target("a b/(x).svg"), "a%20b/%28x%29.svg");
+        assert_eq!(sentence("not practical: x"), "Not practical: x.");
     }
 }

@@ -22,6 +22,7 @@ body { font-family: "DejaVu Sans", "Helvetica Neue", Arial, sans-serif; max-widt
        margin: 1.5em auto; padding: 0 1em; color: #1b1b1b; line-height: 1.4; }
 h1 { font-size: 1.6em; margin-bottom: 0.2em; }
 h2 { font-size: 1.2em; border-bottom: 1px solid #bbb; margin-top: 1.6em; }
+h3 { font-size: 1.02em; margin: 1.3em 0 0.4em; }
 .caution { border: 3px solid #b00000; background: #fff3f3; padding: 0.6em 1.2em; margin: 1em 0; }
 .caution h2 { color: #b00000; border: none; margin-top: 0.3em; }
 .caution li { margin: 0.3em 0; }

@@ -552,7 +552,7 @@ fn photodiode(b: &mut Vec<Block>, s: &SignalBudget) {
     f.eng("gain-bandwidth needed", pd.gbw, "Hz", "");
     f.eng("noise, rms", pd.noise, "V", "");
     b.push(f.block());
-    b.push(Block::Paragraph(pd.sentence.clone()));
+    b.push(Block::Paragraph(super::doc::sentence(&pd.sentence)));
 }
 
 fn load_sweep(b: &mut Vec<Block>, s: &SignalBudget) {
@@ -570,13 +570,14 @@ fn load_sweep(b: &mut Vec<Block>, s: &SignalBudget) {
     let r = &sw.rows;
     let col = |label: &str, v: Vec<Option<f64>>, unit: &str| eng_column(label, &v, unit, "—");
     let cols = [
-        col("load", r.iter().map(|x| Some(x.load)).collect(), "Ω"),
         col("peak", r.iter().map(|x| Some(x.pulse.peak)).collect(), "V"),
         col("rise", r.iter().map(|x| x.pulse.rise).collect(), "s"),
         col("displayed rise", r.iter().map(|x| x.displayed_rise).collect(), "s"),
         col("FWHM", r.iter().map(|x| x.pulse.fwhm).collect(), "s"),
     ];
-    let mut columns: Vec<Column> = cols.iter().map(|c| c.0.clone()).collect();
+    // The load names the row, so each keeps its own prefix.
+    let mut columns = vec![Column::new("load", "")];
+    columns.extend(cols.iter().map(|c| c.0.clone()));
     columns.extend([
         Column::new("S/N", ""),
         Column::new("first echo", "%"),
@@ -586,7 +587,8 @@ fn load_sweep(b: &mut Vec<Block>, s: &SignalBudget) {
         .iter()
         .enumerate()
         .map(|(i, x)| {
-            let mut row: Vec<String> = cols.iter().map(|c| c.1[i].clone()).collect();
+            let mut row = vec![eng(x.load, "Ω")];
+            row.extend(cols.iter().map(|c| c.1[i].clone()));
             row.push(x.snr.map_or("—".to_string(), |v| sci(v.min(99999.0))));
             row.push(
                 x.echo
@@ -604,5 +606,5 @@ fn load_sweep(b: &mut Vec<Block>, s: &SignalBudget) {
         })
         .collect();
     b.push(Block::Table(Table { columns, rows }));
-    b.push(Block::Paragraph(format!("Window: {}", sw.sentence)));
+    b.push(Block::Paragraph(super::doc::sentence(&format!("Window: {}", sw.sentence))));
 }

@@ -16,10 +16,9 @@ use crate::units::format_eng as eng;
 /// The section's blocks, `None` when the design gives no train.
 pub fn blocks(a: &Analysis) -> Option<Vec<Block>> {
     let t = a.train.as_ref()?;
-    let mut b = vec![Block::Paragraph(format!(
-        "{}.",
-        capitalised(&pulsetrain::describe(&t.spec))
-    ))];
+    let mut b = vec![Block::Paragraph(super::doc::sentence(&pulsetrain::describe(
+        &t.spec,
+    )))];
     summary(&mut b, t, a);
     if let Some(ss) = &t.steady {
         steady(&mut b, t, ss);
@@ -37,12 +36,6 @@ pub fn blocks(a: &Analysis) -> Option<Vec<Block>> {
         t.gain_ratio.len()
     )));
     Some(b)
-}
-
-fn capitalised(s: &str) -> String {
-    let mut c = s.chars();
-    c.next()
-        .map_or_else(String::new, |f| f.to_uppercase().chain(c).collect())
 }
 
 fn summary(b: &mut Vec<Block>, t: &TrainAnalysis, a: &Analysis) {
@@ -439,7 +432,7 @@ fn taper(b: &mut Vec<Block>, t: &TrainAnalysis) {
         String::new(),
         format!("{:.4e}", tp.gain.0),
         format!("{:.4e}", tp.gain.1),
-        format!("{:+.1} %", (tp.gain.1 / tp.gain.0 - 1.0) * 100.0),
+        format!("{:+.1}", (tp.gain.1 / tp.gain.0 - 1.0) * 100.0),
     ]];
     let mut row = |what: &str, v: [Option<f64>; 2], unit: &str| {
         let (u, cells) = eng_cells(&v, unit, "not reached");
@@ -473,7 +466,7 @@ fn taper(b: &mut Vec<Block>, t: &TrainAnalysis) {
             Column::new("unit", ""),
             Column::new("as built", ""),
             Column::new("tapered", ""),
-            Column::new("change", ""),
+            Column::new("change", "%"),
         ],
         rows,
     }));
