@@ -46,7 +46,9 @@ fn every_demo() -> Vec<(Rendered, analysis::Analysis)> {
 
 /// The HTML table row whose first cell is `label`, searched from `from` on.
 fn html_row<'a>(html: &'a str, from: &str, label: &str) -> &'a str {
-    let start = html.find(from).unwrap_or_else(|| panic!("no {from:?} in the HTML"));
+    let start = html
+        .find(from)
+        .unwrap_or_else(|| panic!("no {from:?} in the HTML"));
     let key = format!("<tr><td>{label}</td>");
     let i = start
         + html[start..]
@@ -58,7 +60,9 @@ fn html_row<'a>(html: &'a str, from: &str, label: &str) -> &'a str {
 
 /// The Markdown table line whose first cell is `label`, searched from `from` on.
 fn md_row<'a>(md: &'a str, from: &str, label: &str) -> &'a str {
-    let start = md.find(from).unwrap_or_else(|| panic!("no {from:?} in the Markdown"));
+    let start = md
+        .find(from)
+        .unwrap_or_else(|| panic!("no {from:?} in the Markdown"));
     md[start..]
         .lines()
         .find(|l| l.starts_with(&format!("| {label} |")))
@@ -67,7 +71,9 @@ fn md_row<'a>(md: &'a str, from: &str, label: &str) -> &'a str {
 
 /// The text line that starts (after its indent) with `label`, searched from `from` on.
 fn text_line<'a>(text: &'a str, from: &str, label: &str) -> &'a str {
-    let start = text.find(from).unwrap_or_else(|| panic!("no {from:?} in the text"));
+    let start = text
+        .find(from)
+        .unwrap_or_else(|| panic!("no {from:?} in the text"));
     text[start..]
         .lines()
         .find(|l| l.trim_start().starts_with(label))
@@ -119,7 +125,10 @@ fn html_and_markdown_hold_tables_and_no_preformatted_text_for_every_demo() {
     assert!(demos.len() >= 10, "the demos are found");
     for (r, a) in &demos {
         let s = &r.stem;
-        assert!(!r.html.contains("<pre"), "{s}: HTML holds preformatted text");
+        assert!(
+            !r.html.contains("<pre"),
+            "{s}: HTML holds preformatted text"
+        );
         assert!(
             !r.md.contains("```") && !r.md.contains("~~~"),
             "{s}: Markdown holds a code fence"
@@ -145,7 +154,10 @@ fn html_and_markdown_hold_tables_and_no_preformatted_text_for_every_demo() {
             assert!(first < table, "{s}: caution before the tables");
             let last = doc.rfind("HIGH VOLTAGE").expect("closing caution");
             assert!(
-                last > doc.rfind("</table>").or_else(|| doc.rfind("|---|")).unwrap(),
+                last > doc
+                    .rfind("</table>")
+                    .or_else(|| doc.rfind("|---|"))
+                    .unwrap(),
                 "{s}: caution after the tables"
             );
         }
@@ -153,8 +165,14 @@ fn html_and_markdown_hold_tables_and_no_preformatted_text_for_every_demo() {
         if a.train.is_some() {
             let html = report::train::render(a, report::Format::Html).unwrap();
             let md = report::train::render(a, report::Format::Markdown).unwrap();
-            assert!(!html.contains("<pre") && html.contains("<table>"), "{s}: train HTML");
-            assert!(!md.contains("```") && md.contains("|---|"), "{s}: train Markdown");
+            assert!(
+                !html.contains("<pre") && html.contains("<table>"),
+                "{s}: train HTML"
+            );
+            assert!(
+                !md.contains("```") && md.contains("|---|"),
+                "{s}: train Markdown"
+            );
         }
     }
 }
@@ -242,8 +260,16 @@ fn each_sections_key_figures_print_the_same_digits_in_text_html_and_markdown() {
         if !s.is_null() {
             let printed = format_eng(f(&s["supply_amps"]), "A");
             let (number, unit) = printed.rsplit_once(' ').unwrap();
-            let line = text_line(&r.text, "TRANSISTOR-HELD", "supply current at the operating point");
-            assert!(line.contains(&printed), "{}: {line:?} lacks {printed}", r.stem);
+            let line = text_line(
+                &r.text,
+                "TRANSISTOR-HELD",
+                "supply current at the operating point",
+            );
+            assert!(
+                line.contains(&printed),
+                "{}: {line:?} lacks {printed}",
+                r.stem
+            );
             let from = ("<h2>Transistor-held", "## Transistor-held");
             let label = "supply current at the operating point";
             let row = html_row(&r.html, from.0, label);
@@ -259,16 +285,26 @@ fn each_sections_key_figures_print_the_same_digits_in_text_html_and_markdown() {
                 let (number, unit) = printed.rsplit_once(' ').unwrap();
                 let name = format!("D{}", fo["dynode"]);
                 let line = text_line(&r.text, "TRANSISTOR-HELD", &format!("{name} "));
-                assert!(line.contains(&printed), "{}: {line:?} lacks {printed}", r.stem);
+                assert!(
+                    line.contains(&printed),
+                    "{}: {line:?} lacks {printed}",
+                    r.stem
+                );
                 assert!(
                     r.html.contains(&format!("current ({unit})</th>")),
                     "{}: follower current column in {unit}",
                     r.stem
                 );
                 let row = html_row(&r.html, from.0, &name);
-                assert!(row.contains(&format!(">{number}</td>")), "{row:?} lacks {number}");
+                assert!(
+                    row.contains(&format!(">{number}</td>")),
+                    "{row:?} lacks {number}"
+                );
                 let row = md_row(&r.md, from.1, &name);
-                assert!(row.contains(&format!("| {number} |")), "{row:?} lacks {number}");
+                assert!(
+                    row.contains(&format!("| {number} |")),
+                    "{row:?} lacks {number}"
+                );
             }
             active += 1;
         }

@@ -160,9 +160,15 @@ pub fn blocks(a: &Analysis) -> Option<Vec<crate::report::doc::Block>> {
         eng(s.string_amps, "A"),
     ))];
     let f = &s.followers;
-    let col = |label: &str, get: &dyn Fn(&crate::budget::active::FollowerRow) -> f64, unit: &str| {
-        eng_column(label, &f.iter().map(|r| Some(get(r))).collect::<Vec<_>>(), unit, "—")
-    };
+    let col =
+        |label: &str, get: &dyn Fn(&crate::budget::active::FollowerRow) -> f64, unit: &str| {
+            eng_column(
+                label,
+                &f.iter().map(|r| Some(get(r))).collect::<Vec<_>>(),
+                unit,
+                "—",
+            )
+        };
     let cols = [
         col("tap", &|r| r.tap_volts, "V"),
         col("held at", &|r| r.hold_volts, "V"),

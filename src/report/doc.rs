@@ -217,7 +217,13 @@ pub fn blocks_html(blocks: &[Block]) -> String {
                 let _ = writeln!(out, "</ul>");
             }
             Block::Table(t) => {
-                let _ = write!(out, "<table><thead><tr>");
+                // A table of single figures keeps each figure's name and unit on one line.
+                let figures = t.columns.first().is_some_and(|c| c.label == "figure");
+                let _ = write!(
+                    out,
+                    "<table{}><thead><tr>",
+                    if figures { " class=\"figures\"" } else { "" }
+                );
                 for c in &t.columns {
                     let _ = write!(out, "<th>{}</th>", esc(&c.header()));
                 }
@@ -258,8 +264,7 @@ fn is_number(c: &str) -> bool {
         .next()
         .is_some_and(|ch| ch.is_ascii_digit() || matches!(ch, '-' | '+' | '−' | '±' | '≥'))
         && c.chars().any(|ch| ch.is_ascii_digit())
-        && c
-            .chars()
+        && c.chars()
             .all(|ch| ch.is_ascii_digit() || "+-−±≥.eE ".contains(ch))
 }
 
@@ -271,6 +276,7 @@ table{border-collapse:collapse;margin:.5em 0 1em}\
 th,td{border:1px solid #bbb;padding:.2em .5em;text-align:left;vertical-align:top}\
 th{background:#eee}\
 td.num{text-align:right;font-variant-numeric:tabular-nums;white-space:nowrap}\
+table.figures td:first-child,table.figures td:nth-child(3){white-space:nowrap}\
 figure{margin:1em 0}figure img{max-width:100%}\
 @media print{.caution{break-inside:avoid}table{break-inside:auto}tr{break-inside:avoid}}";
 
@@ -453,8 +459,12 @@ impl FigureTable {
         unit: &str,
         note: impl Into<String>,
     ) {
-        self.rows
-            .push(vec![what.to_string(), value.into(), unit.to_string(), note.into()]);
+        self.rows.push(vec![
+            what.to_string(),
+            value.into(),
+            unit.to_string(),
+            note.into(),
+        ]);
     }
 
     /// Whether no figure was added.

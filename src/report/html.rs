@@ -30,6 +30,7 @@ table { border-collapse: collapse; margin: 0.6em 0; font-size: 0.92em; }
 th, td { border: 1px solid #ccc; padding: 0.25em 0.55em; text-align: left; vertical-align: top; }
 th { background: #f0f0f0; }
 td.num { text-align: right; font-variant-numeric: tabular-nums; white-space: nowrap; }
+table.figures td:first-child, table.figures td:nth-child(3) { white-space: nowrap; }
 table.pairs td:first-child { font-weight: bold; background: #fafafa; }
 tr.flagged td { background: #fff0d0; }
 figure { margin: 1em 0; page-break-inside: avoid; }

@@ -248,24 +248,32 @@ fn front_end(b: &mut Vec<Block>, fe: &crate::budget::signal::FrontEndFigures) {
             format!("CR–RC^n theory n^n e^(−n)/n! = {th:.4}"),
         );
     }
-    f.eng("noise, the amplifier's own, rms", fe.noise.amplifier, "V", "at the output");
+    f.eng(
+        "noise, the amplifier's own, rms",
+        fe.noise.amplifier,
+        "V",
+        "at the output",
+    );
     f.eng(
         "noise from the path's resistors, rms",
         fe.noise.johnson,
         "V",
         "at the output",
     );
-    match fe.noise.enc_electrons {
-        Some(e) => f.text(
-            "equivalent noise charge, rms",
-            format!("{e:.0}"),
-            "electrons",
-            "shaper noise indices from CR–RC^n theory, from memory; 1/f noise not counted",
-        ),
-        None => b.push(Block::Paragraph(
-            "Noise: input noise density over the noise bandwidth, in quadrature.".into(),
+    let noise_note = match fe.noise.enc_electrons {
+        Some(e) => {
+            f.text(
+                "equivalent noise charge, rms",
+                format!("{e:.0}"),
+                "electrons",
+                "shaper noise indices from CR–RC^n theory, from memory; 1/f noise not counted",
+            );
+            None
+        }
+        None => Some(Block::Paragraph(
+            "Noise: the input noise density over the noise bandwidth, in quadrature.".into(),
         )),
-    }
+    };
     if let Some(snr) = fe.snr {
         f.text(
             "S/N at the instrument",
@@ -275,6 +283,7 @@ fn front_end(b: &mut Vec<Block>, fe: &crate::budget::signal::FrontEndFigures) {
         );
     }
     b.push(f.block());
+    b.extend(noise_note);
 }
 
 fn readout(b: &mut Vec<Block>, s: &SignalBudget) {
@@ -301,7 +310,10 @@ fn timing(b: &mut Vec<Block>, s: &SignalBudget) {
     };
     b.push(Block::Heading(
         3,
-        format!("Timing (leading edge at a {} threshold)", eng(t.threshold, "V")),
+        format!(
+            "Timing (leading edge at a {} threshold)",
+            eng(t.threshold, "V")
+        ),
     ));
     let mut f = FigureTable::new();
     f.opt(
@@ -531,12 +543,7 @@ fn photodiode(b: &mut Vec<Block>, s: &SignalBudget) {
         crate::budget::signal::AMPLIFIER_NOISE * 1e9
     )));
     let mut f = FigureTable::new();
-    f.text(
-        "responsivity",
-        format!("{:.3}", pd.responsivity),
-        "A/W",
-        "",
-    );
+    f.text("responsivity", format!("{:.3}", pd.responsivity), "A/W", "");
     f.eng(
         "charge",
         pd.charge,
@@ -572,7 +579,11 @@ fn load_sweep(b: &mut Vec<Block>, s: &SignalBudget) {
     let cols = [
         col("peak", r.iter().map(|x| Some(x.pulse.peak)).collect(), "V"),
         col("rise", r.iter().map(|x| x.pulse.rise).collect(), "s"),
-        col("displayed rise", r.iter().map(|x| x.displayed_rise).collect(), "s"),
+        col(
+            "displayed rise",
+            r.iter().map(|x| x.displayed_rise).collect(),
+            "s",
+        ),
         col("FWHM", r.iter().map(|x| x.pulse.fwhm).collect(), "s"),
     ];
     // The load names the row, so each keeps its own prefix.
@@ -606,5 +617,8 @@ fn load_sweep(b: &mut Vec<Block>, s: &SignalBudget) {
         })
         .collect();
     b.push(Block::Table(Table { columns, rows }));
-    b.push(Block::Paragraph(super::doc::sentence(&format!("Window: {}", sw.sentence))));
+    b.push(Block::Paragraph(super::doc::sentence(&format!(
+        "Window: {}",
+        sw.sentence
+    ))));
 }

@@ -16,9 +16,9 @@ use crate::units::format_eng as eng;
 /// The section's blocks, `None` when the design gives no train.
 pub fn blocks(a: &Analysis) -> Option<Vec<Block>> {
     let t = a.train.as_ref()?;
-    let mut b = vec![Block::Paragraph(super::doc::sentence(&pulsetrain::describe(
-        &t.spec,
-    )))];
+    let mut b = vec![Block::Paragraph(super::doc::sentence(
+        &pulsetrain::describe(&t.spec),
+    ))];
     summary(&mut b, t, a);
     if let Some(ss) = &t.steady {
         steady(&mut b, t, ss);
@@ -90,12 +90,7 @@ fn summary(b: &mut Vec<Block>, t: &TrainAnalysis, a: &Analysis) {
                 );
             }
         }
-        None => f.text(
-            "average anode current",
-            "—",
-            "",
-            "a single pulse has none",
-        ),
+        None => f.text("average anode current", "—", "", "a single pulse has none"),
     }
     f.eng(
         "peak anode current",
@@ -122,18 +117,18 @@ fn summary(b: &mut Vec<Block>, t: &TrainAnalysis, a: &Analysis) {
             t.initial_gain
         ),
     );
-    let (worst_i, worst) = t
-        .gain_ratio
-        .iter()
-        .copied()
-        .enumerate()
-        .fold((0, f64::INFINITY), |m, (i, g)| if g < m.1 { (i, g) } else { m });
+    let (worst_i, worst) =
+        t.gain_ratio
+            .iter()
+            .copied()
+            .enumerate()
+            .fold(
+                (0, f64::INFINITY),
+                |m, (i, g)| if g < m.1 { (i, g) } else { m },
+            );
     f.text(
         "gain of the last pulse / first",
-        format!(
-            "{:.3}",
-            t.gain_ratio.last().copied().unwrap_or(1.0) * 100.0
-        ),
+        format!("{:.3}", t.gain_ratio.last().copied().unwrap_or(1.0) * 100.0),
         "%",
         "",
     );
@@ -255,9 +250,14 @@ fn pulses(b: &mut Vec<Block>, t: &TrainAnalysis) {
 }
 
 fn droop(b: &mut Vec<Block>, t: &TrainAnalysis) {
-    b.push(Block::Heading(3, "Decoupling capacitors over the train".into()));
+    b.push(Block::Heading(
+        3,
+        "Decoupling capacitors over the train".into(),
+    ));
     if t.droop.is_empty() {
-        b.push(Block::Paragraph("No decoupling capacitors to droop.".into()));
+        b.push(Block::Paragraph(
+            "No decoupling capacitors to droop.".into(),
+        ));
         return;
     }
     let d = &t.droop;
@@ -446,8 +446,16 @@ fn taper(b: &mut Vec<Block>, t: &TrainAnalysis) {
         [Some(tp.last_gap_volts.0), Some(tp.last_gap_volts.1)],
         "V",
     );
-    row("1 % pulse-linearity limit", [tp.pct1_amps.0, tp.pct1_amps.1], "A");
-    row("5 % pulse-linearity limit", [tp.pct5_amps.0, tp.pct5_amps.1], "A");
+    row(
+        "1 % pulse-linearity limit",
+        [tp.pct1_amps.0, tp.pct1_amps.1],
+        "A",
+    );
+    row(
+        "5 % pulse-linearity limit",
+        [tp.pct5_amps.0, tp.pct5_amps.1],
+        "A",
+    );
     rows.push(vec![
         if tp.pulses_compared < t.count {
             "lowest pulse gain / first (200 pulses)"
