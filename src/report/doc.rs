@@ -80,12 +80,23 @@ pub struct Doc {
     pub closing: String,
 }
 
-/// A Markdown table cell or line: pipes escaped, line breaks and control characters made spaces.
+/// A Markdown table cell or line: pipes and HTML's special characters escaped, line breaks and
+/// control characters made spaces.
 fn md(s: &str) -> String {
-    s.chars()
-        .map(|c| if c.is_control() { ' ' } else { c })
-        .collect::<String>()
-        .replace('|', "\\|")
+    let mut out = String::with_capacity(s.len());
+    for c in s.chars() {
+        match c {
+            c if c.is_control() => out.push(' '),
+            '|' => out.push_str("\\|"),
+            // Markdown viewers pass raw HTML through (CommonMark §6.6): a design's own text in
+            // a paragraph or a cell must print, not run.
+            '&' => out.push_str("&amp;"),
+            '<' => out.push_str("&lt;"),
+            '>' => out.push_str("&gt;"),
+            c => out.push(c),
+        }
+    }
+    out
 }
 
 /// HTML text with the five special characters escaped.
@@ -563,6 +574,13 @@ mod tests {
         assert_eq!(eng_split(4.99e-3, "V"), ("4.99".into(), "mV".into()));
         assert_eq!(three_figures(0.0512), "0.0512");
         assert_eq!(three_figures(-42.4), "-42.4");
+    }
+
+    #[test]
+    fn markup_in_a_block_prints_as_text_in_markdown() {
+        // CommonMark §6.6 passes raw HTML through; escaped, it prints.
+        let m = blocks_markdown(&[Block::Paragraph("<img src=x onerror=y> & co".into())]);
+        assert_eq!(m, "&lt;img src=x onerror=y&gt; &amp; co\n\n");
     }
 
     #[test]
