@@ -38,6 +38,9 @@ mod ngspice_dc;
 mod outputs;
 /// Invariants over random valid designs.
 mod properties;
+/// The report's formats agree: tables, not preformatted text, and the same key figures in
+/// text, HTML and Markdown; Markdown links the figures.
+mod report_formats;
 /// Signal budget: QE, pulse charge and amplitude, the pulse at the load, noise, reflections.
 mod signal;
 /// Sizing from requirements, IEC 60063 tables, tolerance statistics, sweeps, supply quality.

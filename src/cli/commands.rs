@@ -83,7 +83,13 @@ pub fn report(args: ReportArgs) -> Result<Exit, CliError> {
     if let (Some(dir), Some(figs)) = (&plots, &figs) {
         output::check_figures(dir, figs, &[design.as_path()], out.force)?;
     }
-    let text = report::render(&a, format.into())?;
+    let format: Format = format.into();
+    let text = if format == Format::Markdown {
+        let links = figure_links(plots.as_deref(), figs.as_deref(), &out);
+        report::markdown::render_linked(&a, &links)
+    } else {
+        report::render(&a, format)?
+    };
     emit(&text, &out, &[&design])?;
     if let (Some(dir), Some(figs)) = (&plots, &figs) {
         write_plots(dir, figs, &[design.as_path()], &out)?;

@@ -1,5 +1,5 @@
-//! The transistor-held stages section (text, JSON; the HTML and Markdown reports take the text
-//! through `report::extra_sections`).
+//! The transistor-held stages section: text, JSON, and document blocks for the HTML and
+//! Markdown reports (through `report::extra_sections`).
 
 use crate::analysis::Analysis;
 use crate::units::format_eng as eng;
@@ -140,4 +140,105 @@ pub fn text(out: &mut String, a: &Analysis) {
         out.push_str(&b);
         let _ = writeln!(out);
     }
+}
+
+/// The section as document blocks (HTML and Markdown), `None` without followers: the
+/// followers as a table with a unit per column, then the base with and without them.
+pub fn blocks(a: &Analysis) -> Option<Vec<crate::report::doc::Block>> {
+    use crate::report::doc::{Block, Column, Table, eng_cells, eng_column};
+    let s = a.active_stages.as_ref()?;
+    let mut b = vec![Block::Paragraph(format!(
+        "Followers on {} (limit {} each, rated {} and {}); taps on a string drawing {}.",
+        s.followers
+            .iter()
+            .map(|r| format!("D{}", r.dynode))
+            .collect::<Vec<_>>()
+            .join(", "),
+        eng(s.current_limit, "A"),
+        eng(s.volts_rating, "V"),
+        eng(s.power_rating, "W"),
+        eng(s.string_amps, "A"),
+    ))];
+    let f = &s.followers;
+    let col =
+        |label: &str, get: &dyn Fn(&crate::budget::active::FollowerRow) -> f64, unit: &str| {
+            eng_column(
+                label,
+                &f.iter().map(|r| Some(get(r))).collect::<Vec<_>>(),
+                unit,
+                "—",
+            )
+        };
+    let cols = [
+        col("tap", &|r| r.tap_volts, "V"),
+        col("held at", &|r| r.hold_volts, "V"),
+        col("dynode", &|r| r.dynode_volts, "V"),
+        col("current", &|r| r.amps, "A"),
+        col("stands", &|r| r.volts, "V"),
+        col("dissipates", &|r| r.watts, "W"),
+    ];
+    let mut columns = vec![Column::new("follower on", "")];
+    columns.extend(cols.iter().map(|c| c.0.clone()));
+    columns.push(Column::new("rating", ""));
+    let rows = f
+        .iter()
+        .enumerate()
+        .map(|(i, r)| {
+            let mut row = vec![format!("D{}", r.dynode)];
+            row.extend(cols.iter().map(|c| c.1[i].clone()));
+            row.push(
+                match (r.over_power, r.over_volts) {
+                    (true, true) => "OVER POWER AND VOLTAGE RATING",
+                    (true, false) => "OVER POWER RATING",
+                    (false, true) => "OVER VOLTAGE RATING",
+                    _ => "within",
+                }
+                .to_string(),
+            );
+            row
+        })
+        .collect();
+    b.push(Block::Table(Table { columns, rows }));
+    b.push(Block::Paragraph(
+        "Current: sunk from the dynode to the cathode end; negative: sourced from the return rail."
+            .into(),
+    ));
+    let mut rows = Vec::new();
+    for (what, v, missing) in [
+        (
+            "supply current at the operating point",
+            [Some(s.supply_amps), s.passive_supply_amps],
+            "does not solve",
+        ),
+        (
+            "anode current at ±1 % gain change",
+            [s.linear_1pct_amps, s.passive_linear_1pct_amps],
+            "not reached in the scan",
+        ),
+    ] {
+        let (unit, cells) = eng_cells(&v, "A", missing);
+        let mut r = vec![what.to_string(), unit];
+        r.extend(cells);
+        rows.push(r);
+    }
+    b.push(Block::Table(Table {
+        columns: vec![
+            Column::new("figure", ""),
+            Column::new("unit", ""),
+            Column::new("with followers", ""),
+            Column::new("passive divider", ""),
+        ],
+        rows,
+    }));
+    b.push(Block::Paragraph(match &s.limit {
+        Some(l) => format!(
+            "The follower on D{} reaches {:.0} % of its limit at an anode current of {} (gain {:+.2} %): past it the dynode is no longer held, it moves with the tube's current as on the passive divider, and the gain departs from linear.",
+            l.dynode,
+            crate::budget::active::AT_LIMIT * 100.0,
+            eng(l.anode_amps, "A"),
+            l.deviation * 100.0
+        ),
+        None => "No follower reaches its limit within the scanned light (to 3× the base's capacity).".to_string(),
+    }));
+    Some(b)
 }

@@ -22,6 +22,7 @@ body { font-family: "DejaVu Sans", "Helvetica Neue", Arial, sans-serif; max-widt
        margin: 1.5em auto; padding: 0 1em; color: #1b1b1b; line-height: 1.4; }
 h1 { font-size: 1.6em; margin-bottom: 0.2em; }
 h2 { font-size: 1.2em; border-bottom: 1px solid #bbb; margin-top: 1.6em; }
+h3 { font-size: 1.02em; margin: 1.3em 0 0.4em; }
 .caution { border: 3px solid #b00000; background: #fff3f3; padding: 0.6em 1.2em; margin: 1em 0; }
 .caution h2 { color: #b00000; border: none; margin-top: 0.3em; }
 .caution li { margin: 0.3em 0; }
@@ -29,12 +30,12 @@ table { border-collapse: collapse; margin: 0.6em 0; font-size: 0.92em; }
 th, td { border: 1px solid #ccc; padding: 0.25em 0.55em; text-align: left; vertical-align: top; }
 th { background: #f0f0f0; }
 td.num { text-align: right; font-variant-numeric: tabular-nums; white-space: nowrap; }
+table.figures td:first-child, table.figures td:nth-child(3) { white-space: nowrap; }
 table.pairs td:first-child { font-weight: bold; background: #fafafa; }
 tr.flagged td { background: #fff0d0; }
 figure { margin: 1em 0; page-break-inside: avoid; }
 figure svg { max-width: 100%; height: auto; border: 1px solid #ddd; }
 figcaption { font-size: 0.9em; color: #444; }
-pre { background: #f7f7f7; padding: 0.6em; overflow-x: auto; font-size: 0.85em; }
 .warn li { color: #7a3b00; }
 .meta { color: #555; font-size: 0.9em; }
 @media print {
@@ -151,20 +152,8 @@ pub fn render(a: &Analysis) -> String {
     let _ = writeln!(out, "<h2>DC linearity</h2>");
     table_html(&mut out, &tables::linearity(a), true);
     for s in crate::report::extra_sections(a) {
-        match &s.blocks {
-            Some(b) => {
-                let _ = writeln!(out, "<h2>{}</h2>", esc(&s.title));
-                out.push_str(&crate::report::doc::blocks_html(b));
-            }
-            None => {
-                let _ = writeln!(
-                    out,
-                    "<h2>{}</h2>\n<pre>{}</pre>",
-                    esc(&s.title),
-                    esc(&s.text)
-                );
-            }
-        }
+        let _ = writeln!(out, "<h2>{}</h2>", esc(&s.title));
+        out.push_str(&crate::report::doc::blocks_html(&s.blocks));
     }
     let _ = writeln!(out, "<h2>Figures</h2>");
     for fig in figures::all(a) {
@@ -214,8 +203,13 @@ pub fn render(a: &Analysis) -> String {
 }
 
 /// A stand-alone page holding one section of the report (e.g. the pulse train): the cautions
-/// first and last, the design's name, the section as preformatted text, the warnings.
-pub fn section_page(a: &Analysis, command: &str, title: &str, text: &str) -> String {
+/// first and last, the design's name, the section's blocks, the warnings.
+pub fn section_page(
+    a: &Analysis,
+    command: &str,
+    title: &str,
+    blocks: &[crate::report::doc::Block],
+) -> String {
     let mut out = String::new();
     let d = &a.design;
     open_page(&mut out, a, &format!("dynode {command}: {}", d.name));
@@ -225,7 +219,8 @@ pub fn section_page(a: &Analysis, command: &str, title: &str, text: &str) -> Str
         esc(command),
         esc(&d.source)
     );
-    let _ = writeln!(out, "<h2>{}</h2>\n<pre>{}</pre>", esc(title), esc(text));
+    let _ = writeln!(out, "<h2>{}</h2>", esc(title));
+    out.push_str(&crate::report::doc::blocks_html(blocks));
     let _ = writeln!(out, "<h2>Warnings</h2>");
     if a.warnings.is_empty() {
         let _ = writeln!(out, "<p>None.</p>");

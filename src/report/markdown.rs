@@ -35,12 +35,6 @@ fn literal(s: &str) -> String {
     out
 }
 
-/// A code fence longer than any run of backticks in `text`, so the text cannot close it.
-fn fence(text: &str) -> String {
-    let longest = text.split(|c| c != '`').map(str::len).max().unwrap_or(0);
-    "`".repeat(longest.max(2) + 1)
-}
-
 fn cell(s: &str) -> String {
     s.replace('|', "\\|")
 }
@@ -72,6 +66,12 @@ fn table_md(out: &mut String, t: &Table, pairs: bool) {
 
 /// Render the report.
 pub fn render(a: &Analysis) -> String {
+    render_linked(a, &[])
+}
+
+/// Render the report with links to its figures' files, given as (file, title) relative to
+/// where the report is read (`report --plots DIR`): a list of images under "Figures".
+pub fn render_linked(a: &Analysis, figures: &[(String, String)]) -> String {
     let mut out = String::new();
     let d = &a.design;
     let _ = writeln!(out, "> **HIGH-VOLTAGE CAUTION**\n>");
@@ -96,14 +96,20 @@ pub fn render(a: &Analysis) -> String {
     let _ = writeln!(out, "## DC linearity\n");
     table_md(&mut out, &tables::linearity(a), true);
     for s in crate::report::extra_sections(a) {
-        let (title, text) = (&s.title, &s.text);
-        if let Some(b) = &s.blocks {
-            let _ = writeln!(out, "## {title}\n");
-            out.push_str(&crate::report::doc::blocks_markdown(b));
-            continue;
+        let _ = writeln!(out, "## {}\n", s.title);
+        out.push_str(&crate::report::doc::blocks_markdown(&s.blocks));
+    }
+    if !figures.is_empty() {
+        let _ = writeln!(out, "## Figures\n");
+        for (file, title) in figures {
+            let _ = writeln!(
+                out,
+                "- ![{}]({})",
+                literal(title),
+                crate::report::doc::link_target(file)
+            );
         }
-        let f = fence(text);
-        let _ = writeln!(out, "## {title}\n\n{f}text\n{}\n{f}\n", text.trim_end());
+        let _ = writeln!(out);
     }
     let _ = writeln!(out, "## Safety\n");
     table_md(&mut out, &tables::stored_charge(a), false);
@@ -128,8 +134,13 @@ pub fn render(a: &Analysis) -> String {
 }
 
 /// A stand-alone Markdown document holding one section of the report (e.g. the pulse train):
-/// the cautions first and last, the design's name, the section in a code block, the warnings.
-pub fn section_page(a: &Analysis, command: &str, title: &str, text: &str) -> String {
+/// the cautions first and last, the design's name, the section's blocks, the warnings.
+pub fn section_page(
+    a: &Analysis,
+    command: &str,
+    title: &str,
+    blocks: &[crate::report::doc::Block],
+) -> String {
     let mut out = String::new();
     let d = &a.design;
     let _ = writeln!(out, "> **HIGH-VOLTAGE CAUTION**\n>");
@@ -143,13 +154,8 @@ pub fn section_page(a: &Analysis, command: &str, title: &str, text: &str) -> Str
         literal(command),
         literal(&d.source)
     );
-    let f = fence(text);
-    let _ = writeln!(
-        out,
-        "## {}\n\n{f}text\n{}\n{f}\n",
-        literal(title),
-        text.trim_end()
-    );
+    let _ = writeln!(out, "## {}\n", literal(title));
+    out.push_str(&crate::report::doc::blocks_markdown(blocks));
     let _ = writeln!(out, "## Warnings\n");
     if a.warnings.is_empty() {
         let _ = writeln!(out, "None.");

@@ -14,12 +14,14 @@ pub mod netlist;
 pub mod plot;
 pub mod schematic;
 pub mod signal;
+pub mod signal_blocks;
 pub mod spread;
 pub mod supply;
 pub mod sweep;
 pub mod tables;
 pub mod text;
 pub mod train;
+pub mod train_blocks;
 
 use crate::analysis::Analysis;
 
@@ -99,56 +101,33 @@ pub fn render(a: &Analysis, format: Format) -> Result<String, finite::NonFinite>
     })
 }
 
-/// A section beyond the core: its title, its plain text, and its document blocks once the
-/// section has moved onto the document model ([`doc`]); HTML and Markdown render the blocks
-/// where there are some, else the text.
+/// A section beyond the core, built once as document blocks ([`doc`]) for the HTML and
+/// Markdown reports (the text report writes its own lines).
 pub struct Section {
     /// Heading.
     pub title: String,
-    /// The section as plain text.
-    pub text: String,
-    /// The section as headings, paragraphs and tables, where it has them.
-    pub blocks: Option<Vec<doc::Block>>,
+    /// The section as headings, paragraphs and tables.
+    pub blocks: Vec<doc::Block>,
 }
 
 /// Sections that capabilities beyond the core add, in report order. The HTML and Markdown
 /// renderers show each one; a capability adds its section here.
 pub fn extra_sections(a: &Analysis) -> Vec<Section> {
-    let mut v = vec![(supply::TITLE.to_string(), supply::body(a))];
-    if let Some(b) = supply::model_body(a) {
-        v.push((supply::MODEL_TITLE.to_string(), b));
-    }
-    if let Some(b) = active::body(a) {
-        v.push((active::TITLE.to_string(), b));
-    }
-    if a.signal.is_some() {
-        let mut s = String::new();
-        signal::render_text(&mut s, a);
-        if !s.trim().is_empty() {
-            v.push((
-                "Signal budget: light to the pulse at the load".to_string(),
-                s,
-            ));
-        }
-    }
-    if let Some(t) = train::section_text(a) {
-        v.push(("Pulse train".to_string(), t));
-    }
-    let mut sections: Vec<Section> = v
-        .into_iter()
-        .map(|(title, text)| {
-            let blocks = (title == supply::TITLE).then(|| supply::blocks(a));
-            Section {
-                title,
-                text,
+    let mut v = vec![(supply::TITLE, Some(supply::blocks(a)))];
+    v.push((supply::MODEL_TITLE, supply::model_blocks(a)));
+    v.push((active::TITLE, active::blocks(a)));
+    v.push((
+        "Signal budget: light to the pulse at the load",
+        signal_blocks::blocks(a),
+    ));
+    v.push(("Pulse train", train_blocks::blocks(a)));
+    v.push(("Parts list", Some(tables::parts_blocks(a))));
+    v.into_iter()
+        .filter_map(|(title, blocks)| {
+            blocks.map(|blocks| Section {
+                title: title.to_string(),
                 blocks,
-            }
+            })
         })
-        .collect();
-    sections.push(Section {
-        title: "Parts list".to_string(),
-        text: crate::budget::parts::text(a),
-        blocks: Some(tables::parts_blocks(a)),
-    });
-    sections
+        .collect()
 }

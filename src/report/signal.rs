@@ -15,12 +15,12 @@ use crate::budget::signal::{SignalBudget, Verdict};
 use crate::solve::waveform::PulseFigures;
 use crate::units::format_eng as eng;
 
-fn opt_s(x: Option<f64>) -> String {
+pub(crate) fn opt_s(x: Option<f64>) -> String {
     x.map_or_else(|| "beyond the window".to_string(), |v| eng(v, "s"))
 }
 
 /// A count with three significant figures: 1600, 336, 11.5, 0.500, 2.34e-3, 5.54e9.
-fn sci(x: f64) -> String {
+pub(crate) fn sci(x: f64) -> String {
     let a = x.abs();
     if x == 0.0 {
         "0".to_string()
@@ -38,7 +38,7 @@ fn sci(x: f64) -> String {
 }
 
 /// A ratio as a share that stays readable when it is tiny or huge: "0.012 %", "3.4e-5 %", "250×".
-fn share(x: f64) -> String {
+pub(crate) fn share(x: f64) -> String {
     if !x.is_finite() {
         "n/a".to_string()
     } else if x >= 10.0 {

@@ -281,3 +281,113 @@ pub fn blocks(a: &Analysis) -> Vec<crate::report::doc::Block> {
     b.push(Block::Paragraph(need));
     b
 }
+
+/// The supply-as-built section as document blocks (HTML and Markdown): the multiplier, its
+/// periodic steady state against ideal diodes and the textbook, what reaches the base, and
+/// whether its ripple meets the gain stability.
+pub fn model_blocks(a: &Analysis) -> Option<Vec<crate::report::doc::Block>> {
+    use crate::report::doc::{Block, Column, FigureTable, Table, eng_cells};
+    let m = a.supply_model.as_ref()?;
+    let s = &m.steady;
+    let mut b = vec![Block::Paragraph(format!(
+        "A {}-stage Cockcroft–Walton multiplier, {} per capacitor, driven at {} with {} peak; {}. The base draws {} at the setting (taken as {}).",
+        m.stages,
+        eng(m.capacitance_farads, "F"),
+        eng(m.frequency_hz, "Hz"),
+        eng(m.amplitude_volts, "V"),
+        match (m.filter_ohms, m.filter_farads) {
+            (Some(r), Some(c)) => format!("RC filter {} and {} after it", eng(r, "Ω"), eng(c, "F")),
+            _ => "no filter".to_string(),
+        },
+        eng(s.load_amps, "A"),
+        eng(s.load_ohms, "Ω")
+    ))];
+    let mut rows = Vec::new();
+    let mut row = |what: &str, v: [Option<f64>; 3]| {
+        let (unit, cells) = eng_cells(&v, "V", "");
+        let mut r = vec![what.to_string(), unit];
+        r.extend(cells);
+        rows.push(r);
+    };
+    row(
+        "droop of the peak output below 2 n V_p",
+        [
+            Some(s.droop_volts),
+            Some(m.ideal_droop_volts),
+            Some(m.textbook_droop_volts),
+        ],
+    );
+    row(
+        "ripple at the multiplier, p-p",
+        [
+            Some(s.multiplier_ripple_volts),
+            Some(m.ideal_ripple_volts),
+            Some(m.textbook_ripple_volts),
+        ],
+    );
+    if m.filter_ohms.is_some() {
+        row(
+            "ripple after the filter, p-p",
+            [
+                Some(s.ripple_volts),
+                None,
+                Some(m.textbook_filtered_ripple_volts),
+            ],
+        );
+    }
+    b.push(Block::Heading(3, "Periodic steady state".into()));
+    b.push(Block::Table(Table {
+        columns: vec![
+            Column::new("figure", ""),
+            Column::new("unit", ""),
+            Column::new("as built", ""),
+            Column::new("ideal diodes", ""),
+            Column::new("textbook", ""),
+        ],
+        rows,
+    }));
+    b.push(Block::Heading(3, "At the base".into()));
+    let mut f = FigureTable::new();
+    f.eng(
+        "mean output at the base",
+        s.output_volts,
+        "V",
+        format!(
+            "{} {} the setting of {}",
+            eng(m.output_minus_setting_volts.abs(), "V"),
+            if m.output_minus_setting_volts >= 0.0 {
+                "above"
+            } else {
+                "below"
+            },
+            eng(a.design.supply_magnitude(), "V")
+        ),
+    );
+    f.eng("no-load output 2 n V_p", s.no_load_volts, "V", "");
+    f.eng("ripple at the base, p-p", s.ripple_volts, "V", "");
+    f.text(
+        "gain ripple, p-p",
+        format!("{:.4}", m.gain_ripple * 100.0),
+        "%",
+        format!("d ln G / d ln V = {:.2}", a.sensitivity),
+    );
+    b.push(f.block());
+    b.push(Block::Paragraph(format!(
+        "{} gain stability of {:.2} %: {}.",
+        if m.gain_stability_given {
+            "The stated"
+        } else {
+            "An example"
+        },
+        m.gain_stability * 100.0,
+        if m.meets {
+            "meets it"
+        } else {
+            "does NOT meet it"
+        }
+    )));
+    b.push(Block::Paragraph(
+        "As built: silicon rectifiers, whose forward drops add to the droop. Textbook (high-voltage engineering texts, from memory): ripple I·n(n+1)/(2fC), drop (I/(fC))(2n³/3+n²/2−n/6), filter ÷ 2πfRC (for a sine; the real ripple is not one).".into(),
+    ));
+    Some(b)
+}

@@ -39,14 +39,6 @@ pub fn text(out: &mut String, a: &Analysis) {
     section(out, t, a);
 }
 
-/// The train section as plain text, for formats that embed it (HTML, Markdown).
-pub fn section_text(a: &Analysis) -> Option<String> {
-    let t = a.train.as_ref()?;
-    let mut out = String::new();
-    section(&mut out, t, a);
-    Some(out)
-}
-
 fn section(out: &mut String, t: &TrainAnalysis, a: &Analysis) {
     let _ = writeln!(out, "PULSE TRAIN ({})", pulsetrain::describe(&t.spec));
     let size = match t.spec.size {
@@ -149,16 +141,7 @@ fn section(out: &mut String, t: &TrainAnalysis, a: &Analysis) {
         "  {:>6} {:>11} {:>13} {:>13}",
         "pulse", "arrival", "gain / first", "peak signal"
     );
-    let rows: Vec<usize> = if n <= 24 {
-        (0..n).collect()
-    } else {
-        let step = n.div_ceil(20);
-        let mut v: Vec<usize> = (0..n).step_by(step).collect();
-        if v.last() != Some(&(n - 1)) {
-            v.push(n - 1);
-        }
-        v
-    };
+    let rows = shown_pulses(n);
     let arrivals = t.spec.pattern.arrivals();
     for i in rows {
         let _ = writeln!(
@@ -230,20 +213,7 @@ fn section(out: &mut String, t: &TrainAnalysis, a: &Analysis) {
             &format!(
                 "capacitors for at most {:.1} % droop of each decoupled gap from the pulses themselves ({}; the DC shift at the average current is the divider's and no capacitor removes it; IEC 60063 E12):",
                 s.allowed * 100.0,
-                match t.spec.pattern {
-                    _ if !s.for_ever
-                        && !matches!(t.spec.pattern, crate::design::train::Pattern::Single) =>
-                        if s.pulses_sized < t.count {
-                            "over the train's first 200 pulses from rest: the base has no steady state at its rate"
-                        } else {
-                            "over this train from rest: the base has no steady state at its rate"
-                        },
-                    crate::design::train::Pattern::Single => "one pulse from rest",
-                    crate::design::train::Pattern::Poisson(..) =>
-                        "the rate continuing for ever, Poisson arrivals: the drop beyond the mean shift exceeded by 1 % of pulses",
-                    _ =>
-                        "the pattern continuing for ever: the drop a period's pulses add in the periodic steady state",
-                }
+                sizing_basis(t, s)
             ),
         );
         let _ = writeln!(
@@ -354,6 +324,40 @@ fn section(out: &mut String, t: &TrainAnalysis, a: &Analysis) {
         ),
     );
     let _ = writeln!(out);
+}
+
+/// The pulses a table shows: all of up to 24, else about 20 evenly spaced and the last.
+pub(crate) fn shown_pulses(n: usize) -> Vec<usize> {
+    if n <= 24 {
+        (0..n).collect()
+    } else {
+        let step = n.div_ceil(20);
+        let mut v: Vec<usize> = (0..n).step_by(step).collect();
+        if v.last() != Some(&(n - 1)) {
+            v.push(n - 1);
+        }
+        v
+    }
+}
+
+/// Which pulses the capacitors were sized for.
+pub(crate) fn sizing_basis(t: &TrainAnalysis, s: &pulsetrain::Sizing) -> &'static str {
+    match t.spec.pattern {
+        _ if !s.for_ever && !matches!(t.spec.pattern, crate::design::train::Pattern::Single) => {
+            if s.pulses_sized < t.count {
+                "over the train's first 200 pulses from rest: the base has no steady state at its rate"
+            } else {
+                "over this train from rest: the base has no steady state at its rate"
+            }
+        }
+        crate::design::train::Pattern::Single => "one pulse from rest",
+        crate::design::train::Pattern::Poisson(..) => {
+            "the rate continuing for ever, Poisson arrivals: the drop beyond the mean shift exceeded by 1 % of pulses"
+        }
+        _ => {
+            "the pattern continuing for ever: the drop a period's pulses add in the periodic steady state"
+        }
+    }
 }
 
 /// The steady state of the train's rate, and which part of each droop a capacitor can fix.
@@ -554,13 +558,15 @@ pub fn render(
         Format::Json => render_json(a)?,
         Format::PartsCsv => crate::budget::parts::csv(a),
         Format::Html | Format::Markdown => {
-            let text = section_text(a).unwrap_or_else(|| {
-                "The design gives no train block; nothing to solve in time.\n".to_string()
+            let blocks = crate::report::train_blocks::blocks(a).unwrap_or_else(|| {
+                vec![crate::report::doc::Block::Paragraph(
+                    "The design gives no train block; nothing to solve in time.".to_string(),
+                )]
             });
             if format == Format::Html {
-                crate::report::html::section_page(a, "train", "Pulse train", &text)
+                crate::report::html::section_page(a, "train", "Pulse train", &blocks)
             } else {
-                crate::report::markdown::section_page(a, "train", "Pulse train", &text)
+                crate::report::markdown::section_page(a, "train", "Pulse train", &blocks)
             }
         }
     })
