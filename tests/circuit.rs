@@ -193,3 +193,29 @@ fn base_resistor_into_an_open_cable_reflects_as_ngspice_does() {
         );
     }
 }
+
+#[test]
+fn every_demo_gives_one_gain_and_one_average_current_in_its_json() {
+    // Done-means of the one-circuit redesign, on the JSON a script reads: the DC section and
+    // the train section give the same small-signal gain (within 1e-4), and where a demo has
+    // both, the signal budget's average anode current (the DC operating point at the pulses'
+    // average) and the train's settled average (the periodic steady state solved in time,
+    // an independent path through the capacitors and the nonlinear gain law) agree within 1 %.
+    let mut both = 0;
+    for path in demo_designs() {
+        let d = design::load(&path).unwrap();
+        let a = analysis::analyse(&d).unwrap();
+        let j = dynode::report::json::to_value(&a);
+        let name = path.display();
+        let g = j["small_signal_gain"].as_f64();
+        if let (Some(g), Some(tg)) = (g, j["train"]["small_signal_gain"].as_f64()) {
+            assert!(rel(tg, g) < 1e-4, "{name}: gain DC {g} train {tg}");
+        }
+        let s = j["signal"]["average_anode_amps"].as_f64();
+        if let (Some(s), Some(t)) = (s, j["train"]["average_anode_amps"].as_f64()) {
+            both += 1;
+            assert!(rel(t, s) < 0.01, "{name}: average signal {s} A train {t} A");
+        }
+    }
+    assert!(both > 0, "a demo with a train and a light rate");
+}

@@ -83,7 +83,7 @@ fn reload_script(version: u64) -> String {
 pub fn page(s: &State, file: &str) -> String {
     let banner = |msg: &str| {
         format!(
-            "<div id=\"serve-error\" style=\"border:3px solid #b00000;background:#fff3f3;padding:0.6em 1em;margin:1em auto;max-width:1040px;font-family:sans-serif\"><strong>The design could not be solved; the page shows the last good report.</strong><pre style=\"white-space:pre-wrap\">{}</pre></div>",
+            "<div id=\"serve-error\" style=\"border:3px solid #b00000;background:#fff3f3;padding:0.6em 1em;margin:1em auto;max-width:1040px;font-family:sans-serif\"><strong>The design could not be solved; the page shows the last good report.</strong><p style=\"white-space:pre-wrap;font-family:monospace\">{}</p></div>",
             esc(msg)
         )
     };

@@ -107,6 +107,7 @@ pub const NULLABLE: &[&str] = &[
     "train",
     "train.recovery_s",
     "train.average_anode_amps",
+    "train.from_rest_average_anode_amps",
     "pulse_linearity.pct1_amps",
     "pulse_linearity.pct5_amps",
     "pulse_linearity.pct1_sign",

@@ -13,7 +13,7 @@ use crate::design::Polarity;
 use uom::si::electric_potential::volt;
 
 /// Version of the JSON layout; bumped when a key changes meaning or disappears.
-pub const SCHEMA_VERSION: u32 = 2;
+pub const SCHEMA_VERSION: u32 = 3;
 
 /// Build the JSON value of a report.
 pub fn to_value(a: &Analysis) -> Value {

@@ -36,10 +36,10 @@ pub fn text(out: &mut String, a: &Analysis) {
     let Some(t) = &a.train else {
         return;
     };
-    section(out, t, a);
+    section(out, t);
 }
 
-fn section(out: &mut String, t: &TrainAnalysis, a: &Analysis) {
+fn section(out: &mut String, t: &TrainAnalysis) {
     let _ = writeln!(out, "PULSE TRAIN ({})", pulsetrain::describe(&t.spec));
     let size = match t.spec.size {
         PulseSize::AnodeCharge(_) => "anode charge given",
@@ -60,29 +60,40 @@ fn section(out: &mut String, t: &TrainAnalysis, a: &Analysis) {
         },
         eng(t.cathode_charge, "C")
     );
-    match t.average_anode_amps {
-        Some(avg) => {
+    let over = |avg: f64| {
+        if avg > t.rated_average_amps {
+            "  OVER RATING"
+        } else {
+            ""
+        }
+    };
+    match (t.average_anode_amps, t.from_rest_average_anode_amps) {
+        (Some(avg), rest) => {
             let _ = writeln!(
                 out,
-                "  average anode current  {} over the train, the base starting at rest (tube rating {}){}",
+                "  average anode current  {} with the pattern repeated until the base settles (tube rating {}){}",
                 eng(avg, "A"),
                 eng(t.rated_average_amps, "A"),
-                if avg > t.rated_average_amps {
-                    "  OVER RATING"
-                } else {
-                    ""
-                }
+                over(avg)
             );
-            if a.design.operating_assumed {
+            if let Some(rest) = rest {
                 let _ = writeln!(
                     out,
-                    "                         run at this rate until the base settles, the same pulses average {} with the gain {:+.2} % off its small-signal value (the DC shift, set by the divider current: no capacitor removes it)",
-                    eng(a.op.anode_amps(), "A"),
-                    (a.op.gain() / a.small_signal_gain - 1.0) * 100.0
+                    "                         {} over the train as given, the base starting at rest",
+                    eng(rest, "A")
                 );
             }
         }
-        None => {
+        (None, Some(rest)) => {
+            let _ = writeln!(
+                out,
+                "  average anode current  {} over the train, the base starting at rest (tube rating {}){}",
+                eng(rest, "A"),
+                eng(t.rated_average_amps, "A"),
+                over(rest)
+            );
+        }
+        (None, None) => {
             let _ = writeln!(out, "  average anode current  (a single pulse has none)");
         }
     }
@@ -439,6 +450,7 @@ fn to_json(t: &TrainAnalysis) -> Value {
         "recovery_s": opt_fin(t.recovery_s),
         "recovery_horizon_s": fin(t.recovery_horizon),
         "average_anode_amps": opt_fin(t.average_anode_amps),
+        "from_rest_average_anode_amps": opt_fin(t.from_rest_average_anode_amps),
         "peak_anode_amps": fin(t.peak_anode_amps),
         "rated_average_anode_amps": fin(t.rated_average_amps),
         "rated_pulse_amps": fin(t.rated_pulse.0),
@@ -510,7 +522,7 @@ pub fn render_text(a: &Analysis) -> String {
     let _ = writeln!(out, "design file: {}", a.design.source);
     let _ = writeln!(out);
     match &a.train {
-        Some(t) => section(&mut out, t, a),
+        Some(t) => section(&mut out, t),
         None => {
             let _ = writeln!(
                 out,

@@ -20,7 +20,7 @@ pub fn blocks(a: &Analysis) -> Option<Vec<Block>> {
     let mut b = vec![Block::Paragraph(super::doc::sentence(
         &pulsetrain::describe(&t.spec),
     ))];
-    summary(&mut b, t, a);
+    summary(&mut b, t);
     if let Some(ss) = &t.steady {
         steady(&mut b, t, ss);
     }
@@ -39,7 +39,7 @@ pub fn blocks(a: &Analysis) -> Option<Vec<Block>> {
     Some(b)
 }
 
-fn summary(b: &mut Vec<Block>, t: &TrainAnalysis, a: &Analysis) {
+fn summary(b: &mut Vec<Block>, t: &TrainAnalysis) {
     let mut f = FigureTable::new();
     let size = match t.spec.size {
         PulseSize::AnodeCharge(_) => "anode charge given",
@@ -63,35 +63,44 @@ fn summary(b: &mut Vec<Block>, t: &TrainAnalysis, a: &Analysis) {
         "per pulse",
         eng(t.cathode_charge, "C"),
     );
-    match t.average_anode_amps {
-        Some(avg) => {
+    let over = |avg: f64| {
+        format!(
+            "(tube rating {}){}",
+            eng(t.rated_average_amps, "A"),
+            if avg > t.rated_average_amps {
+                ": OVER RATING"
+            } else {
+                ""
+            }
+        )
+    };
+    match (t.average_anode_amps, t.from_rest_average_anode_amps) {
+        (Some(avg), rest) => {
             f.eng(
                 "average anode current",
                 avg,
                 "A",
                 format!(
-                    "over the train, the base starting at rest (tube rating {}){}",
-                    eng(t.rated_average_amps, "A"),
-                    if avg > t.rated_average_amps {
-                        ": OVER RATING"
-                    } else {
-                        ""
-                    }
+                    "with the pattern repeated until the base settles {}",
+                    over(avg)
                 ),
             );
-            if a.design.operating_assumed {
+            if let Some(rest) = rest {
                 f.eng(
-                    "average anode current, base settled",
-                    a.op.anode_amps(),
+                    "average anode current, from rest",
+                    rest,
                     "A",
-                    format!(
-                        "run at this rate until the base settles: the gain {:+.2} % off its small-signal value (the DC shift, set by the divider current: no capacitor removes it)",
-                        (a.op.gain() / a.small_signal_gain - 1.0) * 100.0
-                    ),
+                    "over the train as given, the base starting at rest".to_string(),
                 );
             }
         }
-        None => f.text("average anode current", "—", "", "a single pulse has none"),
+        (None, Some(rest)) => f.eng(
+            "average anode current",
+            rest,
+            "A",
+            format!("over the train, the base starting at rest {}", over(rest)),
+        ),
+        (None, None) => f.text("average anode current", "—", "", "a single pulse has none"),
     }
     f.eng(
         "peak anode current",

@@ -135,8 +135,13 @@ pub struct TrainAnalysis {
     pub recovery_s: Option<f64>,
     /// Horizon of the recovery search, seconds.
     pub recovery_horizon: f64,
-    /// Average anode current over the train, amperes (`None` for a single pulse).
+    /// Average anode current with the pattern repeated until the base settles (the steady
+    /// state's, solved in time), amperes; `None` for a single pulse or without a steady state.
+    /// The same pulses as the operating point's average, so the same figure.
     pub average_anode_amps: Option<f64>,
+    /// Average anode current over the train as given, the base starting at rest, amperes
+    /// (`None` for a single pulse).
+    pub from_rest_average_anode_amps: Option<f64>,
     /// Peak anode current over the train, amperes.
     pub peak_anode_amps: f64,
     /// The tube's average anode-current rating, amperes.
@@ -306,7 +311,7 @@ pub fn analyse(
     let gain_ratio: Vec<f64> = run.pulses.iter().map(|p| p.gain() / first_gain).collect();
     let droop = droop_records(design, &run);
     let total_anode: f64 = run.pulses.iter().map(|p| p.anode_charge).sum();
-    let average_anode_amps = spec.pattern.duration().map(|t| total_anode / t);
+    let from_rest_average_anode_amps = spec.pattern.duration().map(|t| total_anode / t);
     let peak_anode_amps = run
         .pulses
         .iter()
@@ -340,7 +345,11 @@ pub fn analyse(
             None
         }
     };
-    if let Some(avg) = average_anode_amps.filter(|a| *a > rated_average_amps) {
+    let average_anode_amps = steady.as_ref().map(|s| s.average_anode_amps);
+    if let Some(avg) = average_anode_amps
+        .or(from_rest_average_anode_amps)
+        .filter(|a| *a > rated_average_amps)
+    {
         warnings.push(warning!(
             Code::TrainAverageAboveRating,
             "The train's average anode current {} is above the tube's rating of {}.",
@@ -371,6 +380,7 @@ pub fn analyse(
         recovery_s: run.recovery,
         recovery_horizon: run.recovery_horizon,
         average_anode_amps,
+        from_rest_average_anode_amps,
         peak_anode_amps,
         rated_average_amps,
         rated_pulse,

@@ -5,6 +5,9 @@ use super::*;
 /// The state a continuous rate settles to (the train's pattern repeated for ever).
 #[derive(Debug, Clone, PartialEq)]
 pub struct SteadyReport {
+    /// Average anode current in the steady state (the anode charge of a period's pulses over
+    /// the period, solved in time), amperes.
+    pub average_anode_amps: f64,
     /// "periodic", "bursts" (the burst pattern repeated) or "poisson" (the mean rate).
     pub kind: &'static str,
     /// Period of the repeated pattern, seconds (the mean interval for Poisson arrivals).
@@ -92,6 +95,7 @@ pub fn steady_state(
         _ => None,
     };
     Ok(Some(SteadyReport {
+        average_anode_amps: run.pulses.iter().map(|p| p.anode_charge).sum::<f64>() / period,
         kind,
         period_s: period,
         gain_ratio: run
