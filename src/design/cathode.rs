@@ -129,8 +129,12 @@ pub(crate) fn check_cathode(
     };
     match raw {
         None => Ok((
-            Cathode::builtin("bialkali", None)
-                .ok_or_else(|| c.fail(&format!("{at}.cathode"), "the built-in bialkali curve is missing"))?,
+            Cathode::builtin("bialkali", None).ok_or_else(|| {
+                c.fail(
+                    &format!("{at}.cathode"),
+                    "the built-in bialkali curve is missing",
+                )
+            })?,
             true,
         )),
         Some(RawCathode::Builtin { name, window }) => {
@@ -195,8 +199,8 @@ pub(crate) fn check_cathode(
                     ),
                 ));
             }
-            let curve =
-                Curve::new(qe).ok_or_else(|| c.fail(&format!("{at}.cathode.points"), "not a valid table"))?;
+            let curve = Curve::new(qe)
+                .ok_or_else(|| c.fail(&format!("{at}.cathode.points"), "not a valid table"))?;
             Ok((Cathode::table(label, curve), false))
         }
     }
@@ -212,7 +216,13 @@ pub(crate) fn check_tube_timing(
     let (ser_rise, rise_assumed) = match &t.single_electron_rise {
         None => (TYPICAL_SER_RISE_S, true),
         Some(v) => (
-            c.ranged(&format!("{at}.single_electron_rise"), v, Kind::Time, 1e-11, 1e-6)?,
+            c.ranged(
+                &format!("{at}.single_electron_rise"),
+                v,
+                Kind::Time,
+                1e-11,
+                1e-6,
+            )?,
             false,
         ),
     };
@@ -242,7 +252,11 @@ pub(crate) fn check_transit(
         return Ok(None);
     };
     Ok(Some((
-        c.within(&format!("{at}.transit_time.time"), &tr.time, &limits::TRANSIT_TIME)?,
+        c.within(
+            &format!("{at}.transit_time.time"),
+            &tr.time,
+            &limits::TRANSIT_TIME,
+        )?,
         tr.volts
             .as_ref()
             .map(|v| c.within(&format!("{at}.transit_time.volts"), v, &limits::TUBE_VOLTS))

@@ -102,7 +102,12 @@ impl<'a> Checker<'a> {
 }
 
 /// A whole number within `(lo, hi)`.
-pub(crate) fn integer(c: &Checker, field: &str, n: i64, (lo, hi): (i64, i64)) -> Result<i64, DesignError> {
+pub(crate) fn integer(
+    c: &Checker,
+    field: &str,
+    n: i64,
+    (lo, hi): (i64, i64),
+) -> Result<i64, DesignError> {
     if (lo..=hi).contains(&n) {
         Ok(n)
     } else {
@@ -130,7 +135,12 @@ pub(crate) fn plain(c: &Checker, field: &str, x: f64, range: &Range) -> Result<f
 }
 
 /// A noise density: the quantity with an optional "/rtHz", "/√Hz" or "/sqrt(Hz)" after it.
-pub(crate) fn density(c: &Checker, field: &str, v: &Value, range: &Range) -> Result<f64, DesignError> {
+pub(crate) fn density(
+    c: &Checker,
+    field: &str,
+    v: &Value,
+    range: &Range,
+) -> Result<f64, DesignError> {
     let v = match v {
         Value::Text(t) => {
             let mut t = t.trim().to_string();

@@ -168,7 +168,13 @@ pub(crate) fn check_divider(
     let stray = check_stray(c, &format!("{at}.stray"), d.stray.as_ref())?;
     let shield_resistor = match &d.shield_resistor {
         None => None,
-        Some(v) => Some(c.ranged(&format!("{at}.shield_resistor"), v, Kind::Resistance, 1.0, 1e13)?),
+        Some(v) => Some(c.ranged(
+            &format!("{at}.shield_resistor"),
+            v,
+            Kind::Resistance,
+            1.0,
+            1e13,
+        )?),
     };
     Ok(DividerCore {
         elements,

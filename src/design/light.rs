@@ -226,7 +226,13 @@ fn check_source(c: &Checker, s: &RawSource) -> Result<(Source, Option<f64>), Des
                 centre: nm,
                 fwhm: f,
             };
-            let shape = shape_of(c, "light.source.width", *shape, RawShape::Rectangular, width)?;
+            let shape = shape_of(
+                c,
+                "light.source.width",
+                *shape,
+                RawShape::Rectangular,
+                width,
+            )?;
             let (n, words) = amount(c, "light.source.pulse", pulse, &spectrum, &shape)?;
             (
                 SourceKind::Led,
@@ -338,7 +344,9 @@ fn check_scintillator(
             if !(x > 0.0 && x < 1.0) {
                 return Err(c.fail(
                     "light.source.resolution",
-                    format!("expected a FWHM fraction between 0 and 100 % such as \"4 %\", found {v}"),
+                    format!(
+                        "expected a FWHM fraction between 0 and 100 % such as \"4 %\", found {v}"
+                    ),
                 ));
             }
             Some(x)

@@ -48,7 +48,6 @@ pub struct RawResistors {
     pub tolerance: Option<Value>,
 }
 
-
 /// The checked load block.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct LoadSpec {

@@ -14,7 +14,9 @@ use std::path::Path;
 use serde::de::{self, Visitor};
 use serde::{Deserialize, Deserializer};
 
-use crate::units::{self, Capacitance, ElectricCurrent, ElectricPotential, ElectricalResistance, Power};
+use crate::units::{
+    self, Capacitance, ElectricCurrent, ElectricPotential, ElectricalResistance, Power,
+};
 use uom::si::capacitance::farad;
 use uom::si::electric_current::ampere;
 use uom::si::electric_potential::volt;
@@ -274,16 +276,21 @@ impl Design {
 
     /// The label of gap `i` (0-based): "K–D1", "D1–D2", …, and "Dn–GND" or "Dn–HV" for the last.
     pub fn gap_label(&self, i: usize) -> String {
-        let n = self.tube.stages;
-        if i == 0 {
-            "K–D1".to_string()
-        } else if i < n {
-            format!("D{}–D{}", i, i + 1)
-        } else {
-            match self.polarity {
-                Polarity::CathodeNegative => format!("D{n}–GND"),
-                Polarity::AnodePositive => format!("D{n}–HV"),
-            }
+        gap_label(self.tube.stages, self.polarity, i)
+    }
+}
+
+/// The label of gap `i` (0-based) of an `n`-dynode tube: "K–D1", "D1–D2", …, and "Dn–GND"
+/// (cathode negative) or "Dn–HV" (anode positive) for the last.
+pub fn gap_label(n: usize, polarity: Polarity, i: usize) -> String {
+    if i == 0 {
+        "K–D1".to_string()
+    } else if i < n {
+        format!("D{}–D{}", i, i + 1)
+    } else {
+        match polarity {
+            Polarity::CathodeNegative => format!("D{n}–GND"),
+            Polarity::AnodePositive => format!("D{n}–HV"),
         }
     }
 }
@@ -376,7 +383,12 @@ fn check(raw: RawDesign, file: &str) -> Result<Design, DesignError> {
     check_dc_return(&c, "load", &load, input)?;
     let followers = match &raw.divider.followers {
         None => None,
-        Some(f) => Some(check_followers(&c, "divider", f, divider.elements.len() - 1)?),
+        Some(f) => Some(check_followers(
+            &c,
+            "divider",
+            f,
+            divider.elements.len() - 1,
+        )?),
     };
     Ok(Design {
         source: file.to_string(),
@@ -390,7 +402,9 @@ fn check(raw: RawDesign, file: &str) -> Result<Design, DesignError> {
         elements: divider.elements,
         decoupling: divider.decoupling,
         stray: Capacitance::new::<farad>(divider.stray),
-        shield_resistor: divider.shield_resistor.map(ElectricalResistance::new::<ohm>),
+        shield_resistor: divider
+            .shield_resistor
+            .map(ElectricalResistance::new::<ohm>),
         load_resistance: load.resistance,
         base_resistance: load.at_base,
         load_capacitance: load.capacitance,

@@ -3,7 +3,9 @@
 
 use serde::Deserialize;
 
-use super::{Checker, DesignError, Element, SignalSpec, TubeSpec, Value, limits, linear_gap_voltages};
+use super::{
+    Checker, DesignError, Element, SignalSpec, TubeSpec, Value, limits, linear_gap_voltages,
+};
 use crate::units;
 use uom::si::electric_potential::volt;
 

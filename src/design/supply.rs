@@ -166,11 +166,21 @@ pub(crate) fn check_supply(
     }
     let current_limit = match &s.current_limit {
         None => None,
-        Some(v) => Some(c.within(&format!("{at}.current_limit"), v, &limits::SUPPLY_CURRENT_LIMIT)?),
+        Some(v) => Some(c.within(
+            &format!("{at}.current_limit"),
+            v,
+            &limits::SUPPLY_CURRENT_LIMIT,
+        )?),
     };
     let resistance = match &s.output_resistance {
         None => None,
-        Some(v) => Some(c.ranged(&format!("{at}.output_resistance"), v, Kind::Resistance, 1e-3, 1e9)?),
+        Some(v) => Some(c.ranged(
+            &format!("{at}.output_resistance"),
+            v,
+            Kind::Resistance,
+            1e-3,
+            1e9,
+        )?),
     };
     let capacitance = check_output_capacitance(c, at, s.output_capacitance.as_ref())?;
     Ok(SupplyCore {
@@ -187,8 +197,16 @@ pub(crate) fn check_output_capacitance(
     at: &str,
     v: Option<&Value>,
 ) -> Result<Option<f64>, DesignError> {
-    v.map(|v| c.ranged(&format!("{at}.output_capacitance"), v, Kind::Capacitance, 1e-15, 1e-3))
-        .transpose()
+    v.map(|v| {
+        c.ranged(
+            &format!("{at}.output_capacitance"),
+            v,
+            Kind::Capacitance,
+            1e-15,
+            1e-3,
+        )
+    })
+    .transpose()
 }
 
 /// One of the supply's extras (shared with requirements files): ripple, drift, setting
@@ -219,7 +237,9 @@ pub(crate) fn check_quality(
             };
             let ripple_volts = match &q.ripple {
                 None => None,
-                Some(v) => Some(c.ranged(&format!("{at}.quality.ripple"), v, Kind::Voltage, 1e-9, 1e3)?),
+                Some(v) => {
+                    Some(c.ranged(&format!("{at}.quality.ripple"), v, Kind::Voltage, 1e-9, 1e3)?)
+                }
             };
             Some(SupplyQuality {
                 ripple_volts,

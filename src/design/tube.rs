@@ -196,7 +196,11 @@ pub(crate) fn check_tube(c: &Checker, at: &str, t: &RawTube) -> Result<TubeSpec,
     let (collection_knee, knee_assumed) = match &t.collection_knee {
         None => (crate::model::tube::COLLECTION_VOLTS, true),
         Some(v) => (
-            c.within(&format!("{at}.collection_knee"), v, &limits::COLLECTION_KNEE)?,
+            c.within(
+                &format!("{at}.collection_knee"),
+                v,
+                &limits::COLLECTION_KNEE,
+            )?,
             false,
         ),
     };
