@@ -194,48 +194,46 @@ pub(super) fn refine_by_train(
     let Some((series, droop)) = req.capacitors else {
         return Ok(());
     };
-    {
-        let text0 = write_design(
-            req,
-            p.gaps,
-            capacitors,
-            p.v_set,
-            reasoning,
-            p.charge,
-            Some(p.train),
-        );
-        let d0 = design::parse_str(&text0, &format!("{} (sized)", req.source))?;
-        let ta = crate::budget::pulsetrain::analyse(&d0, tube, &Default::default())
-            .map_err(|e| SizingError::Train(format!("{}: {e}", req.source)))?;
-        if let Some(sz) = ta.and_then(|t| t.sizing) {
-            let before: Vec<f64> = capacitors.iter().map(|c| c.farads).collect();
-            for (c, sc) in capacitors.iter_mut().zip(&sz.caps) {
-                let need = sc.needed_farads / (1.0 - req.capacitor_tolerance);
-                c.farads = series.clean(series.snap(need, Snap::Up).unwrap_or(need));
-                c.rating = c.rating.max(sc.rating_volts);
-                c.droop = droop * need * (1.0 - req.capacitor_tolerance) / c.farads;
-            }
-            reasoning.push(format!(
-            "Decoupling refined by the pulse-train solve (the whole base in time, strays included, one Gaussian pulse of FWHM = the pulse width): needed {}; fitted {} (ΔV = Q/C gave {}); ratings the larger of the two rules.",
-            sz.caps.iter().map(|c| format_eng(c.needed_farads, "F")).collect::<Vec<_>>().join(", "),
-            capacitors.iter().map(|c| format_eng(c.farads, "F")).collect::<Vec<_>>().join(", "),
-            before.iter().map(|c| format_eng(*c, "F")).collect::<Vec<_>>().join(", ")
-        ));
+    let text0 = write_design(
+        req,
+        p.gaps,
+        capacitors,
+        p.v_set,
+        reasoning,
+        p.charge,
+        Some(p.train),
+    );
+    let d0 = design::parse_str(&text0, &format!("{} (sized)", req.source))?;
+    let ta = crate::budget::pulsetrain::analyse(&d0, tube, &Default::default())
+        .map_err(|e| SizingError::Train(format!("{}: {e}", req.source)))?;
+    if let Some(sz) = ta.and_then(|t| t.sizing) {
+        let before: Vec<f64> = capacitors.iter().map(|c| c.farads).collect();
+        for (c, sc) in capacitors.iter_mut().zip(&sz.caps) {
+            let need = sc.needed_farads / (1.0 - req.capacitor_tolerance);
+            c.farads = series.clean(series.snap(need, Snap::Up).unwrap_or(need));
+            c.rating = c.rating.max(sc.rating_volts);
+            c.droop = droop * need * (1.0 - req.capacitor_tolerance) / c.farads;
         }
-        if let Some(rate) = req.rate {
-            let line = size_for_rate(req, tube, rate, series, droop, capacitors, |caps| {
-                write_design(
-                    req,
-                    p.gaps,
-                    caps,
-                    p.v_set,
-                    reasoning,
-                    p.charge,
-                    Some(p.train),
-                )
-            })?;
-            reasoning.push(line);
-        }
+        reasoning.push(format!(
+        "Decoupling refined by the pulse-train solve (the whole base in time, strays included, one Gaussian pulse of FWHM = the pulse width): needed {}; fitted {} (ΔV = Q/C gave {}); ratings the larger of the two rules.",
+        sz.caps.iter().map(|c| format_eng(c.needed_farads, "F")).collect::<Vec<_>>().join(", "),
+        capacitors.iter().map(|c| format_eng(c.farads, "F")).collect::<Vec<_>>().join(", "),
+        before.iter().map(|c| format_eng(*c, "F")).collect::<Vec<_>>().join(", ")
+    ));
+    }
+    if let Some(rate) = req.rate {
+        let line = size_for_rate(req, tube, rate, series, droop, capacitors, |caps| {
+            write_design(
+                req,
+                p.gaps,
+                caps,
+                p.v_set,
+                reasoning,
+                p.charge,
+                Some(p.train),
+            )
+        })?;
+        reasoning.push(line);
     }
     Ok(())
 }

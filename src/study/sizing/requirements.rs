@@ -370,43 +370,7 @@ pub fn parse_requirements(text: &str, file: &str) -> Result<Requirements, Sizing
             g
         }
     };
-    let a = &raw.anode;
-    let max_average = quantity(
-        f,
-        "anode.max_average",
-        &a.max_average,
-        Kind::Current,
-        1e-12,
-        0.1,
-    )?;
-    let opt = |field: &str,
-               v: &Option<Value>,
-               kind: Kind,
-               lo: f64,
-               hi: f64|
-     -> Result<Option<f64>, DesignError> {
-        v.as_ref()
-            .map(|v| quantity(f, field, v, kind, lo, hi))
-            .transpose()
-    };
-    let max_peak = opt("anode.max_peak", &a.max_peak, Kind::Current, 1e-9, 100.0)?;
-    let rate = opt("anode.rate", &a.rate, Kind::Frequency, 1e-3, 1e10)?;
-    let pulse_width = opt("anode.pulse_width", &a.pulse_width, Kind::Time, 1e-12, 1e-3)?;
-    let pulse_charge = opt(
-        "anode.pulse_charge",
-        &a.pulse_charge,
-        Kind::Charge,
-        1e-18,
-        1e-3,
-    )?;
-    if pulse_width.is_some() && max_peak.is_none() {
-        return Err(field_err(
-            f,
-            "anode.pulse_width",
-            "a pulse width is given without anode.max_peak; give both or neither",
-        )
-        .into());
-    }
+    let (max_average, max_peak, rate, pulse_width, pulse_charge) = check_anode(f, &raw.anode)?;
     let deviation = quantity(f, "deviation", &raw.deviation, Kind::Ratio, 1e-4, 0.3)?;
     let supply_max_volts = quantity(
         f,
@@ -436,7 +400,8 @@ pub fn parse_requirements(text: &str, file: &str) -> Result<Requirements, Sizing
             quantity(f, "capacitors.droop", &c.droop, Kind::Ratio, 1e-5, 0.2)?,
         )),
     };
-    let max_dissipation = opt(
+    let max_dissipation = optional(
+        f,
         "max_dissipation",
         &raw.max_dissipation,
         Kind::Power,
@@ -447,32 +412,7 @@ pub fn parse_requirements(text: &str, file: &str) -> Result<Requirements, Sizing
         None => 0.0,
         Some(v) => quantity(f, "capacitors.tolerance", v, Kind::Ratio, 0.0, 0.5)?,
     };
-    if let RatioPattern::Custom(w) = &raw.ratio {
-        if stages >= 1 && w.len() != stages as usize + 1 {
-            return Err(field_err(
-                f,
-                "ratio",
-                format!(
-                    "expected {} weights (one per gap) for {stages} dynodes, found {}",
-                    stages + 1,
-                    w.len()
-                ),
-            )
-            .into());
-        }
-        if let Some((i, x)) = w
-            .iter()
-            .enumerate()
-            .find(|(_, x)| !(x.is_finite() && **x > 0.0))
-        {
-            return Err(field_err(
-                f,
-                &format!("ratio[{i}]"),
-                format!("expected a positive weight, found {x}"),
-            )
-            .into());
-        }
-    }
+    check_ratio(f, &raw.ratio, stages)?;
     let base = check_base_blocks(f, &raw)?;
     if max_average > base.tube.max_anode_current.get::<ampere>() {
         return Err(field_err(
@@ -507,4 +447,88 @@ pub fn parse_requirements(text: &str, file: &str) -> Result<Requirements, Sizing
         capacitor_tolerance,
         max_dissipation,
     })
+}
+
+/// An optional quantity within `lo..=hi`.
+fn optional(
+    f: &str,
+    field: &str,
+    v: &Option<Value>,
+    kind: Kind,
+    lo: f64,
+    hi: f64,
+) -> Result<Option<f64>, DesignError> {
+    v.as_ref()
+        .map(|v| quantity(f, field, v, kind, lo, hi))
+        .transpose()
+}
+
+/// The anode block: (max_average, max_peak, rate, pulse_width, pulse_charge) in SI units.
+type Anode = (f64, Option<f64>, Option<f64>, Option<f64>, Option<f64>);
+
+/// The anode currents and the pulse, each within its range; a width needs a peak.
+fn check_anode(f: &str, a: &RawAnode) -> Result<Anode, DesignError> {
+    let max_average = quantity(
+        f,
+        "anode.max_average",
+        &a.max_average,
+        Kind::Current,
+        1e-12,
+        0.1,
+    )?;
+    let max_peak = optional(f, "anode.max_peak", &a.max_peak, Kind::Current, 1e-9, 100.0)?;
+    let rate = optional(f, "anode.rate", &a.rate, Kind::Frequency, 1e-3, 1e10)?;
+    let pulse_width = optional(
+        f,
+        "anode.pulse_width",
+        &a.pulse_width,
+        Kind::Time,
+        1e-12,
+        1e-3,
+    )?;
+    let pulse_charge = optional(
+        f,
+        "anode.pulse_charge",
+        &a.pulse_charge,
+        Kind::Charge,
+        1e-18,
+        1e-3,
+    )?;
+    if pulse_width.is_some() && max_peak.is_none() {
+        return Err(field_err(
+            f,
+            "anode.pulse_width",
+            "a pulse width is given without anode.max_peak; give both or neither",
+        ));
+    }
+    Ok((max_average, max_peak, rate, pulse_width, pulse_charge))
+}
+
+/// A custom ratio: one positive weight per gap.
+fn check_ratio(f: &str, ratio: &RatioPattern, stages: i64) -> Result<(), DesignError> {
+    if let RatioPattern::Custom(w) = ratio {
+        if stages >= 1 && w.len() != stages as usize + 1 {
+            return Err(field_err(
+                f,
+                "ratio",
+                format!(
+                    "expected {} weights (one per gap) for {stages} dynodes, found {}",
+                    stages + 1,
+                    w.len()
+                ),
+            ));
+        }
+        if let Some((i, x)) = w
+            .iter()
+            .enumerate()
+            .find(|(_, x)| !(x.is_finite() && **x > 0.0))
+        {
+            return Err(field_err(
+                f,
+                &format!("ratio[{i}]"),
+                format!("expected a positive weight, found {x}"),
+            ));
+        }
+    }
+    Ok(())
 }

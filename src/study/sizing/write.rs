@@ -121,18 +121,70 @@ pub(super) fn write_design(
 ) -> String {
     let b = &req.base;
     let mut s = String::new();
+    write_header(&mut s, req, gaps, caps, reasoning, charge);
+    let _ = writeln!(s, "(");
+    let _ = writeln!(s, "    name: {:?},", format!("{} (sized)", req.name));
+    if let Some(notes) = &req.notes {
+        let _ = writeln!(s, "    notes: Some({notes:?}),");
+    }
+    s.push_str(&tube_block(&b.tube));
+    let sign = if b.polarity == Polarity::CathodeNegative {
+        -1.0
+    } else {
+        1.0
+    };
+    write_supply(&mut s, req, sign * v_set);
+    write_divider(&mut s, req, gaps, caps);
+    write_load(&mut s, req);
+    let _ = writeln!(
+        s,
+        "    resistors: Some((power: \"{}\", working_voltage: \"{}\", tolerance: Some({}))),",
+        exact(b.resistors.power.get::<watt>(), "W"),
+        exact(b.resistors.working_voltage.get::<volt>(), "V"),
+        b.resistors.tolerance
+    );
+    let _ = writeln!(
+        s,
+        "    // Reported at the largest average anode current the base was sized for."
+    );
+    let _ = writeln!(
+        s,
+        "    operating: Some((anode_current: \"{}\")),",
+        exact(req.max_average, "A")
+    );
+    if let Some(t) = train {
+        let _ = writeln!(
+            s,
+            "    // The pulse the decoupling capacitors were sized for (time-domain solve)."
+        );
+        s.push_str(t);
+    }
+    let _ = writeln!(s, ")");
+    s
+}
+
+/// The comment block: the cautions, the requirements, the reasoning, the gaps and capacitors.
+fn write_header(
+    s: &mut String,
+    req: &Requirements,
+    gaps: &[GapChoice],
+    caps: &[CapChoice],
+    reasoning: &[String],
+    charge: &Option<(f64, String)>,
+) {
+    let b = &req.base;
     comment(
-        &mut s,
+        s,
         &format!("Design sized by `dynode size` from {}.", req.source),
     );
     comment(
-        &mut s,
+        s,
         "HIGH VOLTAGE: check every value against your own tube's data and your parts before building; switch off, wait the bleed-down time and discharge before touching.",
     );
     let _ = writeln!(s, "//");
     let _ = writeln!(s, "// Requirements:");
     comment(
-        &mut s,
+        s,
         &format!(
             "  target small-signal gain {:.4e}; {} ratio",
             req.target_gain,
@@ -140,7 +192,7 @@ pub(super) fn write_design(
         ),
     );
     comment(
-        &mut s,
+        s,
         &format!(
             "  largest average anode current {}{}{}{}; allowed DC gain deviation {:.2} %",
             format_eng(req.max_average, "A"),
@@ -156,7 +208,7 @@ pub(super) fn write_design(
         ),
     );
     comment(
-        &mut s,
+        s,
         &format!(
             "  supply up to {} and {}{}",
             format_eng(req.supply_max_volts, "V"),
@@ -168,7 +220,7 @@ pub(super) fn write_design(
         ),
     );
     comment(
-        &mut s,
+        s,
         &format!(
             "  resistors {} {:.1} %, {} / {} per part, derated to {:.0} % power{}",
             req.series,
@@ -185,7 +237,7 @@ pub(super) fn write_design(
     let _ = writeln!(s, "//");
     let _ = writeln!(s, "// Reasoning:");
     for r in reasoning {
-        comment(&mut s, &format!("  {r}"));
+        comment(s, &format!("  {r}"));
     }
     let _ = writeln!(s, "//");
     let _ = writeln!(s, "// Gaps (ideal share → snapped share, error):");
@@ -218,19 +270,13 @@ pub(super) fn write_design(
             );
         }
     }
-    let _ = writeln!(s, "(");
-    let _ = writeln!(s, "    name: {:?},", format!("{} (sized)", req.name));
-    if let Some(notes) = &req.notes {
-        let _ = writeln!(s, "    notes: Some({notes:?}),");
-    }
-    s.push_str(&tube_block(&b.tube));
-    let sign = if b.polarity == Polarity::CathodeNegative {
-        -1.0
-    } else {
-        1.0
-    };
+}
+
+/// The supply block at the signed voltage `volts`.
+fn write_supply(s: &mut String, req: &Requirements, volts: f64) {
+    let b = &req.base;
     let _ = writeln!(s, "    supply: (");
-    let _ = writeln!(s, "        volts: \"{}\",", exact(sign * v_set, "V"));
+    let _ = writeln!(s, "        volts: \"{}\",", exact(volts, "V"));
     let _ = writeln!(s, "        polarity: {:?},", b.polarity);
     let _ = writeln!(
         s,
@@ -259,6 +305,11 @@ pub(super) fn write_design(
         );
     }
     let _ = writeln!(s, "    ),");
+}
+
+/// The divider block: the snapped parts, the capacitors across gaps and the stray.
+fn write_divider(s: &mut String, req: &Requirements, gaps: &[GapChoice], caps: &[CapChoice]) {
+    let b = &req.base;
     let _ = writeln!(s, "    divider: (");
     let elems: Vec<String> = gaps
         .iter()
@@ -294,6 +345,11 @@ pub(super) fn write_design(
         exact(b.stray.get::<farad>(), "F")
     );
     let _ = writeln!(s, "    ),");
+}
+
+/// The load block as the requirements give it.
+fn write_load(s: &mut String, req: &Requirements) {
+    let b = &req.base;
     let _ = writeln!(s, "    load: (");
     let _ = writeln!(
         s,
@@ -336,31 +392,6 @@ pub(super) fn write_design(
         }
     }
     let _ = writeln!(s, "    ),");
-    let _ = writeln!(
-        s,
-        "    resistors: Some((power: \"{}\", working_voltage: \"{}\", tolerance: Some({}))),",
-        exact(b.resistors.power.get::<watt>(), "W"),
-        exact(b.resistors.working_voltage.get::<volt>(), "V"),
-        b.resistors.tolerance
-    );
-    let _ = writeln!(
-        s,
-        "    // Reported at the largest average anode current the base was sized for."
-    );
-    let _ = writeln!(
-        s,
-        "    operating: Some((anode_current: \"{}\")),",
-        exact(req.max_average, "A")
-    );
-    if let Some(t) = train {
-        let _ = writeln!(
-            s,
-            "    // The pulse the decoupling capacitors were sized for (time-domain solve)."
-        );
-        s.push_str(t);
-    }
-    let _ = writeln!(s, ")");
-    s
 }
 
 /// A short text summary of a sizing for the terminal.
