@@ -10,9 +10,9 @@ use crate::units::Kind;
 
 /// Single-electron rise time assumed when the tube gives none (10–90 %, from memory: a few ns
 /// for a 2-inch linear-focused tube).
-pub const TYPICAL_SER_RISE_S: f64 = 2e-9;
+pub(crate) const TYPICAL_SER_RISE_S: f64 = 2e-9;
 /// Transit-time spread (FWHM) assumed when the tube gives none (from memory).
-pub const TYPICAL_TTS_FWHM_S: f64 = 1e-9;
+pub(crate) const TYPICAL_TTS_FWHM_S: f64 = 1e-9;
 
 /// The cathode's spectral response as written in `tube.cathode`.
 #[derive(Debug, Deserialize)]
@@ -131,7 +131,7 @@ pub(crate) fn check_cathode(
         None => Ok((
             Cathode::builtin("bialkali", None).ok_or_else(|| {
                 c.fail(
-                    &format!("{at}.cathode"),
+                    format!("{at}.cathode"),
                     "the built-in bialkali curve is missing",
                 )
             })?,
@@ -140,7 +140,7 @@ pub(crate) fn check_cathode(
         Some(RawCathode::Builtin { name, window }) => {
             if cathode::find(cathode::builtin_cathodes(), name).is_none() {
                 return Err(c.fail(
-                    &format!("{at}.cathode.name"),
+                    format!("{at}.cathode.name"),
                     format!(
                         "expected one of {} (see `dynode cathodes`), found \"{name}\"",
                         keys()
@@ -151,13 +151,13 @@ pub(crate) fn check_cathode(
                 && cathode::find(cathode::builtin_windows(), w).is_none()
             {
                 return Err(c.fail(
-                    &format!("{at}.cathode.window"),
+                    format!("{at}.cathode.window"),
                     format!("expected one of borosilicate, uv-glass, fused-silica, found \"{w}\""),
                 ));
             }
             Cathode::builtin(name, window.as_deref())
                 .map(|k| (k, false))
-                .ok_or_else(|| c.fail(&format!("{at}.cathode"), "unknown built-in"))
+                .ok_or_else(|| c.fail(format!("{at}.cathode"), "unknown built-in"))
         }
         Some(RawCathode::Table { unit, points }) => {
             let (max, label) = match unit {
@@ -200,7 +200,7 @@ pub(crate) fn check_cathode(
                 ));
             }
             let curve = Curve::new(qe)
-                .ok_or_else(|| c.fail(&format!("{at}.cathode.points"), "not a valid table"))?;
+                .ok_or_else(|| c.fail(format!("{at}.cathode.points"), "not a valid table"))?;
             Ok((Cathode::table(label, curve), false))
         }
     }

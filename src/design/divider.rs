@@ -138,7 +138,7 @@ pub struct Decoupling {
 }
 
 /// Stray capacitance per gap assumed when none is given (common practice: a few pF).
-pub const TYPICAL_STRAY_FARADS: f64 = 3e-12;
+pub(crate) const TYPICAL_STRAY_FARADS: f64 = 3e-12;
 
 /// Power rating assumed for a Zener diode or stack when the design gives none, watts (a
 /// common small part, from memory).
@@ -199,7 +199,7 @@ fn check_gaps(
 ) -> Result<Gaps, DesignError> {
     if gaps.len() != n + 1 {
         return Err(c.fail(
-            &format!("{at}.gaps"),
+            format!("{at}.gaps"),
             format!(
                 "a {n}-dynode tube has {} gaps (K–D1, D1–D2, …, D{n}–return), so expected {} elements, found {}",
                 n + 1,
@@ -279,7 +279,7 @@ fn check_gaps(
         .sum();
     if zener_sum >= supply {
         return Err(c.fail(
-            &format!("{at}.gaps"),
+            format!("{at}.gaps"),
             format!(
                 "the Zener voltages add up to {} V, at or above the supply's {} V: no divider current would flow",
                 zener_sum,
@@ -368,7 +368,7 @@ pub(crate) fn check_stray(c: &Checker, field: &str, v: Option<&Value>) -> Result
 
 /// Default small-signal output resistance of a follower, ohms (1/g_m of a small high-voltage
 /// MOSFET at a few milliamperes is tens of ohms; an order of magnitude from memory).
-pub const FOLLOWER_OUTPUT_OHMS: f64 = 100.0;
+pub(crate) const FOLLOWER_OUTPUT_OHMS: f64 = 100.0;
 
 /// Checked followers (docs/physics.md §14).
 #[derive(Debug, Clone, PartialEq)]
@@ -458,7 +458,7 @@ pub(crate) fn check_followers(
 
 /// Gap voltages with no tube current: resistors share what the Zeners leave, in proportion.
 /// (Ohm's and Kirchhoff's laws; Zeners at their breakdown voltage plus I·r.)
-pub fn linear_gap_voltages(elements: &[Element], supply: f64) -> Vec<f64> {
+pub(crate) fn linear_gap_voltages(elements: &[Element], supply: f64) -> Vec<f64> {
     let (vz, r): (f64, f64) = elements.iter().fold((0.0, 0.0), |(vz, r), e| match e {
         Element::Resistor(x) => (vz, r + x.get::<ohm>()),
         Element::Zener(v, rz) => (vz + v.get::<volt>(), r + rz.get::<ohm>()),

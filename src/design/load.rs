@@ -113,7 +113,7 @@ pub(crate) fn check_load(
     };
     if coupling_rating.is_some() && coupling.is_none() {
         return Err(c.fail(
-            &format!("{at}.coupling_rating"),
+            format!("{at}.coupling_rating"),
             format!("a rating is given but no {at}.coupling capacitor"),
         ));
     }
@@ -121,13 +121,13 @@ pub(crate) fn check_load(
         Polarity::AnodePositive => {
             if anode_resistor.is_none() {
                 return Err(c.fail(
-                    &format!("{at}.anode_resistor"),
+                    format!("{at}.anode_resistor"),
                     "polarity AnodePositive puts the anode at +HV: expected an anode resistor to +HV (e.g. \"100k\")",
                 ));
             }
             if coupling.is_none() {
                 return Err(c.fail(
-                    &format!("{at}.coupling"),
+                    format!("{at}.coupling"),
                     "polarity AnodePositive needs a coupling capacitor between the anode and the load, or the load sits at +HV",
                 ));
             }
@@ -135,7 +135,7 @@ pub(crate) fn check_load(
         Polarity::CathodeNegative => {
             if coupling.is_some() && anode_resistor.is_none() {
                 return Err(c.fail(
-                    &format!("{at}.anode_resistor"),
+                    format!("{at}.anode_resistor"),
                     "a coupling capacitor blocks the anode's DC path: expected an anode resistor to ground beside it",
                 ));
             }
@@ -230,7 +230,7 @@ pub(crate) fn check_resistor_family(
     };
     if !(tol > 0.0 && tol < 0.5) {
         return Err(c.fail(
-            &format!("{at}.tolerance"),
+            format!("{at}.tolerance"),
             format!("expected a tolerance between 0 and 50 %, found {tol}"),
         ));
     }

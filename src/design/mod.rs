@@ -48,11 +48,11 @@ pub use operating::*;
 pub use readout::*;
 pub use signal_fields::*;
 pub use supply::*;
-pub use syntax::*;
+pub(crate) use syntax::syntax_error;
 pub use tube::*;
 
 /// Largest design file read, in bytes: a design is a page of text, not a data dump.
-pub const MAX_FILE_BYTES: u64 = 1 << 20;
+pub(crate) const MAX_FILE_BYTES: u64 = 1 << 20;
 
 /// Everything that can be wrong with a design file.
 #[derive(Debug, thiserror::Error)]
@@ -282,7 +282,7 @@ impl Design {
 
 /// The label of gap `i` (0-based) of an `n`-dynode tube: "K–D1", "D1–D2", …, and "Dn–GND"
 /// (cathode negative) or "Dn–HV" (anode positive) for the last.
-pub fn gap_label(n: usize, polarity: Polarity, i: usize) -> String {
+pub(crate) fn gap_label(n: usize, polarity: Polarity, i: usize) -> String {
     if i == 0 {
         "K–D1".to_string()
     } else if i < n {

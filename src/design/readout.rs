@@ -9,13 +9,13 @@ use crate::units::Kind;
 
 /// Cable velocity factor assumed when none is given (solid polyethylene dielectric, common
 /// practice).
-pub const TYPICAL_VELOCITY_FACTOR: f64 = 0.66;
+pub(crate) const TYPICAL_VELOCITY_FACTOR: f64 = 0.66;
 /// Divisions on the vertical axis assumed for an oscilloscope (common practice).
-pub const TYPICAL_DIVISIONS: u32 = 8;
+pub(crate) const TYPICAL_DIVISIONS: u32 = 8;
 /// An oscilloscope's baseline noise on its coarser ranges, in divisions rms (from memory: a
 /// trace about a third of a division thick; the front end's own floor dominates only on the
 /// most sensitive ranges).
-pub const TYPICAL_NOISE_PER_DIVISION: f64 = 0.04;
+pub(crate) const TYPICAL_NOISE_PER_DIVISION: f64 = 0.04;
 
 /// The instrument's most sensitive range.
 #[derive(Debug, Deserialize)]

@@ -123,7 +123,7 @@ pub(crate) fn check_supply(
     // The magnitude first: "-0 V" is too small, whatever its sign.
     if sv.abs() < limits::SUPPLY_VOLTS.lo {
         return Err(c.fail(
-            &format!("{at}.volts"),
+            format!("{at}.volts"),
             format!(
                 "expected a high voltage of at least {} V in magnitude, found {}",
                 units::show_number(limits::SUPPLY_VOLTS.lo),
@@ -134,7 +134,7 @@ pub(crate) fn check_supply(
     match s.polarity {
         Polarity::CathodeNegative if sv >= 0.0 => {
             return Err(c.fail(
-                &format!("{at}.volts"),
+                format!("{at}.volts"),
                 format!(
                     "polarity is CathodeNegative, so expected a negative voltage such as \"-{} V\", found {}",
                     sv.abs(),
@@ -144,7 +144,7 @@ pub(crate) fn check_supply(
         }
         Polarity::AnodePositive if sv <= 0.0 => {
             return Err(c.fail(
-                &format!("{at}.volts"),
+                format!("{at}.volts"),
                 format!(
                     "polarity is AnodePositive, so expected a positive voltage such as \"{} V\", found {}",
                     sv.abs(),
@@ -156,7 +156,7 @@ pub(crate) fn check_supply(
     }
     if sv.abs() > max_supply {
         return Err(c.fail(
-            &format!("{at}.volts"),
+            format!("{at}.volts"),
             format!(
                 "expected at most the tube's maximum supply (tube.limits.max_supply = {}), found {} in magnitude",
                 units::format_eng(max_supply, "V"),
@@ -262,7 +262,7 @@ pub(crate) fn check_multiplier(
     let (lo, hi) = limits::MULTIPLIER_STAGES;
     if m.stages < lo as i64 || m.stages > hi as i64 {
         return Err(c.fail(
-            &format!("{at}.multiplier.stages"),
+            format!("{at}.multiplier.stages"),
             format!(
                 "expected a whole number of stages from {lo} (a doubler) to {hi}, found {}",
                 m.stages

@@ -4,7 +4,7 @@
 use super::DesignError;
 
 /// A RON error in the words of the file (see [`parse_str`]); for every RON input of the tool.
-pub fn syntax_error(file: &str, text: &str, e: &ron::error::SpannedError) -> DesignError {
+pub(crate) fn syntax_error(file: &str, text: &str, e: &ron::error::SpannedError) -> DesignError {
     let (line, col) = (e.span.start.line, e.span.start.col);
     let mut message = describe_ron_error(&e.code, text);
     if matches!(e.code, ron::Error::ExpectedComma) && fraction_at(text, line, col) {

@@ -147,14 +147,14 @@ pub struct TubeSpec {
 /// Typical secondary-emission exponent assumed when none is given (Knoll ch. 9; from memory).
 pub const TYPICAL_EXPONENT: f64 = 0.75;
 /// Typical cathode–D1 collection assumed when none is given (from memory).
-pub const TYPICAL_COLLECTION: f64 = 0.9;
+pub(crate) const TYPICAL_COLLECTION: f64 = 0.9;
 
 /// The tube block at `at` (`tube` in a design or a requirements file): stages, gain law,
 /// reference ratio, collection, ratings and pulse linearity. Errors name `at.field`.
 pub(crate) fn check_tube(c: &Checker, at: &str, t: &RawTube) -> Result<TubeSpec, DesignError> {
     if !(1..=20).contains(&t.stages) {
         return Err(c.fail(
-            &format!("{at}.stages"),
+            format!("{at}.stages"),
             format!("expected 1 to 20 dynodes, found {}", t.stages),
         ));
     }
@@ -167,7 +167,7 @@ pub(crate) fn check_tube(c: &Checker, at: &str, t: &RawTube) -> Result<TubeSpec,
             let x = c.quantity(&format!("{at}.collection"), v, Kind::Ratio)?;
             if !limits::COLLECTION.contains(x) {
                 return Err(c.fail(
-                    &format!("{at}.collection"),
+                    format!("{at}.collection"),
                     format!(
                         "expected a fraction {}, found {v}",
                         limits::COLLECTION.describe()
@@ -183,7 +183,7 @@ pub(crate) fn check_tube(c: &Checker, at: &str, t: &RawTube) -> Result<TubeSpec,
             let x = c.quantity(&format!("{at}.collecting_share"), v, Kind::Ratio)?;
             if !limits::COLLECTING_SHARE.contains(x) {
                 return Err(c.fail(
-                    &format!("{at}.collecting_share"),
+                    format!("{at}.collecting_share"),
                     format!(
                         "expected a share of the exponent {}, found {v}",
                         limits::COLLECTING_SHARE.describe()
@@ -250,7 +250,7 @@ fn check_gain(c: &Checker, at: &str, g: &RawGainLaw) -> Result<GainSpec, DesignE
             let v = c.within(&format!("{at}.gain.volts"), volts, &limits::TUBE_VOLTS)?;
             if !limits::TUBE_GAIN.contains(*gain) {
                 return Err(c.fail(
-                    &format!("{at}.gain.gain"),
+                    format!("{at}.gain.gain"),
                     format!(
                         "expected a gain {}, found {}",
                         limits::TUBE_GAIN.describe(),
@@ -262,7 +262,7 @@ fn check_gain(c: &Checker, at: &str, g: &RawGainLaw) -> Result<GainSpec, DesignE
                 && !limits::GAIN_EXPONENT.contains(*k)
             {
                 return Err(c.fail(
-                        &format!("{at}.gain.exponent"),
+                        format!("{at}.gain.exponent"),
                         format!(
                             "expected a secondary-emission exponent k from {} (typically 0.7–0.8), found {}",
                             limits::GAIN_EXPONENT.describe(),
@@ -279,7 +279,7 @@ fn check_gain(c: &Checker, at: &str, g: &RawGainLaw) -> Result<GainSpec, DesignE
         RawGainLaw::Table { points } => {
             if points.len() < 2 {
                 return Err(c.fail(
-                    &format!("{at}.gain.points"),
+                    format!("{at}.gain.points"),
                     format!(
                         "expected at least 2 (voltage, gain) points to fit, found {}",
                         points.len()
@@ -345,7 +345,7 @@ fn check_reference_ratio(
         Some(r) => {
             if r.len() != n + 1 {
                 return Err(c.fail(
-                    &format!("{at}.reference_ratio"),
+                    format!("{at}.reference_ratio"),
                     format!(
                         "expected {} weights (one per gap, K–D1 to D{n}–return) for {n} dynodes, found {}",
                         n + 1,
@@ -401,7 +401,7 @@ fn check_pulse_linearity(
     };
     if !(dev > 0.0 && dev < 0.5) {
         return Err(c.fail(
-            &format!("{at}.pulse_linearity.deviation"),
+            format!("{at}.pulse_linearity.deviation"),
             format!("expected a gain deviation between 0 and 50 %, found {dev}"),
         ));
     }

@@ -10,7 +10,7 @@ use crate::units::format_eng;
 use uom::si::capacitance::farad;
 
 /// A charge per pulse (coulombs) and where it came from.
-pub type PulseCharge = Option<(f64, String)>;
+pub(crate) type PulseCharge = Option<(f64, String)>;
 
 /// The pulse charge used for decoupling, and its origin.
 fn pulse_charge(req: &Requirements) -> PulseCharge {
@@ -96,7 +96,7 @@ pub(super) fn size_capacitors(
 }
 
 /// Fraction of pulses whose drop may exceed the sized droop at a rate (Poisson bunching).
-pub const BUNCHING_QUANTILE: f64 = 0.99;
+pub(crate) const BUNCHING_QUANTILE: f64 = 0.99;
 
 /// Capacitors for a continuous rate (docs/physics.md §13): at Poisson arrivals of `rate`, the
 /// drop of each capacitor beyond the DC shift of the average current, exceeded by 1 % of the
@@ -188,7 +188,7 @@ pub(super) fn refine_by_train(
     req: &Requirements,
     tube: &TubeModel,
     p: &SizedParts,
-    capacitors: &mut Vec<CapChoice>,
+    capacitors: &mut [CapChoice],
     reasoning: &mut Vec<String>,
 ) -> Result<(), SizingError> {
     let Some((series, droop)) = req.capacitors else {
@@ -215,11 +215,11 @@ pub(super) fn refine_by_train(
             c.droop = droop * need * (1.0 - req.capacitor_tolerance) / c.farads;
         }
         reasoning.push(format!(
-        "Decoupling refined by the pulse-train solve (the whole base in time, strays included, one Gaussian pulse of FWHM = the pulse width): needed {}; fitted {} (ΔV = Q/C gave {}); ratings the larger of the two rules.",
-        sz.caps.iter().map(|c| format_eng(c.needed_farads, "F")).collect::<Vec<_>>().join(", "),
-        capacitors.iter().map(|c| format_eng(c.farads, "F")).collect::<Vec<_>>().join(", "),
-        before.iter().map(|c| format_eng(*c, "F")).collect::<Vec<_>>().join(", ")
-    ));
+            "Decoupling refined by the pulse-train solve (the whole base in time, strays included, one Gaussian pulse of FWHM = the pulse width): needed {}; fitted {} (ΔV = Q/C gave {}); ratings the larger of the two rules.",
+            sz.caps.iter().map(|c| format_eng(c.needed_farads, "F")).collect::<Vec<_>>().join(", "),
+            capacitors.iter().map(|c| format_eng(c.farads, "F")).collect::<Vec<_>>().join(", "),
+            before.iter().map(|c| format_eng(*c, "F")).collect::<Vec<_>>().join(", ")
+        ));
     }
     if let Some(rate) = req.rate {
         let line = size_for_rate(req, tube, rate, series, droop, capacitors, |caps| {

@@ -13,7 +13,7 @@ use uom::si::electric_potential::volt;
 
 /// Largest |G/G0 − 1| over anode currents from 1/128 of `max_anode` up to it ([`DEVIATION_FRACTIONS`]),
 /// by the core solve; `None` when a point cannot be reached (the divider saturates first).
-pub fn worst_deviation(net: &Network, max_anode: f64, ws: &mut Workspace) -> Option<f64> {
+pub(crate) fn worst_deviation(net: &Network, max_anode: f64, ws: &mut Workspace) -> Option<f64> {
     let g0 = net.small_signal_gain();
     let mut worst: f64 = 0.0;
     for f in DEVIATION_FRACTIONS {
@@ -46,7 +46,7 @@ pub(super) fn network_for(
 
 /// Supply voltage magnitude that gives `gain` as small-signal gain with gap shares `shares`
 /// (per-stage law, closed form, then two corrections with the tube model's own delta).
-pub fn supply_for_gain(tube: &TubeModel, shares: &[f64], gain: f64) -> f64 {
+pub(crate) fn supply_for_gain(tube: &TubeModel, shares: &[f64], gain: f64) -> f64 {
     let n = tube.stages;
     let sum_ln: f64 = (1..=n)
         .map(|j| (1.0 - tube.share) * shares[j - 1].ln() + tube.share * shares[j].ln())

@@ -50,32 +50,32 @@ mod requirements;
 mod verify;
 mod write;
 
-pub use capacitors::{BUNCHING_QUANTILE, PulseCharge};
-pub use divider::{supply_for_gain, worst_deviation};
+pub(crate) use capacitors::PulseCharge;
+pub(crate) use divider::{supply_for_gain, worst_deviation};
 pub use requirements::{
     BaseBlocks, RatioPattern, RawAnode, RawCapacitorFamily, RawRequirements, RawResistorFamily,
     RawSupplyLimits, RawTarget, Requirements, parse_requirements,
 };
-pub use verify::verify;
-pub use write::{exact, summary};
+pub(crate) use verify::verify;
+pub(crate) use write::exact;
+pub use write::summary;
 
 use capacitors::{refine_by_train, size_capacitors};
 use divider::{SnapResult, min_divider_current, network_for, snap_divider};
 use write::write_design;
 
-pub use crate::model::constants::ELEMENTARY_CHARGE;
 /// Fraction of the allowed deviation the bisection aims at, keeping the rest for snapping.
-pub const DEVIATION_MARGIN: f64 = 0.85;
+pub(crate) const DEVIATION_MARGIN: f64 = 0.85;
 /// Default power derating: parts run at no more than half their rated power (common practice).
-pub const DEFAULT_DERATING: f64 = 0.5;
-pub use crate::model::eseries::CAPACITOR_RATING_MARGIN;
+pub(crate) const DEFAULT_DERATING: f64 = 0.5;
+use crate::model::eseries::CAPACITOR_RATING_MARGIN;
 /// Ratio error (worst gap, as |ln(share/ideal)|) the snapping may give up for a smaller divider
 /// current: 0.25 % (a quarter of a 1 % part's tolerance; this tool's choice).
-pub const RATIO_ERROR_SLACK: f64 = 0.0025;
+pub(crate) const RATIO_ERROR_SLACK: f64 = 0.0025;
 /// Supply voltages are set to this resolution, volts.
-pub const SUPPLY_RESOLUTION_VOLTS: f64 = 0.1;
+pub(crate) const SUPPLY_RESOLUTION_VOLTS: f64 = 0.1;
 /// Anode currents at which the deviation is checked, as fractions of the maximum: 1/128 … 1.
-pub const DEVIATION_FRACTIONS: [f64; 8] = [
+pub(crate) const DEVIATION_FRACTIONS: [f64; 8] = [
     1.0 / 128.0,
     1.0 / 64.0,
     1.0 / 32.0,

@@ -7,7 +7,7 @@ use crate::units::format_eng;
 use uom::si::electric_potential::volt;
 
 /// Check every requirement on the analysed design (the core solve).
-pub fn verify(
+pub(crate) fn verify(
     req: &Requirements,
     a: &Analysis,
     caps: &[CapChoice],

@@ -13,7 +13,7 @@ use uom::si::electrical_resistance::ohm;
 use uom::si::power::watt;
 
 /// A quantity as design-file text, exact to 6 significant digits: `"470 kΩ"`, `"-1234.5 V"`.
-pub fn exact(value: f64, unit: &str) -> String {
+pub(crate) fn exact(value: f64, unit: &str) -> String {
     if value == 0.0 || !value.is_finite() {
         return format!("0 {unit}");
     }

@@ -49,14 +49,14 @@ pub const DEFAULT_TUBE_GAIN_SIGMA: f64 = 0.35;
 /// Default standard deviation of the exponent k (from memory: k is quoted 0.7–0.8).
 pub const DEFAULT_EXPONENT_SIGMA: f64 = 0.02;
 /// Default capacitor tolerance (±10 %, common for film and ceramic parts; common practice).
-pub const DEFAULT_CAPACITOR_TOLERANCE: f64 = 0.10;
+pub(crate) const DEFAULT_CAPACITOR_TOLERANCE: f64 = 0.10;
 /// Default Zener tolerance (±5 %, common practice).
-pub const DEFAULT_ZENER_TOLERANCE: f64 = 0.05;
+pub(crate) const DEFAULT_ZENER_TOLERANCE: f64 = 0.05;
 /// Default supply setting accuracy when the design gives none (±0.5 %, from memory for a
 /// front-panel setting).
-pub const DEFAULT_SUPPLY_SETTING: f64 = 0.005;
+pub(crate) const DEFAULT_SUPPLY_SETTING: f64 = 0.005;
 /// Samples run between two progress reports.
-pub const CHUNK: usize = 4096;
+pub(crate) const CHUNK: usize = 4096;
 
 /// What to vary and how much.
 #[derive(Debug, Clone, PartialEq)]
@@ -211,11 +211,11 @@ pub struct Histogram {
 }
 
 /// Number of histogram bins.
-pub const BINS: usize = 60;
+pub(crate) const BINS: usize = 60;
 
 /// Histogram of `values` between their 0.1 % and 99.9 % points (the tails are left out of the
 /// picture, not of the statistics).
-pub fn histogram(
+pub(crate) fn histogram(
     name: &str,
     label: &str,
     unit: Option<&str>,
@@ -317,7 +317,7 @@ pub struct Spread {
 }
 
 /// Percentiles of a sample (linear interpolation between order statistics).
-pub fn percentiles(values: &mut [f64]) -> Percentiles {
+pub(crate) fn percentiles(values: &mut [f64]) -> Percentiles {
     values.sort_by(f64::total_cmp);
     let q = |p: f64| -> f64 {
         if values.is_empty() {
