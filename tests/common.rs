@@ -57,24 +57,50 @@ pub fn assert_all_numbers_finite(v: &serde_json::Value, path: &str) {
     }
 }
 
+/// Run ngspice in batch mode on the netlist file `path` and return what it printed on standard
+/// output and standard error; fails the test when ngspice does not run or exits with a failure.
+pub fn ngspice_file(path: &std::path::Path) -> (String, String) {
+    let out = std::process::Command::new("ngspice")
+        .arg("-b")
+        .arg(path)
+        .output()
+        .expect("ngspice runs");
+    let stdout = String::from_utf8_lossy(&out.stdout).into_owned();
+    let stderr = String::from_utf8_lossy(&out.stderr).into_owned();
+    assert!(out.status.success(), "ngspice failed:\n{stdout}\n{stderr}");
+    (stdout, stderr)
+}
+
 /// Run ngspice in batch mode on the netlist `text` (written as `dir/name.cir`) and return what
 /// it printed; fails the test when ngspice fails or reports an error.
 pub fn ngspice_batch(text: &str, dir: &std::path::Path, name: &str) -> String {
     let path = dir.join(format!("{name}.cir"));
     std::fs::write(&path, text).unwrap();
-    let out = std::process::Command::new("ngspice")
-        .arg("-b")
-        .arg(&path)
-        .output()
-        .expect("ngspice runs");
-    let stdout = String::from_utf8_lossy(&out.stdout).into_owned();
-    let stderr = String::from_utf8_lossy(&out.stderr);
-    assert!(out.status.success(), "ngspice failed:\n{stdout}\n{stderr}");
+    let (stdout, stderr) = ngspice_file(&path);
     assert!(
         !stderr.to_lowercase().contains("error"),
         "ngspice reported an error:\n{stderr}"
     );
     stdout
+}
+
+/// The first two columns of a file ngspice wrote with `set wr_singlescale` and `wrdata`: time
+/// and the one vector asked for.
+pub fn wrdata_columns(path: &std::path::Path) -> (Vec<f64>, Vec<f64>) {
+    let text = std::fs::read_to_string(path).expect("ngspice wrote its data file");
+    let mut t = Vec::new();
+    let mut v = Vec::new();
+    for line in text.lines() {
+        let cols: Vec<f64> = line
+            .split_whitespace()
+            .filter_map(|x| x.parse().ok())
+            .collect();
+        if cols.len() >= 2 {
+            t.push(cols[0]);
+            v.push(cols[1]);
+        }
+    }
+    (t, v)
 }
 
 /// The value of a `meas` result `name = value` in ngspice's output.

@@ -325,7 +325,7 @@ fn stored_charge_and_energy_are_judged_against_the_quoted_limits() {
 
 #[test]
 fn a_linear_chain_stays_under_three_percent_at_a_tenth_of_its_divider_current() {
-    // A published measurement (journal abstract, checks.md: title not shown) reports under 3 %
+    // A published measurement (a journal abstract on divider linearity, from memory) reports under 3 %
     // gain deviation while the anode current stays below 0.1 of the current in the last
     // resistor of a linear chain. The analysis behind it lets each dynode's yield depend on the
     // gap that accelerates its primaries and on the gap that collects its secondaries; the

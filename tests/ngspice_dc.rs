@@ -2,32 +2,16 @@
 //! netlist: every electrode potential within 1e-6 relative at three anode currents, one of them
 //! past the +1 % linearity point.
 
-use std::process::Command;
-
 use dynode::analysis;
 use dynode::design;
 use dynode::report::netlist::{self, NetlistOptions};
 use dynode::solve::network::Workspace;
 
-use crate::common::{crate_path, ngspice_available, rel, temp_dir};
+use crate::common::{crate_path, ngspice_available, ngspice_batch, rel, temp_dir};
 
 /// Run ngspice in batch mode and read the `v(...) = value` lines it prints, in order.
 pub fn run_ngspice(netlist_text: &str, dir: &std::path::Path, name: &str) -> Vec<f64> {
-    let path = dir.join(format!("{name}.cir"));
-    std::fs::write(&path, netlist_text).unwrap();
-    let out = Command::new("ngspice")
-        .arg("-b")
-        .arg(&path)
-        .output()
-        .expect("ngspice runs");
-    let stdout = String::from_utf8_lossy(&out.stdout);
-    let stderr = String::from_utf8_lossy(&out.stderr);
-    assert!(out.status.success(), "ngspice failed:\n{stdout}\n{stderr}");
-    assert!(
-        !stderr.to_lowercase().contains("error"),
-        "ngspice reported an error:\n{stderr}"
-    );
-    stdout
+    ngspice_batch(netlist_text, dir, name)
         .lines()
         .filter(|l| l.trim_start().starts_with("v(") && l.contains('='))
         .map(|l| l.split('=').nth(1).unwrap().trim().parse::<f64>().unwrap())

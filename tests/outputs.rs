@@ -2,7 +2,7 @@
 
 use std::process::Command;
 
-use crate::common::{crate_path, demo_designs, ngspice_available, temp_dir};
+use crate::common::{crate_path, demo_designs, ngspice_available, ngspice_file, temp_dir};
 
 fn dynode() -> Command {
     Command::new(env!("CARGO_BIN_EXE_dynode"))
@@ -263,18 +263,8 @@ fn netlist_command_runs_in_ngspice_without_warnings() {
             "{}",
             String::from_utf8_lossy(&out.stderr)
         );
-        let run = Command::new("ngspice")
-            .arg("-b")
-            .arg(&cir)
-            .output()
-            .unwrap();
-        let all = format!(
-            "{}{}",
-            String::from_utf8_lossy(&run.stdout),
-            String::from_utf8_lossy(&run.stderr)
-        )
-        .to_lowercase();
-        assert!(run.status.success(), "{all}");
+        let (stdout, stderr) = ngspice_file(&cir);
+        let all = format!("{stdout}{stderr}").to_lowercase();
         assert!(!all.contains("error") && !all.contains("warning"), "{all}");
         assert!(all.contains("v(p"), "prints the anode potential");
     }

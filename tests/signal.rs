@@ -1,15 +1,15 @@
 //! Signal budget: quantum efficiency, pulse charge and amplitude, the pulse at the load, noise,
 //! excess noise and reflections, each against an outside source named beside the check.
 
-use std::process::Command;
-
 use dynode::budget::signal::{self, NOISE_TEMPERATURE, johnson_density};
 use dynode::model::cathode::{self, Cathode, qe_from_sensitivity};
 use dynode::model::light::Shape;
 use dynode::model::tube::TubeModel;
 use dynode::solve::waveform::{self, CurrentPulse, Line, LoadCircuit};
 
-use crate::common::{crate_path, demo_designs, ngspice_available, rel, temp_dir};
+use crate::common::{
+    crate_path, demo_designs, ngspice_available, ngspice_batch, rel, temp_dir, wrdata_columns,
+};
 
 const E: f64 = 1.602_176_634e-19;
 
@@ -27,9 +27,9 @@ fn rc_circuit(r: f64, c: f64) -> LoadCircuit {
 
 #[test]
 fn codata_quantum_efficiency_points() {
-    // CODATA 2018 exact constants: hc/e = 1239.8419843320… nm·W/A (checks.md, seen).
+    // CODATA 2018 exact constants: hc/e = 1239.8419843320… nm·W/A (CODATA 2018: h, c, e exact).
     assert!((cathode::hc_over_e_nm() - 1_239.841_984_332).abs() < 1e-6);
-    // Computed points in checks.md: 0.1 A/W at 420 nm → 29.52 %; 0.08 A/W at 400 nm → 24.80 %;
+    // Computed from QE = S·hc/(eλ) with those constants: 0.1 A/W at 420 nm → 29.52 %; 0.08 A/W at 400 nm → 24.80 %;
     // 2.7 mA/W at 800 nm → 0.418 %. Tolerance: the last quoted digit.
     assert!((qe_from_sensitivity(0.1, 420.0) * 100.0 - 29.52).abs() < 0.005);
     assert!((qe_from_sensitivity(0.08, 400.0) * 100.0 - 24.80).abs() < 0.005);
@@ -103,7 +103,7 @@ fn roy_clarke_18_11_3_integrating_limit() {
 #[test]
 fn step_into_rc_rises_in_ln9_rc() {
     // Standard first-order derivation: 10–90 % of a step into R‖C is RC ln 9 = 2.1972 RC
-    // (checks.md, seen). Measured numerically on the computed waveform, within 0.5 %.
+    // (textbook). Measured numerically on the computed waveform, within 0.5 %.
     for (r, c) in [(50.0, 20e-12), (1e3, 15e-12), (1e6, 30e-12)] {
         let tau = r * c;
         let pulse = waveform::step_pulse(1e-3, 20.0 * tau, tau / 400.0);
@@ -119,7 +119,7 @@ fn step_into_rc_rises_in_ln9_rc() {
 
 #[test]
 fn johnson_nyquist_densities() {
-    // √(4 k T R) with exact k_B (checks.md, computed): 1 kΩ at 290 K 4.0019 nV/√Hz, at 300 K
+    // √(4 k T R) with exact k_B (CODATA 2018 k_B, computed by hand): 1 kΩ at 290 K 4.0019 nV/√Hz, at 300 K
     // 4.0704 nV/√Hz (4.07 seen in reference tables); 50 Ω at 290 K 0.8949 nV/√Hz.
     assert!(rel(johnson_density(1e3, NOISE_TEMPERATURE), 4.0019e-9) < 2e-5);
     assert!(rel(johnson_density(1e3, 300.0), 4.0704e-9) < 2e-5);
@@ -128,7 +128,7 @@ fn johnson_nyquist_densities() {
 
 #[test]
 fn excess_noise_factors_of_a_poisson_cascade() {
-    // F = 1 + 1/δ1 + 1/(δ1 δ2) + … (textbook theory, from memory; checks.md):
+    // F = 1 + 1/δ1 + 1/(δ1 δ2) + … (textbook theory of a Poisson cascade, from memory):
     // uniform δ = 4 → 1.333; δ = 5 → 1.25; δ1 = 10 then δ = 4 → 1.133. Ten stages leave a
     // remainder below 1e-6 of the infinite series.
     let model = |a: f64, k: f64| TubeModel {
@@ -216,28 +216,8 @@ pub fn ngspice_wave(
         pulse.dt,
         out.display()
     );
-    let file = dir.join("check.cir");
-    std::fs::write(&file, cir).unwrap();
-    let o = Command::new("ngspice")
-        .arg("-b")
-        .arg(&file)
-        .output()
-        .unwrap();
-    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
-    let text = std::fs::read_to_string(&out).unwrap();
-    let mut t = Vec::new();
-    let mut v = Vec::new();
-    for line in text.lines() {
-        let cols: Vec<f64> = line
-            .split_whitespace()
-            .filter_map(|x| x.parse().ok())
-            .collect();
-        if cols.len() >= 2 {
-            t.push(cols[0]);
-            v.push(cols[1]);
-        }
-    }
-    (t, v)
+    ngspice_batch(&cir, &dir, "check");
+    wrdata_columns(&out)
 }
 
 /// Peak and 10–90 % rise within 1 % of ngspice's.
@@ -390,7 +370,7 @@ fn every_demo_reports_the_signal_keys() {
 
 #[test]
 fn every_builtin_cathode_has_a_peak_and_cutoffs() {
-    // checks.md "Photocathodes" (typical, from memory): S-1 peaks in the near infrared and
+    // Typical photocathode curves in the trade literature (from memory): S-1 peaks in the near infrared and
     // reaches past 1000 nm; GaAs is flat to its band-gap edge near 870 nm (Eg = 1.424 eV).
     for c in cathode::builtin_cathodes() {
         let k = Cathode::builtin(&c.key, None).unwrap();
@@ -483,27 +463,9 @@ fn ngspice_points(name: &str, points: &[(f64, f64)], body: &str, stop: f64) -> w
         "* analytic pulse\nI1 0 a PWL({pwl})\n{body}\n.options numdgt=7 reltol=1e-6\n.control\nset wr_singlescale\ntran {h:e} {stop:e} 0 {h:e}\nwrdata {} v(out)\nquit 0\n.endc\n.end\n",
         out.display()
     );
-    let file = dir.join("check.cir");
-    std::fs::write(&file, cir).unwrap();
-    let o = Command::new("ngspice")
-        .arg("-b")
-        .arg(&file)
-        .output()
-        .unwrap();
-    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
-    let text = std::fs::read_to_string(&out).unwrap();
-    let mut w = waveform::Waveform::default();
-    for line in text.lines() {
-        let c: Vec<f64> = line
-            .split_whitespace()
-            .filter_map(|x| x.parse().ok())
-            .collect();
-        if c.len() >= 2 {
-            w.t.push(c[0]);
-            w.v.push(c[1]);
-        }
-    }
-    w
+    ngspice_batch(&cir, &dir, "check");
+    let (t, v) = wrdata_columns(&out);
+    waveform::Waveform { t, v }
 }
 
 #[test]

@@ -795,3 +795,66 @@ fn capacitors_sized_for_a_rate_hold_poisson_bunching() {
         assert!(beyond <= 0.01 * 1.05, "capacitor {k}: {beyond} of its gap");
     }
 }
+
+/// `size`, the train section and the parts list rate the same capacitors alike, by the trade's
+/// rule (common practice, from memory): order the smallest common rating (50, 63, 100, 160,
+/// 200, 250, 400, 500, 630 V, 1, 1.5, 2 kV …) that is at least 1.5 times the voltage the part
+/// holds. The sized demo is analysed with its own train, so all three see the same capacitors.
+#[test]
+fn size_train_and_parts_list_rate_each_capacitor_alike() {
+    const COMMON: [f64; 12] = [
+        50.0, 63.0, 100.0, 160.0, 200.0, 250.0, 400.0, 500.0, 630.0, 1000.0, 1500.0, 2000.0,
+    ];
+    let trade_rule = |volts: f64| {
+        *COMMON
+            .iter()
+            .find(|r| **r >= 1.5 * volts.abs())
+            .expect("a small base's capacitors stay under 2 kV")
+    };
+    let text =
+        std::fs::read_to_string(crate_path("designs/requirements/paddle-rebuild.ron")).unwrap();
+    let req = sizing::parse_requirements(&text, "demo").unwrap();
+    let s = sizing::size(&req).unwrap();
+    assert!(!s.capacitors.is_empty(), "the demo decouples its last gaps");
+    let mut from_size: Vec<f64> = Vec::new();
+    for c in &s.capacitors {
+        let gap = s.analysis.gaps[c.gap - 1].volts;
+        assert_eq!(c.rating, trade_rule(gap), "size: gap {} at {gap} V", c.gap);
+        from_size.push(c.rating);
+    }
+    let train = s
+        .analysis
+        .train
+        .as_ref()
+        .expect("the sized design has a train");
+    let sizing = train.sizing.as_ref().expect("the train section sizes them");
+    let mut from_train: Vec<f64> = Vec::new();
+    for c in &sizing.caps {
+        assert_eq!(
+            c.rating_volts,
+            trade_rule(c.holds_volts),
+            "train: {}",
+            c.label
+        );
+        from_train.push(c.rating_volts);
+    }
+    let mut from_parts: Vec<f64> = Vec::new();
+    for line in dynode::budget::parts::list(&s.analysis) {
+        if line.kind == dynode::budget::parts::Kind::Capacitor && line.volts < 2000.0 {
+            let r = line.voltage_rating.expect("a capacitor has a rating");
+            assert_eq!(r, trade_rule(line.volts), "parts: {:?}", line.designators);
+            from_parts.extend(std::iter::repeat_n(r, line.count));
+        }
+    }
+    for v in [&mut from_size, &mut from_train, &mut from_parts] {
+        v.sort_by(f64::total_cmp);
+    }
+    assert_eq!(
+        from_size, from_train,
+        "size and train rate the same capacitors alike"
+    );
+    assert_eq!(
+        from_size, from_parts,
+        "size and the parts list rate them alike"
+    );
+}

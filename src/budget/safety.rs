@@ -686,7 +686,7 @@ fn bleed(
                 }
             }
         }
-        if !dense_solve(&mut a, &mut b, m) {
+        if !crate::numerics::dense::solve(&mut a, &mut b, m) {
             return (None, Vec::new());
         }
         for i in 0..nodes {
@@ -708,39 +708,4 @@ fn bleed(
         .map(|(_, _, l)| l.clone())
         .collect();
     (None, stuck)
-}
-
-/// Dense Gaussian elimination with partial pivoting; false when singular.
-pub fn dense_solve(a: &mut [f64], b: &mut [f64], m: usize) -> bool {
-    for k in 0..m {
-        let p = (k..m)
-            .max_by(|&i, &j| a[i * m + k].abs().total_cmp(&a[j * m + k].abs()))
-            .unwrap_or(k);
-        if a[p * m + k] == 0.0 {
-            return false;
-        }
-        if p != k {
-            for c in 0..m {
-                a.swap(k * m + c, p * m + c);
-            }
-            b.swap(k, p);
-        }
-        for r in k + 1..m {
-            let f = a[r * m + k] / a[k * m + k];
-            if f != 0.0 {
-                for c in k..m {
-                    a[r * m + c] -= f * a[k * m + c];
-                }
-                b[r] -= f * b[k];
-            }
-        }
-    }
-    for k in (0..m).rev() {
-        let mut s = b[k];
-        for c in k + 1..m {
-            s -= a[k * m + c] * b[c];
-        }
-        b[k] = s / a[k * m + k];
-    }
-    true
 }

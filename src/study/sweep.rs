@@ -61,7 +61,7 @@ pub const FIELDS: &[(&str, Kind)] = &[
 
 /// A bad sweep specification (usage error).
 #[derive(Debug, Clone, PartialEq, thiserror::Error)]
-#[error("--vary {spec}: {message}")]
+#[error("{spec}: {message}")]
 pub struct SweepError {
     /// The specification as given.
     pub spec: String,

@@ -35,41 +35,6 @@ fn fail(reason: String) -> TransientError {
     TransientError::Failed { time: 0.0, reason }
 }
 
-/// Invert a small dense matrix (row-major) by Gauss–Jordan with partial pivoting.
-fn invert(mut a: Vec<f64>, m: usize) -> Option<Vec<f64>> {
-    let mut inv = vec![0.0; m * m];
-    for i in 0..m {
-        inv[i * m + i] = 1.0;
-    }
-    for col in 0..m {
-        let p = (col..m).max_by(|&x, &y| a[x * m + col].abs().total_cmp(&a[y * m + col].abs()))?;
-        if a[p * m + col] == 0.0 || !a[p * m + col].is_finite() {
-            return None;
-        }
-        for k in 0..m {
-            a.swap(col * m + k, p * m + k);
-            inv.swap(col * m + k, p * m + k);
-        }
-        let d = a[col * m + col];
-        for k in 0..m {
-            a[col * m + k] /= d;
-            inv[col * m + k] /= d;
-        }
-        for r in 0..m {
-            if r != col {
-                let f = a[r * m + col];
-                if f != 0.0 {
-                    for k in 0..m {
-                        a[r * m + k] -= f * a[col * m + k];
-                        inv[r * m + k] -= f * inv[col * m + k];
-                    }
-                }
-            }
-        }
-    }
-    Some(inv)
-}
-
 impl Base {
     /// The periodic steady state of pulses of cathode charge `qk` arriving at `offsets`
     /// (seconds, sorted, in `[0, period)`) in every period.
@@ -104,7 +69,7 @@ impl Base {
                         a[i * m + j] = f64::from(u8::from(i == j)) - p;
                     }
                 }
-                invert(a, m)
+                crate::numerics::dense::invert(a, m)
             })
             .unwrap_or_else(|| {
                 let mut e = vec![0.0; m * m];
@@ -279,7 +244,10 @@ impl Base {
         for i in 0..pulses + burn {
             let tau = -g.unit_open().ln() / rate;
             for k in 0..m {
-                next[k] = (-md.lambda[k] * tau).exp() * z[k];
+                // A mode decayed by e^-40 (4e-18, below a double's resolution of the other
+                // terms) is zero: the exponential's slow underflow path is skipped.
+                let x = md.lambda[k] * tau;
+                next[k] = if x < 40.0 { (-x).exp() * z[k] } else { 0.0 };
             }
             if i >= burn {
                 for (c, (offset, row)) in caps.iter().enumerate() {
