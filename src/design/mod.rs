@@ -7,6 +7,11 @@
 //! (`divider.gaps[3]`) with what was expected. Nothing downstream sees raw text.
 //!
 //! The schema is documented field by field in docs/design-file.md and by the commented demo designs.
+//!
+//! Each block has its own module holding its raw type, its checked type and its check; the
+//! checks take the field path prefix (`tube`, `load`, …), so a requirements file reuses the
+//! tube, load, resistor-family and supply-extras checks as they are. [`parse_str`] checks a
+//! parsed design block by block in the file's order.
 
 use std::fmt;
 use std::path::Path;
