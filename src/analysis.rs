@@ -160,7 +160,7 @@ pub struct PulseStream {
 /// else the light block; `None` without a rate. A train size that contradicts the light's
 /// photoelectrons by more than 10 % is refused where the train's size is written.
 fn pulse_stream(design: &Design, gain: f64) -> Result<Option<PulseStream>, AnalysisError> {
-    use crate::model::cathode::ELEMENTARY_CHARGE;
+    use crate::model::constants::ELEMENTARY_CHARGE;
     let light = design.signal.light.as_ref();
     let light_charge = light.map(|l| {
         crate::model::light::convert(
@@ -540,7 +540,7 @@ pub fn analyse_with(
         Some(st) if design.operating_assumed => assumptions.push(format!(
             "operating point at the pulses' average: {} of cathode current ({:.0} photoelectrons a pulse at {} on average, from {}); the anode current there is {} (give operating.anode_current to choose another)",
             format_eng(st.rate * st.cathode_charge, "A"),
-            st.cathode_charge / crate::model::cathode::ELEMENTARY_CHARGE,
+            st.cathode_charge / crate::model::constants::ELEMENTARY_CHARGE,
             format_eng(st.rate, "Hz"),
             st.from,
             format_eng(op.anode_amps(), "A")

@@ -4,7 +4,6 @@
 use serde::Deserialize;
 
 use super::{Checker, DesignError, Value, integer, limits};
-use crate::model::cathode;
 use crate::units::Kind;
 
 /// Cable velocity factor assumed when none is given (solid polyethylene dielectric, common
@@ -107,7 +106,7 @@ pub struct CableSpec {
 impl CableSpec {
     /// One-way delay, s.
     pub fn delay(&self) -> f64 {
-        self.length / (self.velocity * cathode::LIGHT_SPEED)
+        self.length / (self.velocity * crate::model::constants::LIGHT_SPEED)
     }
 }
 

@@ -21,7 +21,6 @@ use serde::Deserialize;
 use crate::design::{Checker, DesignError, Value};
 use crate::units::Kind;
 
-pub use crate::model::constants::ELEMENTARY_CHARGE;
 /// Largest number of pulses a train may hold (keeps a run to seconds).
 pub const MAX_PULSES: usize = 100_000;
 /// Allowed droop for capacitor sizing when none is given (common practice: 1 %).

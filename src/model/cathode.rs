@@ -13,7 +13,7 @@
 
 use std::sync::OnceLock;
 
-pub use crate::model::constants::{BOLTZMANN, ELEMENTARY_CHARGE, LIGHT_SPEED, PLANCK};
+use crate::model::constants::{ELEMENTARY_CHARGE, LIGHT_SPEED, PLANCK};
 
 /// `h c / e` in nm·W/A (= 1239.8419843…).
 pub fn hc_over_e_nm() -> f64 {

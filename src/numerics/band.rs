@@ -1,4 +1,6 @@
-//! Band LU with partial pivoting and the band-plus-border system of a time step.
+//! Band LU with partial pivoting (the one band solver: the DC Newton solve and the time steps
+//! use it) and the band-plus-border system of a time step. Both systems have `KL = 5` below and
+//! `KU = 3` above the diagonal: the interleaved unknowns of a dynode chain.
 
 /// Where a node's potential comes from.
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -36,11 +38,29 @@ impl BandLu {
         &mut self.ab[r * W + c + KL - r]
     }
     #[inline]
-    fn get(&self, r: usize, c: usize) -> f64 {
+    pub(crate) fn get(&self, r: usize, c: usize) -> f64 {
         self.ab[r * W + c + KL - r]
+    }
+    /// Add `v` to entry (r, c), which lies in the band (`r ≤ c + KL`, `c ≤ r + KU`).
+    #[inline]
+    pub(crate) fn add(&mut self, r: usize, c: usize, v: f64) {
+        self.ab[r * W + c + KL - r] += v;
+    }
+    /// Zero every entry (a new matrix of the same size).
+    pub(crate) fn clear(&mut self) {
+        self.ab.fill(0.0);
+    }
+    /// Factor in place and solve `A x = b` (`b` becomes `x`); false when `A` is singular.
+    pub(crate) fn factor_solve(&mut self, b: &mut [f64]) -> bool {
+        if !self.factor() {
+            return false;
+        }
+        self.solve(b);
+        true
     }
     fn factor(&mut self) -> bool {
         let m = self.m;
+        let idx = |r: usize, c: usize| r * W + c + KL - r;
         for k in 0..m {
             let last_row = (k + KL).min(m - 1);
             let last_col = (k + KL + KU).min(m - 1);
@@ -59,20 +79,23 @@ impl BandLu {
             self.piv[k] = p;
             if p != k {
                 for c in k..=last_col {
-                    let a = self.get(k, c);
-                    let b = self.get(p, c);
-                    *self.at(k, c) = b;
-                    *self.at(p, c) = a;
+                    self.ab.swap(idx(k, c), idx(p, c));
                 }
             }
-            let piv = self.get(k, k);
+            let row_k = idx(k, k);
+            let piv = self.ab[row_k];
+            let len = last_col - k;
             for r in k + 1..=last_row {
-                let f = self.get(r, k) / piv;
-                *self.at(r, k) = f;
+                let row_r = idx(r, k);
+                let f = self.ab[row_r] / piv;
+                self.ab[row_r] = f;
                 if f != 0.0 {
-                    for c in k + 1..=last_col {
-                        let u = self.get(k, c);
-                        *self.at(r, c) -= f * u;
+                    // Row r's entries k+1..=last_col follow its entry k in storage, as row k's
+                    // do; rows k and r do not overlap (r > k): split to borrow both.
+                    let (head, tail) = self.ab.split_at_mut(row_r);
+                    let pivot_row = &head[row_k + 1..=row_k + len];
+                    for (x, y) in tail[1..=len].iter_mut().zip(pivot_row) {
+                        *x -= f * y;
                     }
                 }
             }
@@ -92,11 +115,14 @@ impl BandLu {
             }
         }
         for k in (0..m).rev() {
-            let mut s = b[k];
-            for c in k + 1..=(k + KL + KU).min(m - 1) {
-                s -= self.get(k, c) * b[c];
-            }
-            b[k] = s / self.get(k, k);
+            let last_col = (k + KL + KU).min(m - 1);
+            let row_k = k * W + KL;
+            let upper = &self.ab[row_k + 1..=row_k + last_col - k];
+            let s = upper
+                .iter()
+                .zip(&b[k + 1..=last_col])
+                .fold(b[k], |s, (a, x)| s - a * x);
+            b[k] = s / self.ab[row_k];
         }
     }
 }

@@ -17,7 +17,8 @@
 //! string resistor with its designator and value. No IO.
 
 use crate::analysis::Analysis;
-use crate::design::{CapStyle, Element, Polarity};
+use crate::budget::parts::Designators;
+use crate::design::{CapStyle, Design, Element, Polarity};
 use crate::report::plot::{Anchor, Axis, Figure, Ink, Sketch};
 use crate::units::format_eng;
 use uom::si::capacitance::farad;
@@ -188,18 +189,60 @@ impl Pen {
 pub fn figure(a: &Analysis) -> Figure {
     let d = &a.design;
     let names = crate::budget::parts::designators(d);
-    let n = d.tube.stages;
     let gaps = d.elements.len();
     let pitch = 64;
     let x = |i: usize| LEFT + pitch * i as i32;
     let x_ret = x(gaps);
-    let width = crate::report::plot::WIDTH as i32;
     let mut pen = Pen { ink: Vec::new() };
-    let cn = d.polarity == Polarity::CathodeNegative;
     let vs = d.supply_volts.get::<volt>();
-
-    // The tube: envelope, electrodes, their wires down to the divider.
     let x_p = x_ret + pitch / 2;
+    let x_rail_end = x_ret + pitch / 2 + 30;
+    tube(&mut pen, &x, d.tube.stages, x_p);
+    divider(a, &names, &mut pen, &x);
+    decoupling(d, &names, &mut pen, &x, pitch);
+    // Followers under the dynodes they hold, and their tap string.
+    let followers = followers(a, &mut pen, &x);
+    supply(d, &mut pen, &x, x_ret, x_rail_end);
+    shield(d, &names, &mut pen, &x);
+    let width = signal_path(d, &names, &mut pen, x_p, x_rail_end);
+
+    // Caution and legend.
+    let height = HEIGHT + if followers { FOLLOWER_BAND } else { 0 };
+    pen.bold(
+        8,
+        height as i32 - 30,
+        &format!(
+            "HIGH VOLTAGE: {} across this circuit. Values as solved at {} average anode current.",
+            value_text(vs.abs(), "V"),
+            value_text(a.op.anode_amps(), "A")
+        ),
+        13,
+        Anchor::Left,
+    );
+    pen.text(
+        8,
+        height as i32 - 12,
+        "Designators as in the parts list; gap voltages at the operating point.",
+        12,
+        Anchor::Left,
+    );
+
+    let mut f = Figure::new(
+        "schematic",
+        &format!("Base schematic: {}", crate::report::one_line(&d.name)),
+        Axis::linear("", None),
+        Axis::linear("", None),
+    );
+    f.sketch = Some(Sketch {
+        width: width as u32,
+        height,
+        ink: pen.ink,
+    });
+    f
+}
+
+/// The tube: envelope, electrodes, their wires down to the divider.
+fn tube(pen: &mut Pen, x: &dyn Fn(usize) -> i32, n: usize, x_p: i32) {
     pen.ink.push(Ink::Thin(vec![
         (x(0) - 24, TUBE_TOP),
         (x_p + 24, TUBE_TOP),
@@ -225,8 +268,11 @@ pub fn figure(a: &Analysis) -> Figure {
         pen.ink.push(Ink::Dot(x(i), RAIL));
     }
     pen.bold(x_p, ELECTRODE_Y, "P", 13, Anchor::Centre);
+}
 
-    // The divider, one element per gap, with designator, value and voltage.
+/// The divider, one element per gap, with designator, value and voltage.
+fn divider(a: &Analysis, names: &Designators, pen: &mut Pen, x: &dyn Fn(usize) -> i32) {
+    let d = &a.design;
     for (j, e) in d.elements.iter().enumerate() {
         let (a_, b_) = ((x(j), RAIL), (x(j + 1), RAIL));
         let cx = (x(j) + x(j + 1)) / 2;
@@ -257,8 +303,17 @@ pub fn figure(a: &Analysis) -> Figure {
         let volts = a.gaps.get(j).map_or(0.0, |g| g.volts);
         pen.text(cx, RAIL + 20, &value_text(volts, "V"), 11, Anchor::Centre);
     }
+}
 
-    // Decoupling capacitors.
+/// The decoupling capacitors, across gaps or from dynodes to the return.
+fn decoupling(
+    d: &Design,
+    names: &Designators,
+    pen: &mut Pen,
+    x: &dyn Fn(usize) -> i32,
+    pitch: i32,
+) {
+    let cn = d.polarity == Polarity::CathodeNegative;
     let held: Vec<usize> = d.followers.as_ref().map_or(Vec::new(), |f| f.hold.clone());
     for (k, c) in d.decoupling.iter().enumerate() {
         let value = value_text(c.value.get::<farad>(), "F");
@@ -302,11 +357,12 @@ pub fn figure(a: &Analysis) -> Figure {
             }
         }
     }
+}
 
-    // Followers under the dynodes they hold, and their tap string.
-    let followers = followers(a, &mut pen, &x);
-
-    // Supply and return.
+/// The supply and the return, on the side the polarity puts them.
+fn supply(d: &Design, pen: &mut Pen, x: &dyn Fn(usize) -> i32, x_ret: i32, x_rail_end: i32) {
+    let cn = d.polarity == Polarity::CathodeNegative;
+    let vs = d.supply_volts.get::<volt>();
     let supply_label = vec![
         "HV supply".to_string(),
         format!(
@@ -322,7 +378,6 @@ pub fn figure(a: &Analysis) -> Figure {
             value_text(l.get::<uom::si::electric_current::ampere>(), "A")
         ));
     }
-    let x_rail_end = x_ret + pitch / 2 + 30;
     if cn {
         // Cathode at −HV: the supply on the left, the return at ground.
         pen.path(&[(x(0), RAIL), (LEFT - 60, RAIL)]);
@@ -336,8 +391,10 @@ pub fn figure(a: &Analysis) -> Figure {
         pen.path(&[(x_ret, RAIL), (x_rail_end, RAIL)]);
         pen.supply(x_rail_end, RAIL, &supply_label);
     }
+}
 
-    // Shield resistor from the cathode-potential shield.
+/// The shield resistor from the cathode-potential shield.
+fn shield(d: &Design, names: &Designators, pen: &mut Pen, x: &dyn Fn(usize) -> i32) {
     if let (Some(r), Some(name)) = (d.shield_resistor, &names.shield_resistor) {
         let y = TUBE_BOTTOM + 40;
         let x0 = LEFT - 84;
@@ -353,8 +410,11 @@ pub fn figure(a: &Analysis) -> Figure {
             Anchor::Centre,
         );
     }
+}
 
-    // Signal path from the anode to the instrument.
+/// The signal path from the anode to the instrument; returns the width the figure needs.
+fn signal_path(d: &Design, names: &Designators, pen: &mut Pen, x_p: i32, x_rail_end: i32) -> i32 {
+    let width = crate::report::plot::WIDTH as i32;
     let y = ELECTRODE_Y;
     let x_a = x_p + 70;
     pen.path(&[(x_p + 8, y), (x_a, y)]);
@@ -455,40 +515,7 @@ pub fn figure(a: &Analysis) -> Figure {
         12,
         Anchor::Left,
     );
-
-    // Caution and legend.
-    let height = HEIGHT + if followers { FOLLOWER_BAND } else { 0 };
-    pen.bold(
-        8,
-        height as i32 - 30,
-        &format!(
-            "HIGH VOLTAGE: {} across this circuit. Values as solved at {} average anode current.",
-            value_text(vs.abs(), "V"),
-            value_text(a.op.anode_amps(), "A")
-        ),
-        13,
-        Anchor::Left,
-    );
-    pen.text(
-        8,
-        height as i32 - 12,
-        "Designators as in the parts list; gap voltages at the operating point.",
-        12,
-        Anchor::Left,
-    );
-
-    let mut f = Figure::new(
-        "schematic",
-        &format!("Base schematic: {}", crate::report::one_line(&d.name)),
-        Axis::linear("", None),
-        Axis::linear("", None),
-    );
-    f.sketch = Some(Sketch {
-        width: width as u32,
-        height,
-        ink: pen.ink,
-    });
-    f
+    width
 }
 
 /// The followers of a transistor-held base and their tap string, in the band below the

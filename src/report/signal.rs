@@ -535,7 +535,7 @@ pub fn render_text(out: &mut String, a: &Analysis) {
             "  responsivity {:.3} A/W; charge {} ({} electrons); peak photocurrent {}",
             pd.responsivity,
             eng(pd.charge, "C"),
-            sci(pd.charge / crate::model::cathode::ELEMENTARY_CHARGE),
+            sci(pd.charge / crate::model::constants::ELEMENTARY_CHARGE),
             eng(pd.peak_amps, "A")
         );
         let _ = writeln!(

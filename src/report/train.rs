@@ -10,7 +10,8 @@ use serde_json::{Value, json};
 use crate::analysis::Analysis;
 use crate::budget::pulsetrain::{self, TrainAnalysis};
 use crate::budget::safety::{CHARGE_LIMIT_COULOMBS, CLOSING_CAUTION, ENERGY_LIMIT_JOULES};
-use crate::design::train::{ELEMENTARY_CHARGE, PulseSize};
+use crate::design::train::PulseSize;
+use crate::model::constants::ELEMENTARY_CHARGE;
 use crate::report::text::{caution_block, wrap};
 use crate::units::format_eng as eng;
 

@@ -39,6 +39,14 @@ use uom::si::electric_potential::volt;
 use uom::si::electrical_resistance::ohm;
 use uom::si::power::watt;
 
+mod designators;
+mod export;
+mod ratings;
+
+pub use designators::{Designators, designators};
+pub use export::{HEAD, csv, designator_text, rows, text};
+use ratings::{follower_volts, merge};
+
 /// Rated voltage over the highest voltage a part sees (common practice, from memory).
 pub const VOLTAGE_MARGIN: f64 = 1.5;
 /// Rated power over the dissipation of a resistor or Zener (common practice, from memory).
@@ -149,132 +157,6 @@ impl Line {
     }
 }
 
-/// The smallest step of `steps` at or above `need`; past the last, `need` rounded up to a
-/// whole kilovolt or watt (a special part).
-fn step_up(steps: &[f64], need: f64) -> f64 {
-    steps
-        .iter()
-        .copied()
-        .find(|s| *s >= need)
-        .unwrap_or_else(|| (need / 1000.0).ceil().max(1.0) * 1000.0)
-        .max(need)
-}
-
-fn power_step(need: f64) -> f64 {
-    POWERS
-        .iter()
-        .copied()
-        .find(|s| *s >= need)
-        .unwrap_or_else(|| need.ceil())
-        .max(need)
-}
-
-/// Smallest IEC 60063 series that holds `x` within 0.05 %.
-pub fn series_of(x: f64) -> Option<&'static str> {
-    Series::ALL.iter().copied().find_map(|s| {
-        s.nearest(x)
-            .filter(|v| ((v - x) / x).abs() < 5e-4)
-            .map(|_| s.name())
-    })
-}
-
-/// Designators of the divider: per gap (0-based index), the list of part names.
-pub fn divider_designators(d: &Design) -> Vec<Vec<String>> {
-    d.elements
-        .iter()
-        .enumerate()
-        .map(|(j, e)| match e {
-            Element::Zener(..) => vec![format!("Z{}", j + 1)],
-            Element::Resistor(_) => {
-                let m = d.series_parts.get(j).copied().unwrap_or(1).max(1);
-                if m == 1 {
-                    vec![format!("R{}", j + 1)]
-                } else {
-                    (0..m).map(|k| format!("R{}{}", j + 1, suffix(k))).collect()
-                }
-            }
-        })
-        .collect()
-}
-
-/// `a`, `b`, …, `z`, `aa`, `ab`, … for the parts of a series split.
-fn suffix(k: usize) -> String {
-    let letter = |i: usize| char::from(b'a' + (i % 26) as u8);
-    if k < 26 {
-        letter(k).to_string()
-    } else {
-        format!("{}{}", letter(k / 26 - 1), letter(k))
-    }
-}
-
-/// Designators of the other parts, in the order of [`designators`].
-#[derive(Debug, Clone, PartialEq)]
-pub struct Designators {
-    /// Per gap, the divider parts.
-    pub divider: Vec<Vec<String>>,
-    /// Per decoupling capacitor, in the design's order.
-    pub decoupling: Vec<String>,
-    /// The coupling capacitor.
-    pub coupling: Option<String>,
-    /// The anode resistor.
-    pub anode_resistor: Option<String>,
-    /// The shield resistor.
-    pub shield_resistor: Option<String>,
-    /// The load resistor at the base.
-    pub base_resistor: Option<String>,
-    /// The followers' tap string, cathode end first (one more than the followers).
-    pub string: Vec<String>,
-    /// The follower transistors, in the order of the dynodes they hold.
-    pub followers: Vec<String>,
-}
-
-/// Every designator of a design (the schematic and the parts list use the same).
-pub fn designators(d: &Design) -> Designators {
-    let n = d.elements.len();
-    let mut r = n;
-    let mut next_r = || {
-        r += 1;
-        format!("R{r}")
-    };
-    let m = d.decoupling.len();
-    let held = d.followers.as_ref().map_or(0, |f| f.hold.len());
-    // In this order: anode, shield, base resistors, then the tap string.
-    let anode_resistor = d.anode_resistor.map(|_| next_r());
-    let shield_resistor = d.shield_resistor.map(|_| next_r());
-    let base_resistor = d.base_resistance.map(|_| next_r());
-    Designators {
-        divider: divider_designators(d),
-        decoupling: (1..=m).map(|k| format!("C{k}")).collect(),
-        coupling: d.coupling.map(|_| format!("C{}", m + 1)),
-        anode_resistor,
-        shield_resistor,
-        base_resistor,
-        string: (0..held + usize::from(held > 0))
-            .map(|_| next_r())
-            .collect(),
-        followers: (1..=held).map(|i| format!("Q{i}")).collect(),
-    }
-}
-
-/// The highest voltage a follower transistor can stand, volts, and what sets it (see the
-/// module doc): `rail` the supply across the base, `hold` where it holds its dynode with no
-/// light, `at_op` its dynode at the operating point (volts from the cathode), `capacitor`
-/// whether a decoupling capacitor sits on its dynode.
-pub fn follower_volts(rail: f64, hold: f64, at_op: f64, capacitor: bool) -> (f64, &'static str) {
-    let steady = hold.max(rail - hold).max(at_op).max(rail - at_op).min(rail);
-    if capacitor {
-        (
-            rail,
-            "the full supply at switch-on, a capacitor holding its dynode",
-        )
-    } else {
-        (
-            steady,
-            "its dynode from the far rail end, with or without light",
-        )
-    }
-}
-
 /// One part before merging.
 struct Part {
     name: String,
@@ -291,53 +173,22 @@ struct Part {
     notes: Vec<String>,
 }
 
-/// The resistor ratings to order for one part of `ohms` that sees `volts` and dissipates
-/// `watts`: (power, working voltage, notes).
-fn resistor_ratings(
-    ohms: f64,
-    volts: f64,
-    watts: f64,
-    given_power: f64,
-    given_wv: f64,
-) -> (f64, f64, Vec<String>) {
-    let mut notes = Vec::new();
-    let v_need = volts * VOLTAGE_MARGIN;
-    // Power: the dissipation's margin, and enough that √(P R) covers the voltage's margin.
-    let p_need = (watts * POWER_MARGIN).max(v_need * v_need / ohms.max(1e-300));
-    let power = if given_power >= p_need {
-        given_power
-    } else {
-        let p = power_step(p_need);
-        notes.push(format!(
-            "the design's {} parts are below the margin: {} or more",
-            format_eng(given_power, "W"),
-            format_eng(p, "W")
-        ));
-        p
-    };
-    let wv = if given_wv >= v_need {
-        given_wv
-    } else {
-        let v = step_up(&RESISTOR_VOLTS, v_need);
-        notes.push(format!(
-            "the design's {} working voltage is below the margin: {} or more",
-            format_eng(given_wv, "V"),
-            format_eng(v, "V")
-        ));
-        v
-    };
-    (power, wv, notes)
-}
-
 /// The parts list of an analysed design, lines merged, in designator order.
 pub fn list(a: &Analysis) -> Vec<Line> {
-    let d = &a.design;
-    let names = designators(d);
-    let vs = d.supply_magnitude();
+    let names = designators(&a.design);
     let mut parts: Vec<Part> = Vec::new();
+    divider_parts(a, &names, &mut parts);
+    capacitor_parts(a, &names, &mut parts);
+    lone_resistors(a, &names, &mut parts);
+    follower_parts(a, &names, &mut parts);
+    merge(parts)
+}
+
+/// The divider's resistors (a gap split into equal parts in series) and Zeners.
+fn divider_parts(a: &Analysis, names: &Designators, parts: &mut Vec<Part>) {
+    let d = &a.design;
     let p_given = d.resistor_power.get::<watt>();
     let wv_given = d.resistor_working_voltage.get::<volt>();
-    let n = d.tube.stages;
     for (j, g) in a.gaps.iter().enumerate() {
         let gap_volts = g.volts.abs().max(g.quiescent_volts.abs());
         match d.elements[j] {
@@ -398,6 +249,12 @@ pub fn list(a: &Analysis) -> Vec<Line> {
             }
         }
     }
+}
+
+/// The decoupling capacitors and the coupling capacitor.
+fn capacitor_parts(a: &Analysis, names: &Designators, parts: &mut Vec<Part>) {
+    let d = &a.design;
+    let n = d.tube.stages;
     for (k, c) in d.decoupling.iter().enumerate() {
         let (volts, where_) = match c.style {
             CapStyle::Across(g) => (
@@ -443,7 +300,7 @@ pub fn list(a: &Analysis) -> Vec<Line> {
             .capacitors
             .iter()
             .find(|s| s.label.starts_with("coupling"))
-            .map_or(vs, |s| s.volts.abs());
+            .map_or(d.supply_magnitude(), |s| s.volts.abs());
         let mut notes = vec!["coupling, anode to the signal output".to_string()];
         if d.polarity == Polarity::AnodePositive {
             notes.push(
@@ -464,6 +321,14 @@ pub fn list(a: &Analysis) -> Vec<Line> {
             notes,
         });
     }
+}
+
+/// The anode resistor, the shield resistor and the load resistor at the base.
+fn lone_resistors(a: &Analysis, names: &Designators, parts: &mut Vec<Part>) {
+    let d = &a.design;
+    let vs = d.supply_magnitude();
+    let p_given = d.resistor_power.get::<watt>();
+    let wv_given = d.resistor_working_voltage.get::<volt>();
     let anode_amps = a.op.anode_amps().abs();
     let mut lone_resistor = |name: &Option<String>, ohms: f64, volts: f64, note: &str| {
         if let Some(name) = name {
@@ -508,8 +373,6 @@ pub fn list(a: &Analysis) -> Vec<Line> {
             "load resistor at the base: the pulse's peak across it",
         );
     }
-    follower_parts(a, &names, &mut parts);
-    merge(parts)
 }
 
 /// The followers' tap string and transistors of a transistor-held base (docs/physics.md §14).
@@ -587,332 +450,4 @@ fn follower_parts(a: &Analysis, names: &Designators, parts: &mut Vec<Part>) {
             )],
         });
     }
-}
-
-/// Choose the ratings of each part and merge identical ones into lines.
-fn merge(parts: Vec<Part>) -> Vec<Line> {
-    let mut lines: Vec<Line> = Vec::new();
-    for p in parts {
-        let (power_rating, voltage_rating, mut notes) = match p.kind {
-            Kind::Resistor => {
-                let (pw, wv, extra) = resistor_ratings(
-                    p.value,
-                    p.volts,
-                    p.watts.unwrap_or(0.0),
-                    p.given_watts.unwrap_or(0.0),
-                    p.given_volts.unwrap_or(0.0),
-                );
-                (Some(pw), Some(wv), extra)
-            }
-            Kind::Zener => {
-                let need = p.watts.unwrap_or(0.0) * POWER_MARGIN;
-                let given = p.given_watts.unwrap_or(0.0);
-                if given >= need {
-                    (Some(given), None, Vec::new())
-                } else {
-                    let w = power_step(need);
-                    (
-                        Some(w),
-                        None,
-                        vec![format!(
-                            "the design's {} Zener is below the margin: {} or more",
-                            format_eng(given, "W"),
-                            format_eng(w, "W")
-                        )],
-                    )
-                }
-            }
-            Kind::Transistor => {
-                let v_need = p.volts * VOLTAGE_MARGIN;
-                let p_need = p.watts.unwrap_or(0.0) * POWER_MARGIN;
-                let mut notes = Vec::new();
-                let given_v = p.given_volts.unwrap_or(0.0);
-                let v = if given_v >= v_need {
-                    given_v
-                } else {
-                    let v = step_up(&TRANSISTOR_VOLTS, v_need);
-                    notes.push(format!(
-                        "the design's {} rating is below the margin: {} or more",
-                        format_eng(given_v, "V"),
-                        format_eng(v, "V")
-                    ));
-                    v
-                };
-                let given_p = p.given_watts.unwrap_or(0.0);
-                let w = if given_p >= p_need {
-                    given_p
-                } else {
-                    let w = power_step(p_need);
-                    notes.push(format!(
-                        "the design's {} power rating is below the margin: {} or more",
-                        format_eng(given_p, "W"),
-                        format_eng(w, "W")
-                    ));
-                    w
-                };
-                (Some(w), Some(v), notes)
-            }
-            Kind::Capacitor => {
-                // The one capacitor rule (eseries::capacitor_rating), shared with size and train.
-                let need = p.volts * crate::model::eseries::CAPACITOR_RATING_MARGIN;
-                match p.given_volts {
-                    Some(v) if v >= need => (None, Some(v), Vec::new()),
-                    Some(v) => {
-                        let r = crate::model::eseries::capacitor_rating(p.volts);
-                        (
-                            None,
-                            Some(r),
-                            vec![format!(
-                                "the design's {} rating is below the margin: {} or more",
-                                format_eng(v, "V"),
-                                format_eng(r, "V")
-                            )],
-                        )
-                    }
-                    None => (
-                        None,
-                        Some(crate::model::eseries::capacitor_rating(p.volts)),
-                        vec!["no rating in the design: chosen from the voltage".to_string()],
-                    ),
-                }
-            }
-        };
-        notes.splice(0..0, p.notes);
-        let same = lines.iter_mut().find(|l| {
-            l.kind == p.kind
-                && l.value == p.value
-                && l.tolerance == p.tolerance
-                && l.power_rating == power_rating
-                && l.voltage_rating == voltage_rating
-        });
-        match same {
-            Some(l) => {
-                l.designators.push(p.name);
-                l.count += 1;
-                l.volts = l.volts.max(p.volts);
-                l.watts = l.watts.zip(p.watts).map(|(a, b)| a.max(b)).or(p.watts);
-                for n in notes {
-                    if !l.notes.contains(&n) {
-                        l.notes.push(n);
-                    }
-                }
-            }
-            None => lines.push(Line {
-                designators: vec![p.name],
-                kind: p.kind,
-                value: p.value,
-                series: if p.kind == Kind::Transistor {
-                    None
-                } else {
-                    series_of(p.value)
-                },
-                tolerance: p.tolerance,
-                tolerance_assumed: p.tolerance_assumed,
-                watts: p.watts,
-                power_rating,
-                volts: p.volts,
-                voltage_rating,
-                count: 1,
-                notes,
-            }),
-        }
-    }
-    lines
-}
-
-/// Designators as a short list: runs of consecutive numbers joined ("R2–R11").
-pub fn designator_text(names: &[String]) -> String {
-    let split = |s: &str| -> Option<(String, u32)> {
-        let i = s.find(|c: char| c.is_ascii_digit())?;
-        let (p, num) = s.split_at(i);
-        num.parse().ok().map(|n| (p.to_string(), n))
-    };
-    let mut out: Vec<String> = Vec::new();
-    let mut k = 0;
-    while k < names.len() {
-        let mut end = k;
-        if let Some((p, n)) = split(&names[k]) {
-            while end + 1 < names.len()
-                && split(&names[end + 1]) == Some((p.clone(), n + (end + 1 - k) as u32))
-            {
-                end += 1;
-            }
-        }
-        if end >= k + 2 {
-            out.push(format!("{}–{}", names[k], names[end]));
-        } else {
-            out.extend(names[k..=end].iter().cloned());
-        }
-        k = end + 1;
-    }
-    out.join(", ")
-}
-
-fn tolerance_text(l: &Line) -> String {
-    if l.kind == Kind::Transistor {
-        return "no tolerance".to_string();
-    }
-    format!(
-        "{} %{}",
-        crate::units::show_number(l.tolerance * 100.0),
-        if l.tolerance_assumed { ", assumed" } else { "" }
-    )
-}
-
-fn rating_text(rating: Option<f64>, used: Option<f64>, unit: &str) -> String {
-    match (rating, used) {
-        (Some(r), Some(u)) if u > 0.0 => format!(
-            "{} ({:.1}× the {} it sees)",
-            format_eng(r, unit),
-            r / u,
-            format_eng(u, unit)
-        ),
-        (Some(r), _) => format_eng(r, unit),
-        _ => "—".to_string(),
-    }
-}
-
-/// Column headings of the list.
-pub const HEAD: [&str; 9] = [
-    "designators",
-    "part",
-    "value",
-    "series",
-    "tolerance",
-    "power rating (margin)",
-    "voltage rating (margin)",
-    "count",
-    "notes",
-];
-
-/// The list as rows of cells under [`HEAD`].
-pub fn rows(lines: &[Line]) -> Vec<Vec<String>> {
-    lines
-        .iter()
-        .map(|l| {
-            vec![
-                designator_text(&l.designators),
-                l.kind.word().to_string(),
-                l.value_text(),
-                l.series.unwrap_or("none").to_string(),
-                tolerance_text(l),
-                rating_text(l.power_rating, l.watts, "W"),
-                rating_text(l.voltage_rating, Some(l.volts), "V"),
-                l.count.to_string(),
-                l.notes.join("; "),
-            ]
-        })
-        .collect()
-}
-
-/// One CSV field (RFC 4180): quoted when it holds a comma, a quote or a line break.
-fn csv_field(s: &str) -> String {
-    let s = crate::report::one_line(s);
-    if s.contains([',', '"']) {
-        format!("\"{}\"", s.replace('"', "\"\""))
-    } else {
-        s
-    }
-}
-
-/// The parts list as CSV (RFC 4180, CRLF line ends) for a spreadsheet or an order: one line
-/// per part, plain SI numbers beside the readable values; the high-voltage caution and the
-/// design's warnings follow the table as rows in the first column.
-pub fn csv(a: &Analysis) -> String {
-    let lines = list(a);
-    let mut out = String::new();
-    let head = [
-        "designators",
-        "part",
-        "value",
-        "value_si",
-        "unit",
-        "series",
-        "tolerance",
-        "power_watts",
-        "power_rating_watts",
-        "volts",
-        "voltage_rating_volts",
-        "voltage_margin",
-        "count",
-        "notes",
-    ];
-    out.push_str(&head.join(","));
-    out.push_str("\r\n");
-    let num = |x: Option<f64>| x.map_or(String::new(), |v| format!("{v:.6e}"));
-    for l in &lines {
-        let cells = [
-            csv_field(&l.designators.join(" ")),
-            csv_field(l.kind.word()),
-            csv_field(&l.value_text()),
-            num(Some(l.value)),
-            csv_field(l.kind.unit()),
-            l.series.unwrap_or("").to_string(),
-            if l.kind == Kind::Transistor {
-                String::new()
-            } else {
-                format!("{}", l.tolerance)
-            },
-            num(l.watts),
-            num(l.power_rating),
-            num(Some(l.volts)),
-            num(l.voltage_rating),
-            l.voltage_margin()
-                .map_or(String::new(), |m| format!("{m:.3}")),
-            l.count.to_string(),
-            csv_field(&l.notes.join("; ")),
-        ];
-        out.push_str(&cells.join(","));
-        out.push_str("\r\n");
-    }
-    out.push_str("\r\n");
-    out.push_str(&csv_field(crate::budget::safety::CLOSING_CAUTION));
-    out.push_str("\r\n");
-    for w in &a.warnings {
-        out.push_str(&csv_field(&format!("warning: {w}")));
-        out.push_str("\r\n");
-    }
-    out
-}
-
-/// The parts list as a text section for the reports.
-pub fn text(a: &Analysis) -> String {
-    let lines = list(a);
-    let mut out = String::new();
-    for l in &lines {
-        out.push_str(&format!(
-            "  {:<14} {:>3} × {} {} ({}, {})\n",
-            designator_text(&l.designators),
-            l.count,
-            l.kind.word(),
-            l.value_text(),
-            l.series.unwrap_or(if l.kind == Kind::Transistor {
-                "a high-voltage follower"
-            } else {
-                "no E-series value"
-            }),
-            tolerance_text(l),
-        ));
-        if l.power_rating.is_some() {
-            out.push_str(&format!(
-                "  {:<14}       power {}\n",
-                "",
-                rating_text(l.power_rating, l.watts, "W")
-            ));
-        }
-        if l.voltage_rating.is_some() {
-            out.push_str(&format!(
-                "  {:<14}       voltage {}\n",
-                "",
-                rating_text(l.voltage_rating, Some(l.volts), "V")
-            ));
-        }
-        for n in &l.notes {
-            out.push_str(&format!("  {:<14}       {n}\n", ""));
-        }
-    }
-    out.push_str(&format!(
-        "  Ratings: at least {VOLTAGE_MARGIN}× the highest voltage a part sees (with or without the tube's current) and {POWER_MARGIN}× its dissipation (common practice, from memory); the design's own ratings are kept where they meet that.\n"
-    ));
-    out
 }
