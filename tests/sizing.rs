@@ -278,6 +278,61 @@ fn bad_requirements_are_located() {
     assert!(!out.exists());
 }
 
+/// The blocks a requirements file shares with a design (tube, load, the resistor family, the
+/// supply's extras, the stray) are checked by the design's own per-block checks, and each error
+/// names the file and the field as the requirements file writes it (schema: docs/design-file.md,
+/// "Requirements file"; the stray there is `capacitors.stray`, not a design's `divider.stray`).
+#[test]
+fn shared_blocks_are_checked_and_named_as_the_requirements_file_writes_them() {
+    let demo =
+        std::fs::read_to_string(crate_path("designs/requirements/paddle-rebuild.ron")).unwrap();
+    let cases = [
+        (
+            "stray: Some(\"3 pF\")",
+            "stray: Some(\"3 uF\")",
+            "capacitors.stray",
+        ),
+        (
+            "resistance: \"50 ohm\"",
+            "resistance: \"open\"",
+            "load.resistance",
+        ),
+        (
+            "tolerance: \"1 %\"",
+            "tolerance: \"80 %\"",
+            "resistors.tolerance",
+        ),
+        (
+            "drift: Some(\"0.02 %\")",
+            "drift: Some(\"70 %\")",
+            "supply.quality.drift",
+        ),
+        (
+            "output_capacitance: Some(\"10 nF\")",
+            "output_capacitance: Some(\"10 F\")",
+            "supply.output_capacitance",
+        ),
+        (
+            "collection: Some(\"90 %\")",
+            "collection: Some(\"190 %\")",
+            "tube.collection",
+        ),
+        (
+            "stages: 10,",
+            "stages: 10, cathode: Some(Builtin(name: \"none\")),",
+            "tube.cathode.name",
+        ),
+    ];
+    for (from, to, field) in cases {
+        assert!(demo.contains(from), "{from}");
+        let e = sizing::parse_requirements(&demo.replacen(from, to, 1), "req.ron")
+            .err()
+            .unwrap_or_else(|| panic!("{to} was accepted"))
+            .to_string();
+        assert!(e.starts_with(&format!("req.ron: {field}: ")), "{to}: {e}");
+    }
+}
+
 #[allow(clippy::too_many_arguments)]
 fn requirements_text(
     stages: usize,

@@ -71,7 +71,8 @@ pub struct Starter {
     pub readout: ReadoutKind,
 }
 
-/// Named starting points, one like each demo design: (name, what it is, answers).
+/// Named starting points, one like each demo design: (name, what it is, answers). Long by
+/// nature: a table, one entry per demo.
 pub fn starting_points() -> Vec<(&'static str, &'static str, Starter)> {
     let s = |name: &str, stages, supply, polarity, divider, light, readout| Starter {
         name: name.to_string(),
@@ -269,7 +270,8 @@ fn ron_value(x: f64, unit: &str) -> String {
     }
 }
 
-/// The starter design's text.
+/// The starter design's text. Long by nature: a template written line by line in the file's
+/// order, each field beside its comment, so the text reads as the file it makes.
 pub fn write(o: &Starter) -> String {
     let n = o.stages;
     let w = weights(o.divider, n);

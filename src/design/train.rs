@@ -188,118 +188,9 @@ pub(crate) fn check(
     c: &Checker,
     light_photoelectrons: Option<f64>,
 ) -> Result<TrainSpec, DesignError> {
-    let size = match &t.size {
-        RawPulseSize::FromLight => match light_photoelectrons {
-            Some(n) if n > 0.0 && n.is_finite() => PulseSize::Photoelectrons(n),
-            Some(_) => {
-                return Err(c.fail(
-                    "train.size",
-                    "FromLight: the light block gives no photoelectrons at this cathode (its light lies outside the cathode's response); give the size",
-                ));
-            }
-            None => {
-                return Err(c.fail(
-                    "train.size",
-                    "FromLight takes the pulse size from the light block, and the design has none: add a light block or give Charge(..), Photoelectrons(..) or PeakCurrent(..)",
-                ));
-            }
-        },
-        RawPulseSize::Charge(v) => {
-            PulseSize::AnodeCharge(c.ranged("train.size", v, Kind::Charge, 1e-21, 1e-3)?)
-        }
-        RawPulseSize::Photoelectrons(n) => {
-            if !(n.is_finite() && *n > 0.0 && *n <= 1e12) {
-                return Err(c.fail(
-                    "train.size",
-                    format!("expected a positive number of photoelectrons up to 1e12, found {n}"),
-                ));
-            }
-            PulseSize::Photoelectrons(*n)
-        }
-        RawPulseSize::PeakCurrent(v) => {
-            PulseSize::PeakAnodeCurrent(c.ranged("train.size", v, Kind::Current, 1e-12, 100.0)?)
-        }
-    };
-    let time = |f: &str, v: &Value| c.ranged(f, v, Kind::Time, 1e-12, 1e-3);
-    let shape = match &t.shape {
-        RawPulseShape::Gaussian { fwhm } => Shape::Gaussian(time("train.shape.fwhm", fwhm)?),
-        RawPulseShape::Trapezoid { rise, width, fall } => Shape::Trapezoid(
-            time("train.shape.rise", rise)?,
-            time("train.shape.width", width)?,
-            time("train.shape.fall", fall)?,
-        ),
-        RawPulseShape::Scintillator { rise, decay } => {
-            let r = time("train.shape.rise", rise)?;
-            let d = time("train.shape.decay", decay)?;
-            if d < 1.5 * r {
-                return Err(c.fail(
-                    "train.shape.decay",
-                    format!(
-                        "expected a decay constant at least 1.5× the rise constant ({}), found {decay}",
-                        crate::units::format_eng(r, "s")
-                    ),
-                ));
-            }
-            Shape::Scintillator(r, d)
-        }
-    };
-    let count = |f: &str, n: i64| -> Result<usize, DesignError> {
-        if n < 1 || n as usize > MAX_PULSES {
-            return Err(c.fail(
-                f,
-                format!("expected a count from 1 to {MAX_PULSES}, found {n}"),
-            ));
-        }
-        Ok(n as usize)
-    };
-    let rate = |f: &str, v: &Value| c.ranged(f, v, Kind::Frequency, 1e-3, 1e9);
-    let pattern = match &t.pattern {
-        RawPattern::Single => Pattern::Single,
-        RawPattern::Periodic { count: n, rate: r } => Pattern::Periodic(
-            count("train.pattern.count", *n)?,
-            rate("train.pattern.rate", r)?,
-        ),
-        RawPattern::Bursts {
-            count: n,
-            rate: r,
-            pause,
-            bursts,
-        } => {
-            let n = count("train.pattern.count", *n)?;
-            let b = count("train.pattern.bursts", *bursts)?;
-            if n * b > MAX_PULSES {
-                return Err(c.fail(
-                    "train.pattern.bursts",
-                    format!(
-                        "{n} pulses × {b} bursts is above the {MAX_PULSES} pulses a train may hold"
-                    ),
-                ));
-            }
-            Pattern::Bursts(
-                n,
-                rate("train.pattern.rate", r)?,
-                c.ranged("train.pattern.pause", pause, Kind::Time, 1e-12, 100.0)?,
-                b,
-            )
-        }
-        RawPattern::Poisson {
-            rate: r,
-            count: n,
-            seed,
-        } => {
-            if *seed < 0 {
-                return Err(c.fail(
-                    "train.pattern.seed",
-                    format!("expected a non-negative integer seed, found {seed}"),
-                ));
-            }
-            Pattern::Poisson(
-                rate("train.pattern.rate", r)?,
-                count("train.pattern.count", *n)?,
-                *seed as u64,
-            )
-        }
-    };
+    let size = check_size(c, &t.size, light_photoelectrons)?;
+    let shape = check_shape(c, &t.shape)?;
+    let pattern = check_pattern(c, &t.pattern)?;
     let spec = TrainSpec {
         size,
         shape,
@@ -352,6 +243,144 @@ pub(crate) fn check(
         }
     }
     Ok(spec)
+}
+
+/// `train.size`: a charge, photoelectrons, a peak current, or the light block's photoelectrons.
+fn check_size(
+    c: &Checker,
+    size: &RawPulseSize,
+    light_photoelectrons: Option<f64>,
+) -> Result<PulseSize, DesignError> {
+    Ok(match size {
+        RawPulseSize::FromLight => match light_photoelectrons {
+            Some(n) if n > 0.0 && n.is_finite() => PulseSize::Photoelectrons(n),
+            Some(_) => {
+                return Err(c.fail(
+                    "train.size",
+                    "FromLight: the light block gives no photoelectrons at this cathode (its light lies outside the cathode's response); give the size",
+                ));
+            }
+            None => {
+                return Err(c.fail(
+                    "train.size",
+                    "FromLight takes the pulse size from the light block, and the design has none: add a light block or give Charge(..), Photoelectrons(..) or PeakCurrent(..)",
+                ));
+            }
+        },
+        RawPulseSize::Charge(v) => {
+            PulseSize::AnodeCharge(c.ranged("train.size", v, Kind::Charge, 1e-21, 1e-3)?)
+        }
+        RawPulseSize::Photoelectrons(n) => {
+            if !(n.is_finite() && *n > 0.0 && *n <= 1e12) {
+                return Err(c.fail(
+                    "train.size",
+                    format!("expected a positive number of photoelectrons up to 1e12, found {n}"),
+                ));
+            }
+            PulseSize::Photoelectrons(*n)
+        }
+        RawPulseSize::PeakCurrent(v) => {
+            PulseSize::PeakAnodeCurrent(c.ranged("train.size", v, Kind::Current, 1e-12, 100.0)?)
+        }
+    })
+}
+
+/// A time at `f` between 1 ps and 1 ms.
+fn time(c: &Checker, f: &str, v: &Value) -> Result<f64, DesignError> {
+    c.ranged(f, v, Kind::Time, 1e-12, 1e-3)
+}
+
+/// `train.shape`: Gaussian, trapezoid, or scintillator (decay at least 1.5× the rise).
+fn check_shape(c: &Checker, shape: &RawPulseShape) -> Result<Shape, DesignError> {
+    Ok(match shape {
+        RawPulseShape::Gaussian { fwhm } => Shape::Gaussian(time(c, "train.shape.fwhm", fwhm)?),
+        RawPulseShape::Trapezoid { rise, width, fall } => Shape::Trapezoid(
+            time(c, "train.shape.rise", rise)?,
+            time(c, "train.shape.width", width)?,
+            time(c, "train.shape.fall", fall)?,
+        ),
+        RawPulseShape::Scintillator { rise, decay } => {
+            let r = time(c, "train.shape.rise", rise)?;
+            let d = time(c, "train.shape.decay", decay)?;
+            if d < 1.5 * r {
+                return Err(c.fail(
+                    "train.shape.decay",
+                    format!(
+                        "expected a decay constant at least 1.5× the rise constant ({}), found {decay}",
+                        crate::units::format_eng(r, "s")
+                    ),
+                ));
+            }
+            Shape::Scintillator(r, d)
+        }
+    })
+}
+
+/// A pulse or burst count at `f`, from 1 to [`MAX_PULSES`].
+fn count(c: &Checker, f: &str, n: i64) -> Result<usize, DesignError> {
+    if n < 1 || n as usize > MAX_PULSES {
+        return Err(c.fail(
+            f,
+            format!("expected a count from 1 to {MAX_PULSES}, found {n}"),
+        ));
+    }
+    Ok(n as usize)
+}
+
+/// A pulse rate at `f` between 1 mHz and 1 GHz.
+fn rate(c: &Checker, f: &str, v: &Value) -> Result<f64, DesignError> {
+    c.ranged(f, v, Kind::Frequency, 1e-3, 1e9)
+}
+
+/// `train.pattern`: single, periodic, bursts (at most [`MAX_PULSES`] in all) or Poisson.
+fn check_pattern(c: &Checker, pattern: &RawPattern) -> Result<Pattern, DesignError> {
+    Ok(match pattern {
+        RawPattern::Single => Pattern::Single,
+        RawPattern::Periodic { count: n, rate: r } => Pattern::Periodic(
+            count(c, "train.pattern.count", *n)?,
+            rate(c, "train.pattern.rate", r)?,
+        ),
+        RawPattern::Bursts {
+            count: n,
+            rate: r,
+            pause,
+            bursts,
+        } => {
+            let n = count(c, "train.pattern.count", *n)?;
+            let b = count(c, "train.pattern.bursts", *bursts)?;
+            if n * b > MAX_PULSES {
+                return Err(c.fail(
+                    "train.pattern.bursts",
+                    format!(
+                        "{n} pulses × {b} bursts is above the {MAX_PULSES} pulses a train may hold"
+                    ),
+                ));
+            }
+            Pattern::Bursts(
+                n,
+                rate(c, "train.pattern.rate", r)?,
+                c.ranged("train.pattern.pause", pause, Kind::Time, 1e-12, 100.0)?,
+                b,
+            )
+        }
+        RawPattern::Poisson {
+            rate: r,
+            count: n,
+            seed,
+        } => {
+            if *seed < 0 {
+                return Err(c.fail(
+                    "train.pattern.seed",
+                    format!("expected a non-negative integer seed, found {seed}"),
+                ));
+            }
+            Pattern::Poisson(
+                rate(c, "train.pattern.rate", r)?,
+                count(c, "train.pattern.count", *n)?,
+                *seed as u64,
+            )
+        }
+    })
 }
 
 impl Shape {
