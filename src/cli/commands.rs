@@ -420,7 +420,14 @@ pub fn train(args: TrainArgs) -> Result<Exit, CliError> {
         };
         crate::budget::pulsetrain::analyse(&d, &a.network.tube, &opts)
     })
-    .map_err(|e| CliError::solve(format!("{}: {e}", d.source)))?;
+    .map_err(|e| {
+        let hint = if e.to_string().contains("try fewer pulses") {
+            " (--pulses N solves the first N)"
+        } else {
+            ""
+        };
+        CliError::solve(format!("{}: {e}{hint}", d.source))
+    })?;
     if let Some(t) = &train {
         a.warnings.extend(t.warnings.iter().cloned());
     }

@@ -91,7 +91,7 @@ impl Base {
                 return Err(TransientError::Failed {
                     time: st.time,
                     reason: format!(
-                        "more than {budget} steps ({} pulses); try fewer pulses with --pulses",
+                        "more than {budget} steps ({} pulses); try fewer pulses",
                         arrivals.len()
                     ),
                 });
