@@ -1,6 +1,7 @@
 //! Decoupling capacitors sized for the train: the droop each must keep below, rounded up to
 //! the E12 series, with the stored charge and energy against the safety limits.
 
+use super::steady::SEARCH_POISSON_PULSES;
 use super::*;
 
 /// Preferred values for the recommended capacitors (IEC 60063, from [`crate::model::eseries`]).
@@ -96,14 +97,15 @@ fn capacitor_droop(
     spec: &TrainSpec,
     qk: f64,
     steady: bool,
+    poisson_pulses: usize,
 ) -> Result<Vec<f64>, TransientError> {
     let base = Base::from_design(design, tube.clone());
     if !steady || matches!(spec.pattern, Pattern::Single) {
         let run = run_train(&base, spec, qk, &quiet())?;
         return Ok(droop_fractions(design, &run));
     }
-    let steady =
-        steady_state(design, &base, spec, qk, 1.0)?.ok_or_else(|| TransientError::Failed {
+    let steady = steady::steady_state_drawn(design, &base, spec, qk, 1.0, poisson_pulses)?
+        .ok_or_else(|| TransientError::Failed {
             time: 0.0,
             reason: "no steady state for the pattern".into(),
         })?;
@@ -140,18 +142,21 @@ pub(super) fn size_caps(
         .iter()
         .map(|c| c.value.get::<farad>())
         .collect();
-    let first = capacitor_droop(design, tube, spec, qk, true);
+    let first = capacitor_droop(design, tube, spec, qk, true, SEARCH_POISSON_PULSES);
     let steady = first.is_ok();
     let mut known = first.ok().map(|fr| (fitted, fr));
-    let mut droop_with = |vals: &[f64]| -> Result<Vec<f64>, TransientError> {
-        if let Some((_, fr)) = known.take_if(|(v, _)| v.as_slice() == vals) {
+    // The search draws fewer Poisson pulses; the recommended values are checked with all.
+    let mut droop_with = |vals: &[f64], pulses: usize| -> Result<Vec<f64>, TransientError> {
+        if let Some((_, fr)) =
+            known.take_if(|(v, _)| pulses == SEARCH_POISSON_PULSES && v.as_slice() == vals)
+        {
             return Ok(fr);
         }
         let mut d = design.clone();
         for (c, v) in d.decoupling.iter_mut().zip(vals) {
             c.value = uom::si::f64::Capacitance::new::<farad>(*v);
         }
-        capacitor_droop(&d, tube, spec, qk, steady)
+        capacitor_droop(&d, tube, spec, qk, steady, pulses)
     };
     let mut vals: Vec<f64> = design
         .decoupling
@@ -161,8 +166,8 @@ pub(super) fn size_caps(
     // A base whose capacitors are far too small for the pulses may not solve at all: back off
     // to twice the values and go on (at most six times in all).
     let mut failures = 0;
-    let mut tried = |vals: &mut Vec<f64>| -> Result<Option<Vec<f64>>, TransientError> {
-        match droop_with(vals) {
+    let mut tried = |vals: &mut Vec<f64>, pulses| -> Result<Option<Vec<f64>>, TransientError> {
+        match droop_with(vals, pulses) {
             Ok(fr) => Ok(Some(fr)),
             Err(_) if failures < 6 => {
                 failures += 1;
@@ -173,7 +178,7 @@ pub(super) fn size_caps(
         }
     };
     for _ in 0..16 {
-        let Some(fr) = tried(&mut vals)? else {
+        let Some(fr) = tried(&mut vals, SEARCH_POISSON_PULSES)? else {
             continue;
         };
         let mut done = true;
@@ -194,7 +199,7 @@ pub(super) fn size_caps(
     let mut verified = false;
     let mut final_fr = Vec::new();
     for _ in 0..6 {
-        let Some(fr) = tried(&mut preferred)? else {
+        let Some(fr) = tried(&mut preferred, POISSON_PULSES)? else {
             continue;
         };
         let over: Vec<usize> = (0..fr.len()).filter(|i| fr[*i] > allowed).collect();

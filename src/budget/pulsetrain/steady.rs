@@ -33,6 +33,10 @@ pub struct SteadyReport {
 /// Pulses the Poisson statistics draw.
 pub const POISSON_PULSES: usize = 200_000;
 
+/// Pulses the Poisson statistics draw while capacitor sizing searches for the needed values;
+/// the values it recommends are then checked with [`POISSON_PULSES`].
+pub const SEARCH_POISSON_PULSES: usize = 50_000;
+
 /// The periodic steady state of a train's pattern repeated for ever, and for Poisson arrivals
 /// the 99th percentile of each capacitor's drop; `None` for a single pulse.
 pub fn steady_state(
@@ -41,6 +45,18 @@ pub fn steady_state(
     spec: &TrainSpec,
     qk: f64,
     first_gain: f64,
+) -> Result<Option<SteadyReport>, TransientError> {
+    steady_state_drawn(design, base, spec, qk, first_gain, POISSON_PULSES)
+}
+
+/// [`steady_state`] with the Poisson statistics drawn from `poisson_pulses` pulses.
+pub(super) fn steady_state_drawn(
+    design: &Design,
+    base: &Base,
+    spec: &TrainSpec,
+    qk: f64,
+    first_gain: f64,
+    poisson_pulses: usize,
 ) -> Result<Option<SteadyReport>, TransientError> {
     let (kind, offsets, period) = match spec.pattern {
         Pattern::Single => return Ok(None),
@@ -89,7 +105,7 @@ pub fn steady_state(
         .collect();
     let quantile = match spec.pattern {
         Pattern::Poisson(r, _, seed) => {
-            let (q, _) = base.poisson_droop(&ss, &spec.shape, qk, r, 0.99, seed, POISSON_PULSES)?;
+            let (q, _) = base.poisson_droop(&ss, &spec.shape, qk, r, 0.99, seed, poisson_pulses)?;
             Some(q.iter().zip(&gaps).map(|(q, g)| q / g).collect())
         }
         _ => None,
