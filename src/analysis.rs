@@ -279,17 +279,117 @@ pub fn analyse_with(
     let small_signal_gain = network.small_signal_gain();
     let sensitivity = network.gain_sensitivity();
     let stream = pulse_stream(design, small_signal_gain)?;
-    // One average current: the light sets the cathode's average current (pulses × rate), so
-    // the operating point is solved at that cathode current, and the anode current and gain
-    // there follow self-consistently; a stated operating current overrides it (and is warned
-    // about below when it disagrees).
+    let op = operating_point(design, &network, stream, &mut ws)?;
+    let mut linearity = linearity::trace(&network, &mut ws).map_err(solve_err)?;
+    if linearity.peak_over.is_some() {
+        linearity.peak_over_stiff_knee = linearity::peak_with_stiff_knee(design, &network, &mut ws);
+    }
+    let safety = safety::assess(design, &op);
+
+    let vs = design.supply_magnitude();
+    let max_ia = design.tube.max_anode_current.get::<ampere>();
+    let tube_gaps = op.tube_gap_volts();
+    let gaps = gap_rows(design, &network, &op, &quiescent_volts);
+    let mut warnings = dc_warnings(
+        design,
+        stream,
+        &gaps,
+        &op,
+        (quiescent_amps, small_signal_gain),
+        &safety,
+    );
+    let mut assumptions = assumptions(design, &network.tube, stream, &op);
+    let gain_curve = gain_curve(&network, vs, design.tube.max_supply.get::<volt>());
+    let t = &network.tube;
+    let signal = crate::budget::signal::budget(
+        design,
+        &crate::budget::signal::Chain {
+            gain: op.gain(),
+            collection: t.collection,
+            excess_noise: t.excess_noise_factor(&tube_gaps),
+            divider_amps: quiescent_amps,
+            max_anode_amps: max_ia,
+            first_stage_gain: t.deltas(&tube_gaps).next().unwrap_or(1.0),
+        },
+    );
+    if let Some(s) = &signal {
+        warnings.extend(s.warnings.iter().cloned());
+        assumptions.extend(s.assumptions.iter().cloned());
+    }
+
+    let train = match train {
+        None => None,
+        Some(opts) => match crate::budget::pulsetrain::analyse(design, &network.tube, &opts) {
+            Ok(t) => t,
+            Err(e) => {
+                warnings.push(warning!(
+                    Code::TrainSolveFailed,
+                    "The pulse-train solve failed, so the train section is missing: {e}"
+                ));
+                None
+            }
+        },
+    };
+    if let Some(t) = &train {
+        warnings.extend(t.warnings.iter().cloned());
+    }
+    let supply_model = design.multiplier.as_ref().and_then(|m| {
+        let stability = design.supply_quality.and_then(|q| q.gain_stability);
+        match crate::solve::multiplier::assess(m, vs, op.supply_amps(), sensitivity, stability) {
+            Ok(sm) => Some(sm),
+            Err(e) => {
+                warnings.push(warning!(Code::MultiplierSolveFailed,
+                    "The supply's multiplier could not be solved, so the supply-model section is missing: {e}."
+                ));
+                None
+            }
+        }
+    });
+    if let Some(sm) = &supply_model {
+        supply_model_warnings(design, sm, &mut warnings);
+    }
+    let active_stages = crate::budget::active::assess(design, &network, &op);
+    if let Some(act) = &active_stages {
+        warnings.extend(crate::budget::active::warnings(act));
+    }
+    Ok(Analysis {
+        active_stages,
+        supply_model,
+        gain_curve,
+        train,
+        design: design.clone(),
+        network,
+        quiescent_amps,
+        small_signal_gain,
+        sensitivity,
+        op,
+        gaps,
+        linearity,
+        safety,
+        warnings,
+        assumptions,
+        signal,
+    })
+}
+
+/// The operating point: at the pulses' average cathode current when the design leaves the
+/// operating current out (one average current: the light sets the cathode's average, pulses ×
+/// rate, and the anode current and gain there follow self-consistently), else at the stated
+/// anode current (warned about in [`dc_warnings`] when it disagrees with the pulses).
+fn operating_point(
+    design: &Design,
+    network: &Network,
+    stream: Option<PulseStream>,
+    ws: &mut Workspace,
+) -> Result<OperatingPoint, AnalysisError> {
+    let file = design.source.clone();
     let solved = match stream {
         Some(st) if design.operating_assumed && st.rate * st.cathode_charge > 0.0 => {
-            network.solve_raw(st.rate * st.cathode_charge, None, &mut ws)
+            network.solve_raw(st.rate * st.cathode_charge, None, ws)
         }
-        _ => network.solve_anode(design.anode_current, &mut ws),
+        _ => network.solve_anode(design.anode_current, ws),
     };
-    let op = solved.map_err(|source| match source {
+    solved.map_err(|source| match source {
         SolveError::Unreachable { .. } => AnalysisError::Operating {
             file: file.clone(),
             field: if design.operating_assumed {
@@ -300,21 +400,28 @@ pub fn analyse_with(
             },
             source,
         },
-        other => solve_err(other),
-    })?;
-    let mut linearity = linearity::trace(&network, &mut ws).map_err(solve_err)?;
-    if linearity.peak_over.is_some() {
-        linearity.peak_over_stiff_knee = linearity::peak_with_stiff_knee(design, &network, &mut ws);
-    }
-    let safety = safety::assess(design, &op);
+        other => AnalysisError::Solve {
+            file,
+            source: other,
+        },
+    })
+}
 
+/// One row per divider element at the operating point, with its ratings and the yield of the
+/// dynode it feeds.
+fn gap_rows(
+    design: &Design,
+    network: &Network,
+    op: &OperatingPoint,
+    quiescent_volts: &[f64],
+) -> Vec<GapRow> {
     let vs = design.supply_magnitude();
     let n = design.tube.stages;
     let p_rating = design.resistor_power.get::<watt>();
     let wv = design.resistor_working_voltage.get::<volt>();
     let max_gap = design.tube.max_gap.map(|v| v.get::<volt>());
     let tube_gaps = op.tube_gap_volts();
-    let gaps: Vec<GapRow> = (0..=n)
+    (0..=n)
         .map(|j| {
             let volts = op.element_volts[j];
             let amps = op.element_amps[j];
@@ -367,8 +474,22 @@ pub fn analyse_with(
                 over_gap_limit: max_gap.is_some_and(|m| volts > m),
             }
         })
-        .collect();
+        .collect()
+}
 
+/// The DC figures' warnings: the stated operating current against the pulses, each gap against
+/// its ratings and the tube's limit, the anode and supply currents, the divider current, the
+/// gain's deviation, the capacitors' ratings and the bleed-down.
+fn dc_warnings(
+    design: &Design,
+    stream: Option<PulseStream>,
+    gaps: &[GapRow],
+    op: &OperatingPoint,
+    (quiescent_amps, small_signal_gain): (f64, f64),
+    safety: &Safety,
+) -> Vec<Warning> {
+    let p_rating = design.resistor_power.get::<watt>();
+    let max_gap = design.tube.max_gap.map(|v| v.get::<volt>());
     let mut warnings = Vec::new();
     if let Some(st) = stream.filter(|_| !design.operating_assumed) {
         let stated = design.anode_current.get::<ampere>();
@@ -381,7 +502,7 @@ pub fn analyse_with(
             ));
         }
     }
-    for g in &gaps {
+    for g in gaps {
         if g.over_gap_limit {
             warnings.push(warning!(
                 Code::GapAboveTubeLimit,
@@ -500,9 +621,17 @@ pub fn analyse_with(
         )),
         _ => {}
     }
+    warnings
+}
 
+/// What the analysis took as given where the design is silent, each with where to give it.
+fn assumptions(
+    design: &Design,
+    t: &TubeModel,
+    stream: Option<PulseStream>,
+    op: &OperatingPoint,
+) -> Vec<String> {
     let mut assumptions = Vec::new();
-    let t = &network.tube;
     if design.tube.collection_assumed {
         assumptions.push(format!(
             "cathode–D1 collection {:.0} % (typical, from memory; give tube.collection)",
@@ -552,10 +681,14 @@ pub fn analyse_with(
             "resistors rated 0.25 W, 250 V working, 1 % (small film parts, common practice; give resistors)".to_string(),
         );
     }
+    assumptions
+}
 
-    let v_max = design.tube.max_supply.get::<volt>();
+/// The small-signal gain against the supply voltage, from 0.6 of the set supply to the tube's
+/// maximum (41 points).
+fn gain_curve(network: &Network, vs: f64, v_max: f64) -> Vec<(f64, f64)> {
     let v_lo = 0.6 * vs;
-    let gain_curve = (0..=40)
+    (0..=40)
         .map(|i| {
             let v = v_lo + (v_max - v_lo) * f64::from(i) / 40.0;
             let mut net = network.clone();
@@ -563,74 +696,5 @@ pub fn analyse_with(
             (v, net.small_signal_gain())
         })
         .filter(|(_, g)| g.is_finite() && *g > 0.0)
-        .collect();
-    let signal = crate::budget::signal::budget(
-        design,
-        &crate::budget::signal::Chain {
-            gain: op.gain(),
-            collection: t.collection,
-            excess_noise: t.excess_noise_factor(&tube_gaps),
-            divider_amps: quiescent_amps,
-            max_anode_amps: max_ia,
-            first_stage_gain: t.deltas(&tube_gaps).next().unwrap_or(1.0),
-        },
-    );
-    if let Some(s) = &signal {
-        warnings.extend(s.warnings.iter().cloned());
-        assumptions.extend(s.assumptions.iter().cloned());
-    }
-
-    let train = match train {
-        None => None,
-        Some(opts) => match crate::budget::pulsetrain::analyse(design, &network.tube, &opts) {
-            Ok(t) => t,
-            Err(e) => {
-                warnings.push(warning!(
-                    Code::TrainSolveFailed,
-                    "The pulse-train solve failed, so the train section is missing: {e}"
-                ));
-                None
-            }
-        },
-    };
-    if let Some(t) = &train {
-        warnings.extend(t.warnings.iter().cloned());
-    }
-    let supply_model = design.multiplier.as_ref().and_then(|m| {
-        let stability = design.supply_quality.and_then(|q| q.gain_stability);
-        match crate::solve::multiplier::assess(m, vs, op.supply_amps(), sensitivity, stability) {
-            Ok(sm) => Some(sm),
-            Err(e) => {
-                warnings.push(warning!(Code::MultiplierSolveFailed,
-                    "The supply's multiplier could not be solved, so the supply-model section is missing: {e}."
-                ));
-                None
-            }
-        }
-    });
-    if let Some(sm) = &supply_model {
-        supply_model_warnings(design, sm, &mut warnings);
-    }
-    let active_stages = crate::budget::active::assess(design, &network, &op);
-    if let Some(act) = &active_stages {
-        warnings.extend(crate::budget::active::warnings(act));
-    }
-    Ok(Analysis {
-        active_stages,
-        supply_model,
-        gain_curve,
-        train,
-        design: design.clone(),
-        network,
-        quiescent_amps,
-        small_signal_gain,
-        sensitivity,
-        op,
-        gaps,
-        linearity,
-        safety,
-        warnings,
-        assumptions,
-        signal,
-    })
+        .collect()
 }
