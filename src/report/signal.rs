@@ -231,81 +231,7 @@ pub fn render_text(out: &mut String, a: &Analysis) {
     };
     let d = &a.design;
     let l = d.signal.light.as_ref();
-    let _ = writeln!(out, "SIGNAL BUDGET (light → photoelectrons → charge)");
-    wrap(out, "  light                 ", &s.light);
-    if let Some(l) = l {
-        let _ = writeln!(
-            out,
-            "  optical path          coupling {:.1} %{}{}",
-            l.coupling * 100.0,
-            if l.filter.is_some() {
-                ", filter table applied"
-            } else {
-                ""
-            },
-            l.rate
-                .map_or_else(String::new, |r| format!("; rate {}", eng(r, "Hz")))
-        );
-    }
-    wrap(out, "  cathode               ", &s.cathode);
-    wrap(
-        out,
-        "                        ",
-        &format!("({})", d.signal.cathode.provenance),
-    );
-    let _ = writeln!(
-        out,
-        "  photons at the cathode {} per pulse, photon-weighted QE {:.2} %",
-        sci(s.photons_at_cathode),
-        s.mean_qe * 100.0
-    );
-    let _ = writeln!(
-        out,
-        "  photoelectrons at D1  {} per pulse (collection {:.0} %); P(≥ 1 pe) = {:.2} %",
-        sci(s.photoelectrons),
-        a.network.tube.collection * 100.0,
-        s.p_at_least_one * 100.0
-    );
-    let _ = writeln!(
-        out,
-        "  dynode multiplication {:.3e} (gain {:.3e} at the operating point)",
-        s.multiplication,
-        a.gain()
-    );
-    let _ = writeln!(
-        out,
-        "  charge per pulse      {}; peak anode current {}",
-        eng(s.charge, "C"),
-        eng(s.peak_anode_amps, "A")
-    );
-    let _ = writeln!(
-        out,
-        "  one photoelectron     {} at the anode, {} peak at the load",
-        eng(s.single_pe_charge, "C"),
-        eng(s.single_pe_volts, "V")
-    );
-    let _ = writeln!(
-        out,
-        "  charge spread         ±{:.2} % rms pulse to pulse (√(F/N), F = {:.3} from the stage gains; the heights spread as much where the pulse shape does not vary)",
-        s.amplitude_spread * 100.0,
-        s.excess_noise
-    );
-    if let Some(e) = s.energy_resolution {
-        let _ = writeln!(
-            out,
-            "  energy resolution     {:.1} % FWHM ({})",
-            e.total * 100.0,
-            match e.intrinsic {
-                Some(i) => format!(
-                    "statistical 2.355·√(F/N) = {:.1} % with the scintillator's own {:.1} % in quadrature",
-                    e.statistical * 100.0,
-                    i * 100.0
-                ),
-                None => "statistical term 2.355·√(F/N) alone; give light.source.resolution for the scintillator's own".to_string(),
-            }
-        );
-    }
-    let _ = writeln!(out);
+    charge_text(out, a, s);
 
     let c = &s.circuit;
     let _ = writeln!(
@@ -416,72 +342,7 @@ pub fn render_text(out: &mut String, a: &Analysis) {
     }
 
     if let Some(t) = &s.timing {
-        let _ = writeln!(
-            out,
-            "TIMING (leading edge at a {} threshold)",
-            eng(t.threshold, "V")
-        );
-        let _ = writeln!(
-            out,
-            "  noise jitter        {} (baseline noise / slope at the threshold)",
-            match (t.noise_jitter, s.readable.is_some()) {
-                (Some(j), _) => eng(j, "s"),
-                (None, true) => "— (the mean pulse does not reach the threshold)".to_string(),
-                (None, false) => "— (needs a readout)".to_string(),
-            }
-        );
-        if t.from_monte_carlo {
-            wrap(
-                out,
-                "  photon statistics   ",
-                &format!(
-                    "{} (Monte Carlo of photoelectron arrivals, charges and the tube's response through this load, {} trials; the centroid estimate √(σ_TTS² + σ_light²)/√N would say {})",
-                    eng(t.photon_jitter, "s"),
-                    crate::budget::timing::TRIALS,
-                    eng(t.centroid_jitter, "s")
-                ),
-            );
-        } else {
-            let _ = writeln!(
-                out,
-                "  photon statistics   {} (estimate: √(σ_TTS² + σ_light²) / √N_pe)",
-                eng(t.photon_jitter, "s")
-            );
-        }
-        if let Some(j) = t.total_jitter {
-            let _ = writeln!(out, "  total               {} rms", eng(j, "s"));
-        }
-        if let Some(j) = t.cfd_jitter {
-            let _ = writeln!(
-                out,
-                "  constant fraction   {} rms at {:.0} % of each pulse's own peak (removes amplitude walk to first order)",
-                eng(j, "s"),
-                crate::budget::signal::CFD_FRACTION * 100.0
-            );
-        }
-        let _ = writeln!(
-            out,
-            "  amplitude walk      {} between pulses of {} and {} (mean ± 2σ)",
-            t.walk.map_or_else(
-                || "—: the smallest pulse stays below the threshold".to_string(),
-                |w| eng(w, "s")
-            ),
-            eng(t.walk_range.0, "V"),
-            eng(t.walk_range.1, "V")
-        );
-        if let (Some(le), Some(cf)) = (t.walk_leading_edge_mc, t.walk_constant_fraction_mc) {
-            wrap(
-                out,
-                "  walk, both ways     ",
-                &format!(
-                    "leading edge {}, constant fraction {} over the same range (Monte Carlo: least-squares slope of each trial's time against its own peak)",
-                    eng(le, "s"),
-                    eng(cf, "s")
-                ),
-            );
-        }
-        bench_text(out, &t.bench);
-        let _ = writeln!(out);
+        timing_text(out, t, s.readable.is_some());
     }
 
     if let Some(c) = &s.counting {
@@ -524,67 +385,10 @@ pub fn render_text(out: &mut String, a: &Analysis) {
     }
 
     if let Some(pd) = &s.photodiode {
-        let _ = writeln!(
-            out,
-            "PHOTODIODE ALTERNATIVE (silicon PIN, curve from memory; {} diode + input, amplifier {:.0} nV/√Hz assumed)",
-            eng(crate::budget::signal::PHOTODIODE_CAPACITANCE, "F"),
-            crate::budget::signal::AMPLIFIER_NOISE * 1e9
-        );
-        let _ = writeln!(
-            out,
-            "  responsivity {:.3} A/W; charge {} ({} electrons); peak photocurrent {}",
-            pd.responsivity,
-            eng(pd.charge, "C"),
-            sci(pd.charge / crate::model::constants::ELEMENTARY_CHARGE),
-            eng(pd.peak_amps, "A")
-        );
-        let _ = writeln!(
-            out,
-            "  same amplitude: feedback {}; same rise: {} bandwidth, gain-bandwidth {}; noise {} rms",
-            eng(pd.feedback, "Ω"),
-            eng(pd.bandwidth, "Hz"),
-            eng(pd.gbw, "Hz"),
-            eng(pd.noise, "V")
-        );
-        wrap(out, "  ", &pd.sentence);
-        let _ = writeln!(out);
+        photodiode_text(out, pd);
     }
 
-    let sw = &s.sweep;
-    let _ = writeln!(
-        out,
-        "LOAD SWEEP ({} loads, 50 Ω to 1 MΩ; the pulse computed at each)",
-        sw.rows.len()
-    );
-    if let Some(n) = &sw.note {
-        wrap(out, "  note: ", n);
-    }
-    let _ = writeln!(
-        out,
-        "  {:>9} {:>10} {:>10} {:>10} {:>10} {:>8} {:>6}  verdict",
-        "load", "peak", "rise", "displayed", "FWHM", "S/N", "echo"
-    );
-    for r in &sw.rows {
-        let _ = writeln!(
-            out,
-            "  {:>9} {:>10} {:>10} {:>10} {:>10} {:>8} {:>6}  {}{}",
-            eng(r.load, "Ω"),
-            eng(r.pulse.peak, "V"),
-            r.pulse.rise.map_or("—".to_string(), |x| eng(x, "s")),
-            r.displayed_rise.map_or("—".to_string(), |x| eng(x, "s")),
-            r.pulse.fwhm.map_or("—".to_string(), |x| eng(x, "s")),
-            r.snr.map_or("—".to_string(), |x| sci(x.min(99999.0))),
-            r.echo
-                .map_or("—".to_string(), |x| format!("{:+.0}%", x * 100.0 + 0.0)),
-            r.verdict.map_or("—", Verdict::as_str),
-            match r.meets_rise {
-                Some(false) => " (too slow)",
-                _ => "",
-            }
-        );
-    }
-    wrap(out, "  window: ", &sw.sentence);
-    let _ = writeln!(out);
+    load_sweep_text(out, &s.sweep);
 }
 
 fn pulse_json(p: &PulseFigures) -> Value {
@@ -819,4 +623,222 @@ fn counting_json(c: &crate::budget::counting::PhotonCounting) -> Value {
         "spectrum": { "x": x, "density": density },
         "notes": c.notes,
     })
+}
+
+/// The timing section: jitter, walk and the timing bench.
+fn timing_text(out: &mut String, t: &crate::budget::signal::Timing, readable: bool) {
+    let _ = writeln!(
+        out,
+        "TIMING (leading edge at a {} threshold)",
+        eng(t.threshold, "V")
+    );
+    let _ = writeln!(
+        out,
+        "  noise jitter        {} (baseline noise / slope at the threshold)",
+        match (t.noise_jitter, readable) {
+            (Some(j), _) => eng(j, "s"),
+            (None, true) => "— (the mean pulse does not reach the threshold)".to_string(),
+            (None, false) => "— (needs a readout)".to_string(),
+        }
+    );
+    if t.from_monte_carlo {
+        wrap(
+            out,
+            "  photon statistics   ",
+            &format!(
+                "{} (Monte Carlo of photoelectron arrivals, charges and the tube's response through this load, {} trials; the centroid estimate √(σ_TTS² + σ_light²)/√N would say {})",
+                eng(t.photon_jitter, "s"),
+                crate::budget::timing::TRIALS,
+                eng(t.centroid_jitter, "s")
+            ),
+        );
+    } else {
+        let _ = writeln!(
+            out,
+            "  photon statistics   {} (estimate: √(σ_TTS² + σ_light²) / √N_pe)",
+            eng(t.photon_jitter, "s")
+        );
+    }
+    if let Some(j) = t.total_jitter {
+        let _ = writeln!(out, "  total               {} rms", eng(j, "s"));
+    }
+    if let Some(j) = t.cfd_jitter {
+        let _ = writeln!(
+            out,
+            "  constant fraction   {} rms at {:.0} % of each pulse's own peak (removes amplitude walk to first order)",
+            eng(j, "s"),
+            crate::budget::signal::CFD_FRACTION * 100.0
+        );
+    }
+    let _ = writeln!(
+        out,
+        "  amplitude walk      {} between pulses of {} and {} (mean ± 2σ)",
+        t.walk.map_or_else(
+            || "—: the smallest pulse stays below the threshold".to_string(),
+            |w| eng(w, "s")
+        ),
+        eng(t.walk_range.0, "V"),
+        eng(t.walk_range.1, "V")
+    );
+    if let (Some(le), Some(cf)) = (t.walk_leading_edge_mc, t.walk_constant_fraction_mc) {
+        wrap(
+            out,
+            "  walk, both ways     ",
+            &format!(
+                "leading edge {}, constant fraction {} over the same range (Monte Carlo: least-squares slope of each trial's time against its own peak)",
+                eng(le, "s"),
+                eng(cf, "s")
+            ),
+        );
+    }
+    bench_text(out, &t.bench);
+    let _ = writeln!(out);
+}
+
+/// The photodiode alternative.
+fn photodiode_text(out: &mut String, pd: &crate::budget::signal::Photodiode) {
+    let _ = writeln!(
+        out,
+        "PHOTODIODE ALTERNATIVE (silicon PIN, curve from memory; {} diode + input, amplifier {:.0} nV/√Hz assumed)",
+        eng(crate::budget::signal::PHOTODIODE_CAPACITANCE, "F"),
+        crate::budget::signal::AMPLIFIER_NOISE * 1e9
+    );
+    let _ = writeln!(
+        out,
+        "  responsivity {:.3} A/W; charge {} ({} electrons); peak photocurrent {}",
+        pd.responsivity,
+        eng(pd.charge, "C"),
+        sci(pd.charge / crate::model::constants::ELEMENTARY_CHARGE),
+        eng(pd.peak_amps, "A")
+    );
+    let _ = writeln!(
+        out,
+        "  same amplitude: feedback {}; same rise: {} bandwidth, gain-bandwidth {}; noise {} rms",
+        eng(pd.feedback, "Ω"),
+        eng(pd.bandwidth, "Hz"),
+        eng(pd.gbw, "Hz"),
+        eng(pd.noise, "V")
+    );
+    wrap(out, "  ", &pd.sentence);
+    let _ = writeln!(out);
+}
+
+/// The load sweep: the pulse computed at each load from 50 Ω to 1 MΩ.
+fn load_sweep_text(out: &mut String, sw: &crate::budget::signal::LoadSweep) {
+    let _ = writeln!(
+        out,
+        "LOAD SWEEP ({} loads, 50 Ω to 1 MΩ; the pulse computed at each)",
+        sw.rows.len()
+    );
+    if let Some(n) = &sw.note {
+        wrap(out, "  note: ", n);
+    }
+    let _ = writeln!(
+        out,
+        "  {:>9} {:>10} {:>10} {:>10} {:>10} {:>8} {:>6}  verdict",
+        "load", "peak", "rise", "displayed", "FWHM", "S/N", "echo"
+    );
+    for r in &sw.rows {
+        let _ = writeln!(
+            out,
+            "  {:>9} {:>10} {:>10} {:>10} {:>10} {:>8} {:>6}  {}{}",
+            eng(r.load, "Ω"),
+            eng(r.pulse.peak, "V"),
+            r.pulse.rise.map_or("—".to_string(), |x| eng(x, "s")),
+            r.displayed_rise.map_or("—".to_string(), |x| eng(x, "s")),
+            r.pulse.fwhm.map_or("—".to_string(), |x| eng(x, "s")),
+            r.snr.map_or("—".to_string(), |x| sci(x.min(99999.0))),
+            r.echo
+                .map_or("—".to_string(), |x| format!("{:+.0}%", x * 100.0 + 0.0)),
+            r.verdict.map_or("—", Verdict::as_str),
+            match r.meets_rise {
+                Some(false) => " (too slow)",
+                _ => "",
+            }
+        );
+    }
+    wrap(out, "  window: ", &sw.sentence);
+    let _ = writeln!(out);
+}
+
+/// Light to charge: the optical path, photoelectrons, the charge and its spread, energy
+/// resolution.
+fn charge_text(out: &mut String, a: &Analysis, s: &crate::budget::signal::SignalBudget) {
+    let d = &a.design;
+    let l = d.signal.light.as_ref();
+    let _ = writeln!(out, "SIGNAL BUDGET (light → photoelectrons → charge)");
+    wrap(out, "  light                 ", &s.light);
+    if let Some(l) = l {
+        let _ = writeln!(
+            out,
+            "  optical path          coupling {:.1} %{}{}",
+            l.coupling * 100.0,
+            if l.filter.is_some() {
+                ", filter table applied"
+            } else {
+                ""
+            },
+            l.rate
+                .map_or_else(String::new, |r| format!("; rate {}", eng(r, "Hz")))
+        );
+    }
+    wrap(out, "  cathode               ", &s.cathode);
+    wrap(
+        out,
+        "                        ",
+        &format!("({})", d.signal.cathode.provenance),
+    );
+    let _ = writeln!(
+        out,
+        "  photons at the cathode {} per pulse, photon-weighted QE {:.2} %",
+        sci(s.photons_at_cathode),
+        s.mean_qe * 100.0
+    );
+    let _ = writeln!(
+        out,
+        "  photoelectrons at D1  {} per pulse (collection {:.0} %); P(≥ 1 pe) = {:.2} %",
+        sci(s.photoelectrons),
+        a.network.tube.collection * 100.0,
+        s.p_at_least_one * 100.0
+    );
+    let _ = writeln!(
+        out,
+        "  dynode multiplication {:.3e} (gain {:.3e} at the operating point)",
+        s.multiplication,
+        a.gain()
+    );
+    let _ = writeln!(
+        out,
+        "  charge per pulse      {}; peak anode current {}",
+        eng(s.charge, "C"),
+        eng(s.peak_anode_amps, "A")
+    );
+    let _ = writeln!(
+        out,
+        "  one photoelectron     {} at the anode, {} peak at the load",
+        eng(s.single_pe_charge, "C"),
+        eng(s.single_pe_volts, "V")
+    );
+    let _ = writeln!(
+        out,
+        "  charge spread         ±{:.2} % rms pulse to pulse (√(F/N), F = {:.3} from the stage gains; the heights spread as much where the pulse shape does not vary)",
+        s.amplitude_spread * 100.0,
+        s.excess_noise
+    );
+    if let Some(e) = s.energy_resolution {
+        let _ = writeln!(
+            out,
+            "  energy resolution     {:.1} % FWHM ({})",
+            e.total * 100.0,
+            match e.intrinsic {
+                Some(i) => format!(
+                    "statistical 2.355·√(F/N) = {:.1} % with the scintillator's own {:.1} % in quadrature",
+                    e.statistical * 100.0,
+                    i * 100.0
+                ),
+                None => "statistical term 2.355·√(F/N) alone; give light.source.resolution for the scintillator's own".to_string(),
+            }
+        );
+    }
+    let _ = writeln!(out);
 }

@@ -187,141 +187,13 @@ fn section(out: &mut String, t: &TrainAnalysis) {
         }
     }
     if let Some(pl) = &t.pulse_linearity {
-        let _ = writeln!(
-            out,
-            "  pulse linearity (single pulses of this shape, divider as built):"
-        );
-        let _ = writeln!(
-            out,
-            "    1 % deviation at a peak anode current of {}{}",
-            opt_amps(pl.pct1_amps),
-            if pl.pct1_amps.is_some() {
-                format!(" ({})", sign_word(pl.pct1_sign))
-            } else {
-                String::new()
-            }
-        );
-        let _ = writeln!(
-            out,
-            "    5 % deviation at a peak anode current of {}{}",
-            opt_amps(pl.pct5_amps),
-            if pl.pct5_amps.is_some() {
-                format!(" ({})", sign_word(pl.pct5_sign))
-            } else {
-                String::new()
-            }
-        );
-        let _ = writeln!(
-            out,
-            "    one pulse of this train alone deviates {:+.3} %",
-            pl.train_pulse_deviation * 100.0
-        );
+        pulse_linearity_text(out, pl);
     }
     if let Some(s) = &t.sizing {
-        wrap(
-            out,
-            "  ",
-            &format!(
-                "capacitors for at most {:.1} % droop of each decoupled gap from the pulses themselves ({}; the DC shift at the average current is the divider's and no capacitor removes it; IEC 60063 E12):",
-                s.allowed * 100.0,
-                sizing_basis(t, s)
-            ),
-        );
-        let _ = writeln!(
-            out,
-            "    {:<28} {:>9} {:>9} {:>9} {:>10} {:>9} {:>9}",
-            "place", "fitted", "needed", "fit this", "rating", "holds", "energy"
-        );
-        for c in &s.caps {
-            let _ = writeln!(
-                out,
-                "    {:<28} {:>9} {:>9} {:>9} {:>10} {:>9} {:>9}",
-                c.label,
-                eng(c.fitted_farads, "F"),
-                eng(c.needed_farads, "F"),
-                eng(c.preferred_farads, "F"),
-                format!("≥ {}", eng(c.rating_volts, "V")),
-                eng(c.holds_volts, "V"),
-                eng(c.joules, "J")
-            );
-        }
-        wrap(
-            out,
-            "    ",
-            &format!(
-                "Ratings: {}× the voltage each capacitor holds (common practice), rounded up to a common rating. The recommended capacitors store {} in all ({} {} than the fitted ones); quoted limits {} mJ and {} µC (IEC 61010-1, from memory).{}",
-                crate::model::eseries::CAPACITOR_RATING_MARGIN,
-                eng(s.total_joules, "J"),
-                eng(s.added_joules.abs(), "J"),
-                if s.added_joules >= 0.0 {
-                    "more"
-                } else {
-                    "less"
-                },
-                ENERGY_LIMIT_JOULES * 1e3,
-                CHARGE_LIMIT_COULOMBS * 1e6,
-                if s.verified {
-                    ""
-                } else {
-                    " The check run with these values still exceeds the allowed droop: a larger value or more capacitors are needed."
-                }
-            ),
-        );
+        sizing_text(out, t, s);
     }
     if let Some(tp) = &t.taper {
-        let factors: Vec<String> = tp.factors.iter().map(|f| format!("{f}×")).collect();
-        let _ = writeln!(
-            out,
-            "  taper: the last {} gap resistor(s) raised {}{}, same supply:",
-            tp.factors.len(),
-            factors.join(", "),
-            if tp.assumed {
-                " (the tool's default; set train.taper)"
-            } else {
-                ""
-            }
-        );
-        let _ = writeln!(out, "    {:<34} {:>13} {:>13}", "", "as built", "tapered");
-        let _ = writeln!(
-            out,
-            "    {:<34} {:>13.4e} {:>13.4e}  ({:+.1} %)",
-            "small-signal gain",
-            tp.gain.0,
-            tp.gain.1,
-            (tp.gain.1 / tp.gain.0 - 1.0) * 100.0
-        );
-        let _ = writeln!(
-            out,
-            "    {:<34} {:>13} {:>13}",
-            "last gap before the train",
-            eng(tp.last_gap_volts.0, "V"),
-            eng(tp.last_gap_volts.1, "V")
-        );
-        let _ = writeln!(
-            out,
-            "    {:<34} {:>13} {:>13}",
-            "1 % pulse-linearity limit",
-            opt_amps(tp.pct1_amps.0),
-            opt_amps(tp.pct1_amps.1)
-        );
-        let _ = writeln!(
-            out,
-            "    {:<34} {:>13} {:>13}",
-            "5 % pulse-linearity limit",
-            opt_amps(tp.pct5_amps.0),
-            opt_amps(tp.pct5_amps.1)
-        );
-        let _ = writeln!(
-            out,
-            "    {:<34} {:>11.3} % {:>11.3} %",
-            if tp.pulses_compared < t.count {
-                "lowest pulse gain / first (200 p.)"
-            } else {
-                "lowest pulse gain / first"
-            },
-            tp.worst_gain_ratio.0 * 100.0,
-            tp.worst_gain_ratio.1 * 100.0
-        );
+        taper_text(out, t, tp);
     }
     wrap(
         out,
@@ -582,4 +454,147 @@ pub fn render(
             }
         }
     })
+}
+
+/// Pulse linearity: single pulses of the train's shape on the divider as built.
+fn pulse_linearity_text(out: &mut String, pl: &pulsetrain::PulseLinearity) {
+    let _ = writeln!(
+        out,
+        "  pulse linearity (single pulses of this shape, divider as built):"
+    );
+    let _ = writeln!(
+        out,
+        "    1 % deviation at a peak anode current of {}{}",
+        opt_amps(pl.pct1_amps),
+        if pl.pct1_amps.is_some() {
+            format!(" ({})", sign_word(pl.pct1_sign))
+        } else {
+            String::new()
+        }
+    );
+    let _ = writeln!(
+        out,
+        "    5 % deviation at a peak anode current of {}{}",
+        opt_amps(pl.pct5_amps),
+        if pl.pct5_amps.is_some() {
+            format!(" ({})", sign_word(pl.pct5_sign))
+        } else {
+            String::new()
+        }
+    );
+    let _ = writeln!(
+        out,
+        "    one pulse of this train alone deviates {:+.3} %",
+        pl.train_pulse_deviation * 100.0
+    );
+}
+
+/// Capacitors sized for the allowed droop.
+fn sizing_text(out: &mut String, t: &TrainAnalysis, s: &pulsetrain::Sizing) {
+    wrap(
+        out,
+        "  ",
+        &format!(
+            "capacitors for at most {:.1} % droop of each decoupled gap from the pulses themselves ({}; the DC shift at the average current is the divider's and no capacitor removes it; IEC 60063 E12):",
+            s.allowed * 100.0,
+            sizing_basis(t, s)
+        ),
+    );
+    let _ = writeln!(
+        out,
+        "    {:<28} {:>9} {:>9} {:>9} {:>10} {:>9} {:>9}",
+        "place", "fitted", "needed", "fit this", "rating", "holds", "energy"
+    );
+    for c in &s.caps {
+        let _ = writeln!(
+            out,
+            "    {:<28} {:>9} {:>9} {:>9} {:>10} {:>9} {:>9}",
+            c.label,
+            eng(c.fitted_farads, "F"),
+            eng(c.needed_farads, "F"),
+            eng(c.preferred_farads, "F"),
+            format!("≥ {}", eng(c.rating_volts, "V")),
+            eng(c.holds_volts, "V"),
+            eng(c.joules, "J")
+        );
+    }
+    wrap(
+        out,
+        "    ",
+        &format!(
+            "Ratings: {}× the voltage each capacitor holds (common practice), rounded up to a common rating. The recommended capacitors store {} in all ({} {} than the fitted ones); quoted limits {} mJ and {} µC (IEC 61010-1, from memory).{}",
+            crate::model::eseries::CAPACITOR_RATING_MARGIN,
+            eng(s.total_joules, "J"),
+            eng(s.added_joules.abs(), "J"),
+            if s.added_joules >= 0.0 {
+                "more"
+            } else {
+                "less"
+            },
+            ENERGY_LIMIT_JOULES * 1e3,
+            CHARGE_LIMIT_COULOMBS * 1e6,
+            if s.verified {
+                ""
+            } else {
+                " The check run with these values still exceeds the allowed droop: a larger value or more capacitors are needed."
+            }
+        ),
+    );
+}
+
+/// The tapered divider compared with the one built.
+fn taper_text(out: &mut String, t: &TrainAnalysis, tp: &pulsetrain::TaperComparison) {
+    let factors: Vec<String> = tp.factors.iter().map(|f| format!("{f}×")).collect();
+    let _ = writeln!(
+        out,
+        "  taper: the last {} gap resistor(s) raised {}{}, same supply:",
+        tp.factors.len(),
+        factors.join(", "),
+        if tp.assumed {
+            " (the tool's default; set train.taper)"
+        } else {
+            ""
+        }
+    );
+    let _ = writeln!(out, "    {:<34} {:>13} {:>13}", "", "as built", "tapered");
+    let _ = writeln!(
+        out,
+        "    {:<34} {:>13.4e} {:>13.4e}  ({:+.1} %)",
+        "small-signal gain",
+        tp.gain.0,
+        tp.gain.1,
+        (tp.gain.1 / tp.gain.0 - 1.0) * 100.0
+    );
+    let _ = writeln!(
+        out,
+        "    {:<34} {:>13} {:>13}",
+        "last gap before the train",
+        eng(tp.last_gap_volts.0, "V"),
+        eng(tp.last_gap_volts.1, "V")
+    );
+    let _ = writeln!(
+        out,
+        "    {:<34} {:>13} {:>13}",
+        "1 % pulse-linearity limit",
+        opt_amps(tp.pct1_amps.0),
+        opt_amps(tp.pct1_amps.1)
+    );
+    let _ = writeln!(
+        out,
+        "    {:<34} {:>13} {:>13}",
+        "5 % pulse-linearity limit",
+        opt_amps(tp.pct5_amps.0),
+        opt_amps(tp.pct5_amps.1)
+    );
+    let _ = writeln!(
+        out,
+        "    {:<34} {:>11.3} % {:>11.3} %",
+        if tp.pulses_compared < t.count {
+            "lowest pulse gain / first (200 p.)"
+        } else {
+            "lowest pulse gain / first"
+        },
+        tp.worst_gain_ratio.0 * 100.0,
+        tp.worst_gain_ratio.1 * 100.0
+    );
 }
