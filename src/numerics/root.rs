@@ -21,9 +21,9 @@ pub struct Found<T> {
 /// Search `[a, b]` for a root of `f`, with `f(a) < 0 ≤ f(b)` given as `fa`, `fb` (their
 /// payloads `ta`, `tb`). `f` returns the value and a payload, or `None` when it cannot be
 /// evaluated there (the search stops with what it has). Stops when |f| < `f_tol`, when the
-/// bracket is narrower than `x_tol`, or after `max_evals` evaluations. `f` also learns, through
-/// its argument order, nothing else: a caller that warm-starts from the last point short of the
-/// root keeps that point itself (it is the last evaluation with f < 0).
+/// bracket is narrower than `x_tol`, or after `max_evals` evaluations. A caller that starts
+/// each evaluation from the last point short of the root keeps that point itself: it is the
+/// last evaluation that returned f < 0.
 #[allow(clippy::too_many_arguments)]
 pub fn illinois<T: Clone>(
     mut f: impl FnMut(f64) -> Option<(f64, T)>,
