@@ -72,7 +72,6 @@ fn opt_amps(x: Option<f64>) -> String {
 pub fn render(a: &Analysis) -> String {
     let mut out = String::new();
     let d = &a.design;
-    let t = &a.network.tube;
     caution_block(&mut out, a);
     let _ = writeln!(out);
     let _ = writeln!(out, "dynode report: {}", d.name);
@@ -81,274 +80,18 @@ pub fn render(a: &Analysis) -> String {
         wrap(&mut out, "notes:         ", notes);
     }
     let _ = writeln!(out);
-    let _ = writeln!(out, "DESIGN");
-    let law = match &d.tube.gain {
-        GainSpec::Reference { volts, gain, .. } => format!(
-            "calibrated on gain {gain:.3e} at {} under the reference ratio",
-            eng(volts.get::<volt>(), "V")
-        ),
-        GainSpec::Table(p) => format!(
-            "fitted to {} (voltage, gain) points, RMS residual {:.1} % in gain",
-            p.len(),
-            t.fit_rms.unwrap_or(0.0) * 100.0
-        ),
-    };
-    let _ = writeln!(
-        out,
-        "  tube        {} dynodes; delta = a·V_acc^(k(1−s))·V_coll^(k·s) with a = {:.4}, k = {:.3}, s = {:.0} %; collection {:.0} %",
-        t.stages,
-        t.a,
-        t.k,
-        t.share * 100.0,
-        t.collection * 100.0
-    );
-    let _ = writeln!(out, "              {law}");
-    let _ = writeln!(
-        out,
-        "  limits      supply {}, gap {}, average anode current {}",
-        eng(d.tube.max_supply.get::<volt>(), "V"),
-        d.tube
-            .max_gap
-            .map_or_else(|| "not rated".to_string(), |v| eng(v.get::<volt>(), "V")),
-        eng(d.tube.max_anode_current.get::<ampere>(), "A")
-    );
-    let _ = writeln!(
-        out,
-        "  supply      {} ({}), current limit {}",
-        eng(d.supply_volts.get::<volt>(), "V"),
-        match d.polarity {
-            Polarity::CathodeNegative => "cathode negative, anode near ground",
-            Polarity::AnodePositive => "cathode grounded, anode positive",
-        },
-        d.current_limit
-            .map_or_else(|| "not given".to_string(), |i| eng(i.get::<ampere>(), "A"))
-    );
-    let total_r: f64 = a
-        .gaps
-        .iter()
-        .map(|g| g.quiescent_volts / a.quiescent_amps)
-        .sum();
-    let _ = writeln!(
-        out,
-        "  divider     {} gaps, {} total; {} decoupling capacitor(s); stray {} per gap",
-        a.gaps.len(),
-        eng(total_r, "Ω"),
-        d.decoupling.len(),
-        eng(d.stray.get::<uom::si::capacitance::farad>(), "F")
-    );
-    let _ = writeln!(out, "  signal path {}", crate::budget::signal::path_line(d));
-    let _ = writeln!(
-        out,
-        "  operating   average anode current {}",
-        eng(a.op.anode_amps(), "A")
-    );
-    let _ = writeln!(out);
+    design_text(&mut out, a);
 
-    let _ = writeln!(
-        out,
-        "GAPS at {} average anode current (no-current values in brackets)",
-        eng(a.op.anode_amps(), "A")
-    );
-    let _ = writeln!(
-        out,
-        "  {:>2}  {:<8} {:<20} {:>9} {:>11} {:>7} {:>9} {:>19} {:>17} {:>6}",
-        "#",
-        "gap",
-        "element",
-        "volts",
-        "(no curr.)",
-        "share",
-        "current",
-        "power / rating",
-        "volts / rated",
-        "delta"
-    );
-    for g in &a.gaps {
-        let power = match g.power_rating {
-            Some(p) => format!("{} / {}", eng(g.watts, "W"), eng(p, "W")),
-            None => eng(g.watts, "W"),
-        };
-        let volts = match g.rated_volts {
-            Some(u) => format!("{} / {}", eng(g.volts, "V"), eng(u, "V")),
-            None => "Zener".to_string(),
-        };
-        let mut flags = String::new();
-        if g.over_power {
-            flags.push_str(" POWER!");
-        }
-        if g.over_voltage {
-            flags.push_str(" VOLTS!");
-        }
-        if g.over_gap_limit {
-            flags.push_str(" GAP-LIMIT!");
-        }
-        let _ = writeln!(
-            out,
-            "  {:>2}  {:<8} {:<20} {:>9} {:>11} {:>7} {:>9} {:>19} {:>17} {:>6}{}",
-            g.number,
-            g.label,
-            g.element,
-            eng(g.volts, "V"),
-            format!("({})", eng(g.quiescent_volts, "V")),
-            pct(g.share),
-            eng(g.amps, "A"),
-            power,
-            volts,
-            g.delta
-                .map_or_else(|| "—".to_string(), |x| format!("{x:.2}")),
-            flags
-        );
-    }
-    let _ = writeln!(
-        out,
-        "  The last gap's resistor sets the D{}–anode voltage; that gap collects and does not multiply.",
-        d.tube.stages
-    );
-    let _ = writeln!(out);
+    gaps_text(&mut out, a);
 
-    let _ = writeln!(out, "DIVIDER AND SUPPLY");
-    let ia = a.op.anode_amps();
-    let _ = writeln!(
-        out,
-        "  divider current with no tube current   {}  ({:.0}× the operating anode current)",
-        eng(a.quiescent_amps, "A"),
-        a.quiescent_amps / ia
-    );
-    let _ = writeln!(
-        out,
-        "  supply current at the operating point  {}",
-        eng(a.op.supply_amps(), "A")
-    );
-    let _ = writeln!(
-        out,
-        "  base dissipation                       {}",
-        eng(a.dissipation(), "W")
-    );
-    let _ = writeln!(out);
-
-    let _ = writeln!(out, "GAIN");
-    let dev = a.gain() / a.small_signal_gain - 1.0;
-    let _ = writeln!(
-        out,
-        "  small-signal gain                      {:.4e}",
-        a.small_signal_gain
-    );
-    let _ = writeln!(
-        out,
-        "  gain at the operating point            {:.4e}  ({:+.3} %)",
-        a.gain(),
-        dev * 100.0
-    );
-    let _ = writeln!(
-        out,
-        "  cathode current at the operating point {}",
-        eng(a.op.cathode_amps, "A")
-    );
-    let _ = writeln!(
-        out,
-        "  d ln G / d ln V                        {:.2}  (a 0.1 % supply change moves the gain {:.2} %)",
-        a.sensitivity,
-        a.sensitivity * 0.1
-    );
-    let _ = writeln!(
-        out,
-        "  excess noise factor of the chain       {:.3}",
-        a.network.tube.excess_noise_factor(&a.op.tube_gap_volts())
-    );
-    let _ = writeln!(out);
+    dc_text(&mut out, a);
 
     crate::report::supply::text(&mut out, a);
     crate::report::active::text(&mut out, a);
 
     linearity_text(&mut out, a);
 
-    let s = &a.safety;
-    let _ = writeln!(out, "SAFETY");
-    let _ = writeln!(
-        out,
-        "  {:<34} {:>9} {:>9} {:>10} {:>10} {:>9}",
-        "stored charge", "C", "holds", "charge", "energy", "rating"
-    );
-    for c in &s.capacitors {
-        let _ = writeln!(
-            out,
-            "  {:<34} {:>9} {:>9} {:>10} {:>10} {:>9}",
-            c.label,
-            eng(c.farads, "F"),
-            eng(c.volts, "V"),
-            eng(c.coulombs, "C"),
-            eng(c.joules, "J"),
-            c.rating_volts
-                .map_or_else(|| "—".to_string(), |r| eng(r, "V"))
-        );
-    }
-    if s.capacitors.is_empty() {
-        let _ = writeln!(out, "  (no capacitors named besides the strays)");
-    }
-    let _ = writeln!(
-        out,
-        "  total                               {:>28} {:>10}",
-        eng(s.total_coulombs, "C"),
-        eng(s.total_joules, "J")
-    );
-    let _ = writeln!(
-        out,
-        "  limits quoted: {} µC touchable charge, {} mJ energy (IEC 61010-1 §6.3.1, from memory)",
-        safety::CHARGE_LIMIT_COULOMBS * 1e6,
-        safety::ENERGY_LIMIT_JOULES * 1e3
-    );
-    if s.never_bleeds.is_empty() {
-        let _ = writeln!(
-            out,
-            "  bleed-down to {:.0} V after switch-off: {} (worst case: {}; threshold IEC 60204-1 §6.2.4, from memory)",
-            safety::SAFE_VOLTS,
-            s.bleed_seconds
-                .map_or_else(|| "over an hour".to_string(), |t| eng(t, "s")),
-            s.bleed_case
-        );
-    } else {
-        wrap(
-            &mut out,
-            "  bleed-down         ",
-            &format!(
-                "NEVER through the divider for the {}: nothing discharges it below {:.0} V (fit a bleeder resistor)",
-                s.never_bleeds.join(", the "),
-                safety::SAFE_VOLTS
-            ),
-        );
-    }
-    for v in &s.verdicts {
-        wrap(
-            &mut out,
-            "  judged             ",
-            &format!(
-                "{}: {}, {}: {} {}",
-                v.place,
-                eng(v.coulombs, "C"),
-                eng(v.joules, "J"),
-                if v.over { "OVER," } else { "within," },
-                v.clause
-            ),
-        );
-    }
-    for &(g, w, rating) in &s.zener_power {
-        let _ = writeln!(
-            out,
-            "  Zener on gap {g}: {} of its {} rating{}",
-            eng(w, "W"),
-            eng(rating, "W"),
-            if w > rating { "  OVER" } else { "" }
-        );
-    }
-    if let Some(i) = s.shield_touch_amps {
-        let _ = writeln!(
-            out,
-            "  shield touch current: {} (limit {} DC, IEC 61010-1 §6.3.1, from memory)",
-            eng(i, "A"),
-            eng(safety::TOUCH_CURRENT_DC_AMPS, "A")
-        );
-    }
-    let _ = writeln!(out);
+    safety_text(&mut out, a);
 
     super::train::text(&mut out, a);
     super::signal::render_text(&mut out, a);
@@ -477,6 +220,285 @@ fn linearity_text(out: &mut String, a: &Analysis) {
         if first_past {
             break;
         }
+    }
+    let _ = writeln!(out);
+}
+
+/// The design as read: tube, limits, supply, divider, signal path, operating point.
+fn design_text(out: &mut String, a: &Analysis) {
+    let d = &a.design;
+    let t = &a.network.tube;
+    let _ = writeln!(out, "DESIGN");
+    let law = match &d.tube.gain {
+        GainSpec::Reference { volts, gain, .. } => format!(
+            "calibrated on gain {gain:.3e} at {} under the reference ratio",
+            eng(volts.get::<volt>(), "V")
+        ),
+        GainSpec::Table(p) => format!(
+            "fitted to {} (voltage, gain) points, RMS residual {:.1} % in gain",
+            p.len(),
+            t.fit_rms.unwrap_or(0.0) * 100.0
+        ),
+    };
+    let _ = writeln!(
+        out,
+        "  tube        {} dynodes; delta = a·V_acc^(k(1−s))·V_coll^(k·s) with a = {:.4}, k = {:.3}, s = {:.0} %; collection {:.0} %",
+        t.stages,
+        t.a,
+        t.k,
+        t.share * 100.0,
+        t.collection * 100.0
+    );
+    let _ = writeln!(out, "              {law}");
+    let _ = writeln!(
+        out,
+        "  limits      supply {}, gap {}, average anode current {}",
+        eng(d.tube.max_supply.get::<volt>(), "V"),
+        d.tube
+            .max_gap
+            .map_or_else(|| "not rated".to_string(), |v| eng(v.get::<volt>(), "V")),
+        eng(d.tube.max_anode_current.get::<ampere>(), "A")
+    );
+    let _ = writeln!(
+        out,
+        "  supply      {} ({}), current limit {}",
+        eng(d.supply_volts.get::<volt>(), "V"),
+        match d.polarity {
+            Polarity::CathodeNegative => "cathode negative, anode near ground",
+            Polarity::AnodePositive => "cathode grounded, anode positive",
+        },
+        d.current_limit
+            .map_or_else(|| "not given".to_string(), |i| eng(i.get::<ampere>(), "A"))
+    );
+    let total_r: f64 = a
+        .gaps
+        .iter()
+        .map(|g| g.quiescent_volts / a.quiescent_amps)
+        .sum();
+    let _ = writeln!(
+        out,
+        "  divider     {} gaps, {} total; {} decoupling capacitor(s); stray {} per gap",
+        a.gaps.len(),
+        eng(total_r, "Ω"),
+        d.decoupling.len(),
+        eng(d.stray.get::<uom::si::capacitance::farad>(), "F")
+    );
+    let _ = writeln!(out, "  signal path {}", crate::budget::signal::path_line(d));
+    let _ = writeln!(
+        out,
+        "  operating   average anode current {}",
+        eng(a.op.anode_amps(), "A")
+    );
+    let _ = writeln!(out);
+}
+
+/// The gap table at the operating point.
+fn gaps_text(out: &mut String, a: &Analysis) {
+    let d = &a.design;
+    let _ = writeln!(
+        out,
+        "GAPS at {} average anode current (no-current values in brackets)",
+        eng(a.op.anode_amps(), "A")
+    );
+    let _ = writeln!(
+        out,
+        "  {:>2}  {:<8} {:<20} {:>9} {:>11} {:>7} {:>9} {:>19} {:>17} {:>6}",
+        "#",
+        "gap",
+        "element",
+        "volts",
+        "(no curr.)",
+        "share",
+        "current",
+        "power / rating",
+        "volts / rated",
+        "delta"
+    );
+    for g in &a.gaps {
+        let power = match g.power_rating {
+            Some(p) => format!("{} / {}", eng(g.watts, "W"), eng(p, "W")),
+            None => eng(g.watts, "W"),
+        };
+        let volts = match g.rated_volts {
+            Some(u) => format!("{} / {}", eng(g.volts, "V"), eng(u, "V")),
+            None => "Zener".to_string(),
+        };
+        let mut flags = String::new();
+        if g.over_power {
+            flags.push_str(" POWER!");
+        }
+        if g.over_voltage {
+            flags.push_str(" VOLTS!");
+        }
+        if g.over_gap_limit {
+            flags.push_str(" GAP-LIMIT!");
+        }
+        let _ = writeln!(
+            out,
+            "  {:>2}  {:<8} {:<20} {:>9} {:>11} {:>7} {:>9} {:>19} {:>17} {:>6}{}",
+            g.number,
+            g.label,
+            g.element,
+            eng(g.volts, "V"),
+            format!("({})", eng(g.quiescent_volts, "V")),
+            pct(g.share),
+            eng(g.amps, "A"),
+            power,
+            volts,
+            g.delta
+                .map_or_else(|| "—".to_string(), |x| format!("{x:.2}")),
+            flags
+        );
+    }
+    let _ = writeln!(
+        out,
+        "  The last gap's resistor sets the D{}–anode voltage; that gap collects and does not multiply.",
+        d.tube.stages
+    );
+    let _ = writeln!(out);
+}
+
+/// Divider current, supply current and dissipation; the gain at the operating point.
+fn dc_text(out: &mut String, a: &Analysis) {
+    let _ = writeln!(out, "DIVIDER AND SUPPLY");
+    let ia = a.op.anode_amps();
+    let _ = writeln!(
+        out,
+        "  divider current with no tube current   {}  ({:.0}× the operating anode current)",
+        eng(a.quiescent_amps, "A"),
+        a.quiescent_amps / ia
+    );
+    let _ = writeln!(
+        out,
+        "  supply current at the operating point  {}",
+        eng(a.op.supply_amps(), "A")
+    );
+    let _ = writeln!(
+        out,
+        "  base dissipation                       {}",
+        eng(a.dissipation(), "W")
+    );
+    let _ = writeln!(out);
+
+    let _ = writeln!(out, "GAIN");
+    let dev = a.gain() / a.small_signal_gain - 1.0;
+    let _ = writeln!(
+        out,
+        "  small-signal gain                      {:.4e}",
+        a.small_signal_gain
+    );
+    let _ = writeln!(
+        out,
+        "  gain at the operating point            {:.4e}  ({:+.3} %)",
+        a.gain(),
+        dev * 100.0
+    );
+    let _ = writeln!(
+        out,
+        "  cathode current at the operating point {}",
+        eng(a.op.cathode_amps, "A")
+    );
+    let _ = writeln!(
+        out,
+        "  d ln G / d ln V                        {:.2}  (a 0.1 % supply change moves the gain {:.2} %)",
+        a.sensitivity,
+        a.sensitivity * 0.1
+    );
+    let _ = writeln!(
+        out,
+        "  excess noise factor of the chain       {:.3}",
+        a.network.tube.excess_noise_factor(&a.op.tube_gap_volts())
+    );
+    let _ = writeln!(out);
+}
+
+/// Stored charge and energy, bleed-down, Zener power and shield touch current.
+fn safety_text(out: &mut String, a: &Analysis) {
+    let s = &a.safety;
+    let _ = writeln!(out, "SAFETY");
+    let _ = writeln!(
+        out,
+        "  {:<34} {:>9} {:>9} {:>10} {:>10} {:>9}",
+        "stored charge", "C", "holds", "charge", "energy", "rating"
+    );
+    for c in &s.capacitors {
+        let _ = writeln!(
+            out,
+            "  {:<34} {:>9} {:>9} {:>10} {:>10} {:>9}",
+            c.label,
+            eng(c.farads, "F"),
+            eng(c.volts, "V"),
+            eng(c.coulombs, "C"),
+            eng(c.joules, "J"),
+            c.rating_volts
+                .map_or_else(|| "—".to_string(), |r| eng(r, "V"))
+        );
+    }
+    if s.capacitors.is_empty() {
+        let _ = writeln!(out, "  (no capacitors named besides the strays)");
+    }
+    let _ = writeln!(
+        out,
+        "  total                               {:>28} {:>10}",
+        eng(s.total_coulombs, "C"),
+        eng(s.total_joules, "J")
+    );
+    let _ = writeln!(
+        out,
+        "  limits quoted: {} µC touchable charge, {} mJ energy (IEC 61010-1 §6.3.1, from memory)",
+        safety::CHARGE_LIMIT_COULOMBS * 1e6,
+        safety::ENERGY_LIMIT_JOULES * 1e3
+    );
+    if s.never_bleeds.is_empty() {
+        let _ = writeln!(
+            out,
+            "  bleed-down to {:.0} V after switch-off: {} (worst case: {}; threshold IEC 60204-1 §6.2.4, from memory)",
+            safety::SAFE_VOLTS,
+            s.bleed_seconds
+                .map_or_else(|| "over an hour".to_string(), |t| eng(t, "s")),
+            s.bleed_case
+        );
+    } else {
+        wrap(
+            out,
+            "  bleed-down         ",
+            &format!(
+                "NEVER through the divider for the {}: nothing discharges it below {:.0} V (fit a bleeder resistor)",
+                s.never_bleeds.join(", the "),
+                safety::SAFE_VOLTS
+            ),
+        );
+    }
+    for v in &s.verdicts {
+        wrap(
+            out,
+            "  judged             ",
+            &format!(
+                "{}: {}, {}: {} {}",
+                v.place,
+                eng(v.coulombs, "C"),
+                eng(v.joules, "J"),
+                if v.over { "OVER," } else { "within," },
+                v.clause
+            ),
+        );
+    }
+    for &(g, w, rating) in &s.zener_power {
+        let _ = writeln!(
+            out,
+            "  Zener on gap {g}: {} of its {} rating{}",
+            eng(w, "W"),
+            eng(rating, "W"),
+            if w > rating { "  OVER" } else { "" }
+        );
+    }
+    if let Some(i) = s.shield_touch_amps {
+        let _ = writeln!(
+            out,
+            "  shield touch current: {} (limit {} DC, IEC 61010-1 §6.3.1, from memory)",
+            eng(i, "A"),
+            eng(safety::TOUCH_CURRENT_DC_AMPS, "A")
+        );
     }
     let _ = writeln!(out);
 }
