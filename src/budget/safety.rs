@@ -469,122 +469,9 @@ fn bleed(
     connected: bool,
     followers: Option<(&Holds, bool)>,
 ) -> (Option<f64>, Vec<String>) {
-    let n = design.tube.stages;
-    let vs = design.supply_magnitude();
-    let rail = n + 1;
-    let anode = n + 2;
-    let ground = match design.polarity {
-        Polarity::CathodeNegative => rail,
-        Polarity::AnodePositive => 0,
-    };
-    let hv = if ground == rail { 0 } else { rail };
-    let multiplier = design.multiplier.as_ref().filter(|_| connected);
-    let mult_node = multiplier.and_then(|m| m.filter.map(|_| n + 3));
-    let nodes = n + 3 + usize::from(mult_node.is_some());
-    // Initial potentials relative to K.
-    let mut v = vec![0.0; nodes];
-    v[1..=n].copy_from_slice(&op.potentials[..n]);
-    v[rail] = vs;
-    v[anode] = op.potentials[n];
-    // Capacitor list (a, b, C).
-    let stray = design.stray.get::<farad>();
-    let mut caps: Vec<(usize, usize, f64)> = Vec::new();
-    for j in 0..n {
-        caps.push((j, j + 1, stray));
-    }
-    caps.push((n, anode, stray));
-    // The named capacitors, the ones that can hold a dangerous charge: (a, b, label).
-    let mut named: Vec<(usize, usize, String)> = Vec::new();
-    for d in &design.decoupling {
-        let c = d.value.get::<farad>();
-        let (a, b, label) = match d.style {
-            CapStyle::Across(g) => {
-                let top = if g == n + 1 { rail } else { g };
-                (
-                    g - 1,
-                    top,
-                    format!("decoupling across gap {g} ({})", design.gap_label(g - 1)),
-                )
-            }
-            CapStyle::ToReturn(k) => (
-                k,
-                rail,
-                format!(
-                    "decoupling D{k} to {}",
-                    match design.polarity {
-                        Polarity::CathodeNegative => "ground",
-                        Polarity::AnodePositive => "+HV",
-                    }
-                ),
-            ),
-        };
-        caps.push((a, b, c));
-        named.push((a, b, label));
-    }
-    if let Some((c, _)) = design.coupling {
-        // The load's resistance in series is small beside the anode resistor: ignored.
-        caps.push((anode, ground, c.get::<farad>()));
-        named.push((anode, ground, "coupling, anode to load".to_string()));
-    }
-    if connected && let Some(c) = design.supply_capacitance {
-        caps.push((0, rail, c.get::<farad>()));
-        named.push((0, rail, "supply output".to_string()));
-    }
-    // The multiplier's capacitors together (2n of C), and its filter capacitor.
-    let mut filter_resistor = None;
-    if let Some(m) = multiplier {
-        let n_m = m.stages as f64;
-        let lump = 2.0 * n_m * m.capacitance.get::<farad>();
-        let no_load = 2.0 * n_m * m.amplitude.get::<volt>();
-        let label = "supply's multiplier capacitors (taken together)".to_string();
-        match (m.filter, mult_node) {
-            (Some((rf, cf)), Some(node)) => {
-                // Charged to the larger of the supply and the no-load output, on the far side
-                // of the filter resistor from the base's high-voltage end.
-                let side = (v[hv] - v[ground]).signum();
-                v[node] = v[ground] + side * no_load.max(vs);
-                caps.push((node, ground, lump));
-                named.push((node, ground, label));
-                caps.push((0, rail, cf.get::<farad>()));
-                named.push((0, rail, "supply filter capacitor".to_string()));
-                filter_resistor = Some((node, hv, rf.get::<ohm>()));
-            }
-            _ => {
-                caps.push((0, rail, lump));
-                named.push((0, rail, label));
-            }
-        }
-    }
-    // Resistive elements (a, b, element) for the divider, plus the anode resistance.
-    let ra = design.anode_dc_resistance().get::<ohm>();
-    let elements: Vec<(usize, usize, Element)> = (0..=n)
-        .map(|j| {
-            let top = if j == n { rail } else { j + 1 };
-            (j, top, design.elements[j])
-        })
-        .collect();
-    // A Zener below its knee conducts only its stated leakage (by its bottom node).
-    let leak: Vec<Option<f64>> = (0..nodes)
-        .map(|j| {
-            design
-                .zener_ratings
-                .get(j)
-                .copied()
-                .flatten()
-                .and_then(|(_, g)| g)
-        })
-        .collect();
-    // Unknown nodes: all but the ground node.
-    let idx: Vec<Option<usize>> = (0..nodes)
-        .map(|i| {
-            if i == ground {
-                None
-            } else {
-                Some(if i < ground { i } else { i - 1 })
-            }
-        })
-        .collect();
-    let m = nodes - 1;
+    let (ckt, mut v) = BleedCircuit::new(design, op, connected);
+    let (m, nodes, ground) = (ckt.m, ckt.nodes, ckt.ground);
+    let named = &ckt.named;
     let hazard = |v: &[f64]| -> f64 {
         named
             .iter()
@@ -605,6 +492,204 @@ fn bleed(
     let mut b = vec![0.0; m];
     let mut prev_hazard = hazard(&v);
     while t < BLEED_HORIZON_SECONDS {
+        ckt.assemble(&v, dt, followers, &mut a, &mut b);
+        if !crate::numerics::dense::solve(&mut a, &mut b, m) {
+            return (None, Vec::new());
+        }
+        for i in 0..nodes {
+            v[i] = ckt.idx[i].map_or(0.0, |k| b[k]);
+        }
+        t += dt;
+        let h = hazard(&v);
+        if h < SAFE_VOLTS {
+            // Interpolate in log of the hazard voltage within the last step.
+            let f = ((prev_hazard / SAFE_VOLTS).ln() / (prev_hazard / h).ln()).clamp(0.0, 1.0);
+            return (Some(t - dt + f * dt), Vec::new());
+        }
+        prev_hazard = h;
+        dt = (t * 0.003).max(1e-12);
+    }
+    let stuck = named
+        .iter()
+        .filter(|&&(a, b, _)| (v[a] - v[b]).abs() >= SAFE_VOLTS)
+        .map(|(_, _, l)| l.clone())
+        .collect();
+    (None, stuck)
+}
+
+/// The switched-off base as a circuit for the bleed-down: node 0 = K, 1..=n dynodes, n+1 the
+/// high-voltage rail, n+2 the anode, n+3 the multiplier's far node when it has a filter.
+struct BleedCircuit {
+    nodes: usize,
+    ground: usize,
+    rail: usize,
+    anode: usize,
+    /// Capacitors (a, b, farads), strays included.
+    caps: Vec<(usize, usize, f64)>,
+    /// The capacitors that can hold a dangerous charge: (a, b, label).
+    named: Vec<(usize, usize, String)>,
+    /// Divider elements (bottom node, top node, element).
+    elements: Vec<(usize, usize, Element)>,
+    /// A Zener's leakage below its knee, by its bottom node.
+    leak: Vec<Option<f64>>,
+    /// Anode resistance, ohms.
+    ra: f64,
+    /// The multiplier's filter resistor (a, b, ohms).
+    filter_resistor: Option<(usize, usize, f64)>,
+    /// Unknown index of each node (ground has none).
+    idx: Vec<Option<usize>>,
+    /// Unknowns.
+    m: usize,
+}
+
+impl BleedCircuit {
+    /// The circuit and its initial potentials relative to K.
+    fn new(design: &Design, op: &OperatingPoint, connected: bool) -> (BleedCircuit, Vec<f64>) {
+        let n = design.tube.stages;
+        let vs = design.supply_magnitude();
+        let rail = n + 1;
+        let anode = n + 2;
+        let ground = match design.polarity {
+            Polarity::CathodeNegative => rail,
+            Polarity::AnodePositive => 0,
+        };
+        let hv = if ground == rail { 0 } else { rail };
+        let multiplier = design.multiplier.as_ref().filter(|_| connected);
+        let mult_node = multiplier.and_then(|m| m.filter.map(|_| n + 3));
+        let nodes = n + 3 + usize::from(mult_node.is_some());
+        // Initial potentials relative to K.
+        let mut v = vec![0.0; nodes];
+        v[1..=n].copy_from_slice(&op.potentials[..n]);
+        v[rail] = vs;
+        v[anode] = op.potentials[n];
+        // Capacitor list (a, b, C).
+        let stray = design.stray.get::<farad>();
+        let mut caps: Vec<(usize, usize, f64)> = Vec::new();
+        for j in 0..n {
+            caps.push((j, j + 1, stray));
+        }
+        caps.push((n, anode, stray));
+        // The named capacitors, the ones that can hold a dangerous charge: (a, b, label).
+        let mut named: Vec<(usize, usize, String)> = Vec::new();
+        for d in &design.decoupling {
+            let c = d.value.get::<farad>();
+            let (a, b, label) = match d.style {
+                CapStyle::Across(g) => {
+                    let top = if g == n + 1 { rail } else { g };
+                    (
+                        g - 1,
+                        top,
+                        format!("decoupling across gap {g} ({})", design.gap_label(g - 1)),
+                    )
+                }
+                CapStyle::ToReturn(k) => (
+                    k,
+                    rail,
+                    format!(
+                        "decoupling D{k} to {}",
+                        match design.polarity {
+                            Polarity::CathodeNegative => "ground",
+                            Polarity::AnodePositive => "+HV",
+                        }
+                    ),
+                ),
+            };
+            caps.push((a, b, c));
+            named.push((a, b, label));
+        }
+        if let Some((c, _)) = design.coupling {
+            // The load's resistance in series is small beside the anode resistor: ignored.
+            caps.push((anode, ground, c.get::<farad>()));
+            named.push((anode, ground, "coupling, anode to load".to_string()));
+        }
+        if connected && let Some(c) = design.supply_capacitance {
+            caps.push((0, rail, c.get::<farad>()));
+            named.push((0, rail, "supply output".to_string()));
+        }
+        // The multiplier's capacitors together (2n of C), and its filter capacitor.
+        let mut filter_resistor = None;
+        if let Some(m) = multiplier {
+            let n_m = m.stages as f64;
+            let lump = 2.0 * n_m * m.capacitance.get::<farad>();
+            let no_load = 2.0 * n_m * m.amplitude.get::<volt>();
+            let label = "supply's multiplier capacitors (taken together)".to_string();
+            match (m.filter, mult_node) {
+                (Some((rf, cf)), Some(node)) => {
+                    // Charged to the larger of the supply and the no-load output, on the far side
+                    // of the filter resistor from the base's high-voltage end.
+                    let side = (v[hv] - v[ground]).signum();
+                    v[node] = v[ground] + side * no_load.max(vs);
+                    caps.push((node, ground, lump));
+                    named.push((node, ground, label));
+                    caps.push((0, rail, cf.get::<farad>()));
+                    named.push((0, rail, "supply filter capacitor".to_string()));
+                    filter_resistor = Some((node, hv, rf.get::<ohm>()));
+                }
+                _ => {
+                    caps.push((0, rail, lump));
+                    named.push((0, rail, label));
+                }
+            }
+        }
+        // Resistive elements (a, b, element) for the divider, plus the anode resistance.
+        let ra = design.anode_dc_resistance().get::<ohm>();
+        let elements: Vec<(usize, usize, Element)> = (0..=n)
+            .map(|j| {
+                let top = if j == n { rail } else { j + 1 };
+                (j, top, design.elements[j])
+            })
+            .collect();
+        // A Zener below its knee conducts only its stated leakage (by its bottom node).
+        let leak: Vec<Option<f64>> = (0..nodes)
+            .map(|j| {
+                design
+                    .zener_ratings
+                    .get(j)
+                    .copied()
+                    .flatten()
+                    .and_then(|(_, g)| g)
+            })
+            .collect();
+        // Unknown nodes: all but the ground node.
+        let idx: Vec<Option<usize>> = (0..nodes)
+            .map(|i| {
+                if i == ground {
+                    None
+                } else {
+                    Some(if i < ground { i } else { i - 1 })
+                }
+            })
+            .collect();
+        let m = nodes - 1;
+        (
+            BleedCircuit {
+                nodes,
+                ground,
+                rail,
+                anode,
+                caps,
+                named,
+                elements,
+                leak,
+                ra,
+                filter_resistor,
+                idx,
+                m,
+            },
+            v,
+        )
+    }
+
+    /// One backward-Euler step of length `dt` from `v` as the linear system `a x = b`.
+    fn assemble(
+        &self,
+        v: &[f64],
+        dt: f64,
+        followers: Option<(&Holds, bool)>,
+        a: &mut [f64],
+        b: &mut [f64],
+    ) {
+        let (idx, m, rail, anode) = (&self.idx, self.m, self.rail, self.anode);
         a.iter_mut().for_each(|x| *x = 0.0);
         b.iter_mut().for_each(|x| *x = 0.0);
         let stamp = |p: usize, q: usize, g: f64, a: &mut [f64]| {
@@ -622,9 +707,9 @@ fn bleed(
             }
         };
         // Capacitors: backward Euler companion (conductance C/dt, source C/dt * v_old).
-        for &(p, q, c) in &caps {
+        for &(p, q, c) in &self.caps {
             let g = c / dt;
-            stamp(p, q, g, &mut a);
+            stamp(p, q, g, a);
             let i_hist = g * (v[p] - v[q]);
             if let Some(i) = idx[p] {
                 b[i] += i_hist;
@@ -634,15 +719,15 @@ fn bleed(
             }
         }
         // Divider elements linearised at the previous voltages (Zeners: above or below knee).
-        for &(p, q, e) in &elements {
+        for &(p, q, e) in &self.elements {
             let w = v[q] - v[p];
             match e {
-                Element::Resistor(r) => stamp(p, q, 1.0 / r.get::<ohm>(), &mut a),
+                Element::Resistor(r) => stamp(p, q, 1.0 / r.get::<ohm>(), a),
                 Element::Zener(vz, rz) => {
                     let vz = vz.get::<volt>();
                     if w > vz {
                         let g = 1.0 / rz.get::<ohm>();
-                        stamp(p, q, g, &mut a);
+                        stamp(p, q, g, a);
                         // Source vz*g from q to p (current flows q -> p through the element).
                         if let Some(i) = idx[p] {
                             b[i] -= vz * g;
@@ -650,18 +735,18 @@ fn bleed(
                         if let Some(j) = idx[q] {
                             b[j] += vz * g;
                         }
-                    } else if let Some(g) = leak[p] {
-                        stamp(p, q, g, &mut a);
+                    } else if let Some(g) = self.leak[p] {
+                        stamp(p, q, g, a);
                     }
                 }
             }
         }
-        stamp(anode, rail, 1.0 / ra, &mut a);
-        if let Some((p, q, r)) = filter_resistor {
-            stamp(p, q, 1.0 / r, &mut a);
+        stamp(anode, rail, 1.0 / self.ra, a);
+        if let Some((p, q, r)) = self.filter_resistor {
+            stamp(p, q, 1.0 / r, a);
         }
         if let Some((h, conducting)) = followers {
-            stamp(0, rail, 1.0 / h.string, &mut a);
+            stamp(0, rail, 1.0 / h.string, a);
             if conducting {
                 // i = L tanh(x / (L r)), x = v_d − v_K − t (v_R − v_K) − drop, linearised at
                 // the previous potentials; i > 0 flows from the dynode to the cathode end,
@@ -686,26 +771,5 @@ fn bleed(
                 }
             }
         }
-        if !crate::numerics::dense::solve(&mut a, &mut b, m) {
-            return (None, Vec::new());
-        }
-        for i in 0..nodes {
-            v[i] = idx[i].map_or(0.0, |k| b[k]);
-        }
-        t += dt;
-        let h = hazard(&v);
-        if h < SAFE_VOLTS {
-            // Interpolate in log of the hazard voltage within the last step.
-            let f = ((prev_hazard / SAFE_VOLTS).ln() / (prev_hazard / h).ln()).clamp(0.0, 1.0);
-            return (Some(t - dt + f * dt), Vec::new());
-        }
-        prev_hazard = h;
-        dt = (t * 0.003).max(1e-12);
     }
-    let stuck = named
-        .iter()
-        .filter(|&&(a, b, _)| (v[a] - v[b]).abs() >= SAFE_VOLTS)
-        .map(|(_, _, l)| l.clone())
-        .collect();
-    (None, stuck)
 }
